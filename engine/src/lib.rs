@@ -1,0 +1,1 @@
+//! `engine`: recipes to a parallel, cached, provenance-keeping run.

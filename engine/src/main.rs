@@ -1,0 +1,4 @@
+fn main() {
+    eprintln!("retort: not built yet");
+    std::process::exit(2);
+}

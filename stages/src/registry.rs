@@ -1,0 +1,92 @@
+//! The one explicit list of stages. Docs, `retort stages` and the recipe schema are
+//! generated from it; add a stage here and nowhere else.
+
+use crate::stage::Stage;
+
+/// Every stage, grouped by family, in the order the catalog shows them.
+pub static CATALOG: &[&dyn Stage] = &[
+    // import
+    &crate::import::delimited::ImportDelimited,
+    // smooth
+    &crate::smooth::moving_average::MovingAverage,
+    // measure
+    &crate::measure::maximum::Maximum,
+    // gather
+    &crate::gather::table::GatherTable,
+];
+
+/// The stage with this exact name.
+pub fn find(name: &str) -> Option<&'static dyn Stage> {
+    CATALOG.iter().copied().find(|s| s.info().name == name)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use std::collections::BTreeSet;
+
+    #[test]
+    fn names_are_unique_dotted_and_lowercase() {
+        let mut seen = BTreeSet::new();
+        for s in CATALOG {
+            let n = s.info().name;
+            assert!(seen.insert(n), "duplicate stage name {n}");
+            let parts: Vec<_> = n.split('.').collect();
+            assert_eq!(parts.len(), 2, "{n} is not family.verb");
+            assert!(
+                n.chars()
+                    .all(|c| c.is_ascii_lowercase() || c == '.' || c == '_' || c.is_ascii_digit()),
+                "{n} must be lowercase snake case"
+            );
+        }
+    }
+
+    #[test]
+    fn every_stage_is_documented_and_defaults_resolve() {
+        for s in CATALOG {
+            let info = s.info();
+            assert!(!info.summary.is_empty(), "{} has no summary", info.name);
+            assert!(info.version >= 1, "{} version must start at 1", info.name);
+            // The default options must be valid and give a methods sentence.
+            let canonical = s
+                .resolve_options(&serde_json::Value::Null)
+                .or_else(|_| Err(()));
+            if let Ok(c) = canonical {
+                let m = s.methods(&c);
+                assert!(
+                    m.ends_with('.'),
+                    "{}: methods sentence must end with a full stop: {m}",
+                    info.name
+                );
+            }
+            // Every option is documented.
+            let schema = serde_json::to_value(s.options_schema()).unwrap();
+            if let Some(props) = schema.get("properties").and_then(|p| p.as_object()) {
+                for (k, v) in props {
+                    assert!(
+                        v.get("description").is_some(),
+                        "{}: option '{k}' has no doc comment",
+                        info.name
+                    );
+                }
+            }
+        }
+    }
+
+    #[test]
+    fn every_reference_key_used_in_methods_is_declared() {
+        for s in CATALOG {
+            let info = s.info();
+            if let Ok(c) = s.resolve_options(&serde_json::Value::Null) {
+                let m = s.methods(&c);
+                for key in m.split('[').skip(1).filter_map(|t| t.split(']').next()) {
+                    assert!(
+                        info.references.iter().any(|r| r.key == key),
+                        "{}: methods cites [{key}] but declares no such reference",
+                        info.name
+                    );
+                }
+            }
+        }
+    }
+}
