@@ -1,1 +1,3 @@
 //! `engine`: recipes to a parallel, cached, provenance-keeping run.
+
+pub mod record;
