@@ -32,6 +32,10 @@ pub enum Arity {
     Each,
     /// All items of the upstream at once (fan-in), ordered by item name.
     Gather,
+    /// One value from each of several upstream steps listed in the recipe, for the
+    /// same item (e.g. the C 1s, O 1s and Ti 2p areas of one sample), in the order
+    /// listed; each entry is named by its upstream step id.
+    Several,
 }
 
 /// One input of a stage.
@@ -61,6 +65,15 @@ impl Port {
             name,
             kind,
             arity: Arity::Gather,
+            optional: false,
+            about,
+        }
+    }
+    pub const fn several(name: &'static str, kind: Kind, about: &'static str) -> Port {
+        Port {
+            name,
+            kind,
+            arity: Arity::Several,
             optional: false,
             about,
         }
@@ -157,7 +170,8 @@ pub enum PortValue<'a> {
     /// Nothing: an optional port left out.
     Missing,
     One(&'a Artifact),
-    /// A gathering port: (item, artifact) ordered by item name.
+    /// A gathering port: (item, artifact) ordered by item name; or a `Several`
+    /// port: (upstream step id, artifact) in the order the recipe lists them.
     Many(Vec<(&'a str, &'a Artifact)>),
 }
 
