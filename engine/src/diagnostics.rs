@@ -41,6 +41,7 @@ pub enum Problem {
     BadSetSyntax { arg: String },
     BadSampleSet { set: String, message: String },
     EmptyGlob { set: String, glob: String },
+    MissingFile { set: String, path: String },
     BadGlob { set: String, glob: String, message: String },
     BadItemRegex { set: String, regex: String, message: String },
     NoItemName { set: String, file: String, regex: String },
@@ -59,6 +60,23 @@ pub enum Problem {
     UnusedSampleSet { set: String },
     /// Warning: a step that reads no items and publishes nothing downstream.
     NoSteps,
+}
+
+/// serde names Rust types ("expected usize"); say what a recipe writer means.
+fn plain_types(message: &str) -> String {
+    let mut m = message.to_string();
+    for (rust, plain) in [
+        ("expected usize", "expected a whole number"),
+        ("expected u64", "expected a whole number"),
+        ("expected u32", "expected a whole number"),
+        ("expected i64", "expected an integer"),
+        ("expected i32", "expected an integer"),
+        ("expected f64", "expected a number"),
+        ("expected f32", "expected a number"),
+    ] {
+        m = m.replace(rust, plain);
+    }
+    m
 }
 
 fn hint_for(suggestion: &Option<String>) -> Option<String> {
@@ -103,6 +121,7 @@ impl Problem {
             ),
             Cycle { path } => format!("steps form a cycle: {}", path.join(" -> ")),
             BadOption { step, stage, path, message, .. } => {
+                let message = plain_types(message);
                 if path.is_empty() {
                     format!("step `{step}` ({stage}): bad options: {message}")
                 } else {
@@ -122,6 +141,7 @@ impl Problem {
             EmptyGlob { set, glob } => {
                 format!("sample set `{set}`: no files match `{glob}`")
             }
+            MissingFile { set, path } => format!("sample set `{set}`: file `{path}` not found"),
             BadGlob { set, glob, message } => {
                 format!("sample set `{set}`: bad pattern `{glob}`: {message}")
             }
@@ -176,7 +196,9 @@ impl Problem {
             OutsideTree { .. } => {
                 Some("pass --allow-outside to read files outside the recipe's folder".into())
             }
-            EmptyGlob { .. } => Some("patterns are relative to the recipe's folder".into()),
+            EmptyGlob { .. } | MissingFile { .. } => {
+                Some("paths are relative to the recipe's folder".into())
+            }
             _ => None,
         }
     }

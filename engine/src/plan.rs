@@ -154,12 +154,11 @@ impl Phase1 {
 
 /// Loads and resolves the recipe at `top`. `sets` are the `NAME=VALUE` overrides.
 pub fn build(top: &std::path::Path, sets: &[String], allow_outside: bool, catalog: &[&'static dyn Stage]) -> Phase1 {
-    let (loaded, policy, mut diags) = load_tree(top, allow_outside);
-    let sources = loaded.iter().map(|l| (l.shown.clone(), l.text.clone())).collect();
+    let (loaded, policy, mut diags, sources) = load_tree(top, allow_outside);
     if loaded.is_empty() {
         return Phase1 { plan: None, diagnostics: diags, sources };
     }
-    let mut r = Resolver { loaded: &loaded, policy: &policy, catalog, diags: Vec::new() };
+    let mut r = Resolver { loaded: &loaded, policy: &policy, catalog, diags: Vec::new(), failed_sets: BTreeSet::new() };
     let plan = r.resolve(sets);
     diags.append(&mut r.diags);
     let errors = diags.iter().any(Diagnostic::is_error);
@@ -270,6 +269,9 @@ struct Resolver<'a> {
     policy: &'a PathPolicy,
     catalog: &'a [&'static dyn Stage],
     diags: Vec<Diagnostic>,
+    /// (recipe, name) of sample sets that failed to expand: reading from them is
+    /// not reported again.
+    failed_sets: BTreeSet<(usize, String)>,
 }
 
 /// A step as declared, before ordering.
@@ -332,9 +334,14 @@ impl<'a> Resolver<'a> {
         for (r, l) in loaded.iter().enumerate() {
             let mut idx = HashMap::new();
             for (name, spec) in &l.raw.samples.0 {
-                if let Some(files) = self.sample_set(r, name, spec, &envs[r]) {
-                    idx.insert(name.clone(), all_sets.len());
-                    all_sets.push(SampleSet { recipe: r, name: name.clone(), files });
+                match self.sample_set(r, name, spec, &envs[r]) {
+                    Some(files) => {
+                        idx.insert(name.clone(), all_sets.len());
+                        all_sets.push(SampleSet { recipe: r, name: name.clone(), files });
+                    }
+                    None => {
+                        self.failed_sets.insert((r, name.clone()));
+                    }
                 }
             }
             set_index.push(idx);
@@ -787,6 +794,9 @@ impl<'a> Resolver<'a> {
                     by_id.get(name).map(|&d| (Src::Step(d), kinds[d]))
                 };
                 let Some((src, kind)) = src else {
+                    if self.failed_sets.contains(&(r, name.clone())) {
+                        continue;
+                    }
                     let ns = &self.loaded[r].namespace;
                     let mut candidates: Vec<String> = by_id.keys().filter_map(|k| k.strip_prefix(ns.as_str())).map(str::to_string).collect();
                     candidates.extend(sets.keys().cloned());
@@ -1035,7 +1045,12 @@ impl<'a> Resolver<'a> {
             files.push(SampleFile { item, path: canonical, shown });
         }
         if files.is_empty() && ok {
-            self.err(r, Problem::EmptyGlob { set: name.into(), glob: pattern }, gpos);
+            let problem = if pattern.contains(['*', '?', '[']) {
+                Problem::EmptyGlob { set: name.into(), glob: pattern }
+            } else {
+                Problem::MissingFile { set: name.into(), path: pattern }
+            };
+            self.err(r, problem, gpos);
             return None;
         }
         files.sort_by(|a, b| a.item.cmp(&b.item));

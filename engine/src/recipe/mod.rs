@@ -63,7 +63,10 @@ impl PathPolicy {
 }
 
 /// Reads the top recipe and everything it includes, depth first in include order.
-pub fn load_tree(top: &Path, allow_outside: bool) -> (Vec<Loaded>, PathPolicy, Vec<Diagnostic>) {
+/// Every recipe read, with its text (also those that did not parse), for diagnostics.
+pub type Sources = Vec<(String, String)>;
+
+pub fn load_tree(top: &Path, allow_outside: bool) -> (Vec<Loaded>, PathPolicy, Vec<Diagnostic>, Sources) {
     let mut diags = Vec::new();
     let shown_top = top.display().to_string();
     let canonical = match top.canonicalize() {
@@ -75,28 +78,32 @@ pub fn load_tree(top: &Path, allow_outside: bool) -> (Vec<Loaded>, PathPolicy, V
                 None,
             ));
             let policy = PathPolicy { root: PathBuf::from("."), allow_outside };
-            return (Vec::new(), policy, diags);
+            return (Vec::new(), policy, diags, Vec::new());
         }
     };
     let root = canonical.parent().map(Path::to_path_buf).unwrap_or_default();
     let policy = PathPolicy { root, allow_outside };
     let mut out = Vec::new();
-    load_one(&canonical, None, String::new(), Vec::new(), &policy, &mut vec![], &mut out, &mut diags);
-    (out, policy, diags)
+    let mut ctx = Ctx { policy: &policy, chain: Vec::new(), out: &mut out, diags: &mut diags, sources: Vec::new() };
+    load_one(&canonical, None, String::new(), Vec::new(), &mut ctx);
+    let sources = ctx.sources;
+    (out, policy, diags, sources)
 }
 
-#[allow(clippy::too_many_arguments)]
-fn load_one(
-    abs: &Path,
-    parent: Option<usize>,
-    prefix: String,
-    passed: Vec<(String, serde_yaml::Value, Vec<Seg>)>,
-    policy: &PathPolicy,
-    chain: &mut Vec<PathBuf>,
-    out: &mut Vec<Loaded>,
-    diags: &mut Vec<Diagnostic>,
-) -> Option<usize> {
+struct Ctx<'a> {
+    policy: &'a PathPolicy,
+    chain: Vec<PathBuf>,
+    out: &'a mut Vec<Loaded>,
+    diags: &'a mut Vec<Diagnostic>,
+    sources: Sources,
+}
+
+type Passed = Vec<(String, serde_yaml::Value, Vec<Seg>)>;
+
+fn load_one(abs: &Path, parent: Option<usize>, prefix: String, passed: Passed, ctx: &mut Ctx) -> Option<usize> {
+    let policy = ctx.policy;
     let shown = policy.shown(abs);
+    let diags = &mut *ctx.diags;
     let text = match std::fs::read_to_string(abs) {
         Ok(t) => t,
         Err(e) => {
@@ -108,6 +115,7 @@ fn load_one(
             return None;
         }
     };
+    ctx.sources.push((shown.clone(), text.clone()));
     let spans = Spans::scan(&text);
     for d in &spans.duplicates {
         let key = match d.path.last() {
@@ -137,6 +145,7 @@ fn load_one(
     } else {
         prefix
     };
+    let out = &mut *ctx.out;
     let index = out.len();
     let includes = raw.include.clone();
     out.push(Loaded {
@@ -150,19 +159,20 @@ fn load_one(
         parent,
         passed,
     });
-    chain.push(abs.to_path_buf());
+    ctx.chain.push(abs.to_path_buf());
     for (i, inc) in includes.iter().enumerate() {
         let at = vec![Seg::key("include"), Seg::Index(i)];
-        let loc = |path: &[Seg]| Some(out[index].spans.value(path));
+        let loc = Some(ctx.out[index].spans.value(&at));
+        let diags = &mut *ctx.diags;
         let (path, set, alias) = match parse_include(inc) {
             Ok(v) => v,
             Err(message) => {
-                diags.push(Diagnostic::error(Problem::BadInclude { message }, Some(&shown), loc(&at)));
+                diags.push(Diagnostic::error(Problem::BadInclude { message }, Some(&shown), loc));
                 continue;
             }
         };
         if !policy.written_ok(&path) {
-            diags.push(Diagnostic::error(Problem::OutsideTree { path }, Some(&shown), loc(&at)));
+            diags.push(Diagnostic::error(Problem::OutsideTree { path }, Some(&shown), loc));
             continue;
         }
         let target = match dir.join(&path).canonicalize() {
@@ -171,19 +181,19 @@ fn load_one(
                 diags.push(Diagnostic::error(
                     Problem::MissingInclude { path, message: e.to_string() },
                     Some(&shown),
-                    loc(&at),
+                    loc,
                 ));
                 continue;
             }
         };
         if !policy.permits(&target) {
-            diags.push(Diagnostic::error(Problem::OutsideTree { path }, Some(&shown), loc(&at)));
+            diags.push(Diagnostic::error(Problem::OutsideTree { path }, Some(&shown), loc));
             continue;
         }
-        if let Some(k) = chain.iter().position(|c| *c == target) {
-            let mut names: Vec<String> = chain[k..].iter().map(|c| policy.shown(c)).collect();
+        if let Some(k) = ctx.chain.iter().position(|c| *c == target) {
+            let mut names: Vec<String> = ctx.chain[k..].iter().map(|c| policy.shown(c)).collect();
             names.push(policy.shown(&target));
-            diags.push(Diagnostic::error(Problem::IncludeCycle { chain: names }, Some(&shown), loc(&at)));
+            diags.push(Diagnostic::error(Problem::IncludeCycle { chain: names }, Some(&shown), loc));
             continue;
         }
         let passed: Vec<_> = set
@@ -197,10 +207,11 @@ fn load_one(
             .collect();
         // The namespace is known only once the included file is parsed (its id),
         // unless the include names one with `as`.
-        let before = out.len();
+        let before = ctx.out.len();
         let child_prefix = alias.map(|a| format!("{namespace}{a}/"));
         let placeholder = child_prefix.clone().unwrap_or_default();
-        if let Some(ci) = load_one(&target, Some(index), placeholder, passed, policy, chain, out, diags) {
+        if let Some(ci) = load_one(&target, Some(index), placeholder, passed, ctx) {
+            let out = &mut *ctx.out;
             if child_prefix.is_none() {
                 let id = out[ci].raw.id.clone();
                 let new_prefix = format!("{namespace}{id}/");
@@ -212,7 +223,7 @@ fn load_one(
             }
         }
     }
-    chain.pop();
+    ctx.chain.pop();
     Some(index)
 }
 
