@@ -24,7 +24,6 @@ use std::path::PathBuf;
 pub struct FileEntry {
     pub path: PathBuf,
     pub shown: String,
-    pub item: String,
     pub hash: String,
     pub bytes: u64,
     /// Key of the file as a node input: blake3 of its shown name and content hash.
@@ -100,12 +99,12 @@ fn stat_of(md: &std::fs::Metadata) -> (u64, i64, u32, u64) {
 
 /// Hashes every file of the plan's sample sets, using and updating `index`.
 fn hash_files(plan: &Plan, index: &mut StatIndex) -> Result<(Vec<FileEntry>, usize), String> {
-    let mut wanted: Vec<(PathBuf, String, String)> = Vec::new();
+    let mut wanted: Vec<(PathBuf, String)> = Vec::new();
     let mut seen = HashMap::new();
     for set in &plan.sets {
         for f in &set.files {
             if seen.insert(f.path.clone(), wanted.len()).is_none() {
-                wanted.push((f.path.clone(), f.shown.clone(), f.item.clone()));
+                wanted.push((f.path.clone(), f.shown.clone()));
             }
         }
     }
@@ -113,7 +112,7 @@ fn hash_files(plan: &Plan, index: &mut StatIndex) -> Result<(Vec<FileEntry>, usi
     let idx: &StatIndex = index;
     let results: Vec<Result<(FileEntry, Option<FileStat>, bool), String>> = wanted
         .par_iter()
-        .map(|(path, shown, item)| {
+        .map(|(path, shown)| {
             let md = std::fs::metadata(path).map_err(|e| format!("{shown}: {e}"))?;
             let (size, ms, mns, ino) = stat_of(&md);
             let abs = path.to_string_lossy().to_string();
@@ -128,7 +127,7 @@ fn hash_files(plan: &Plan, index: &mut StatIndex) -> Result<(Vec<FileEntry>, usi
             // same mtime tick: do not trust its stat next time.
             let stat = (ms < now - 2).then(|| FileStat { size, mtime_s: ms, mtime_ns: mns, inode: ino, hash: hash.clone() });
             let key = file_key(shown, &hash);
-            Ok((FileEntry { path: path.clone(), shown: shown.clone(), item: item.clone(), hash, bytes: size, key }, stat, hashed))
+            Ok((FileEntry { path: path.clone(), shown: shown.clone(), hash, bytes: size, key }, stat, hashed))
         })
         .collect();
     let mut files = Vec::new();
@@ -162,9 +161,9 @@ pub fn file_key(shown: &str, hash: &str) -> String {
 /// Expands the plan. Fails only when an input file cannot be read.
 pub fn expand(plan: &Plan, index: &mut StatIndex) -> Result<Graph, String> {
     let (files, hashed) = hash_files(plan, index)?;
-    let file_of: HashMap<(PathBuf, String), usize> = files.iter().enumerate().map(|(i, f)| ((f.path.clone(), f.item.clone()), i)).collect();
+    let file_of: HashMap<PathBuf, usize> = files.iter().enumerate().map(|(i, f)| (f.path.clone(), i)).collect();
     let set_file = |si: usize, item: &str| -> Option<usize> {
-        plan.sets[si].files.iter().find(|f| f.item == item).and_then(|f| file_of.get(&(f.path.clone(), f.item.clone())).copied())
+        plan.sets[si].files.iter().find(|f| f.item == item).and_then(|f| file_of.get(&f.path).copied())
     };
     let mut nodes: Vec<Node> = Vec::new();
     // step -> (item or None) -> node

@@ -14,6 +14,9 @@ pub fn copy_dir(from: &Path, to: &Path) {
     std::fs::create_dir_all(to).unwrap();
     for e in std::fs::read_dir(from).unwrap() {
         let e = e.unwrap();
+        if e.file_name() == ".retort" || e.file_name() == "out" {
+            continue;
+        }
         let target = to.join(e.file_name());
         if e.path().is_dir() {
             copy_dir(&e.path(), &target);
@@ -30,8 +33,26 @@ pub fn fixture(case: &str) -> tempfile::TempDir {
     t
 }
 
+/// The `retort` binary, built once per test process: `cargo test -p tests` does not
+/// build another package's binaries, and a stale binary would test old code.
+pub fn binary() -> PathBuf {
+    static BUILT: std::sync::OnceLock<PathBuf> = std::sync::OnceLock::new();
+    BUILT
+        .get_or_init(|| {
+            let cargo = std::env::var("CARGO").unwrap_or_else(|_| "cargo".into());
+            let status = std::process::Command::new(cargo)
+                .args(["build", "--quiet", "-p", "engine", "--bin", "retort"])
+                .current_dir(env!("CARGO_MANIFEST_DIR"))
+                .status()
+                .expect("cargo runs");
+            assert!(status.success(), "building retort failed");
+            assert_cmd::cargo::cargo_bin("retort")
+        })
+        .clone()
+}
+
 pub fn retort(dir: &Path) -> Command {
-    let mut c = Command::cargo_bin("retort").unwrap();
+    let mut c = Command::new(binary());
     c.current_dir(dir).env_remove("RETORT_CACHE");
     c
 }
