@@ -1,4 +1,6 @@
+//! The `retort` binary: the command line over the built-in stage catalog.
+
 fn main() {
-    eprintln!("retort: not built yet");
-    std::process::exit(2);
+    let code = engine::cli::main_with(std::env::args().collect(), stages::CATALOG);
+    std::process::exit(code.code());
 }

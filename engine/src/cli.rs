@@ -1,0 +1,517 @@
+//! The command line: `run`, `check`, `plan`, `stages`, `report`.
+//!
+//! The outermost layer: it parses arguments, calls phase one, the graph, the
+//! scheduler and the writers, prints to the terminal and picks the exit code.
+//! Everything is generic over the stage catalog so benchmarks can bring their own.
+
+use crate::cache::{Cache, LastNode, NodeIndex};
+use crate::exit::Exit;
+use crate::graph::{self, Graph, NodeInput};
+use crate::plan::{self, Plan};
+use crate::record::{NodeStatus, RunRecord};
+use crate::scheduler::{self, Progress, RunOptions};
+use crate::{outputs, provenance, timefmt};
+use clap::{Parser, Subcommand};
+use stages::stage::Stage;
+use std::io::IsTerminal;
+use std::path::{Path, PathBuf};
+
+#[derive(Parser, Debug)]
+#[command(name = "retort", version, about = "Reproducible analysis recipes for materials characterization data")]
+pub struct Cli {
+    #[command(subcommand)]
+    pub command: Command,
+}
+
+#[derive(Subcommand, Debug)]
+pub enum Command {
+    /// Run a recipe: every step, in parallel, reusing cached results.
+    Run(RunArgs),
+    /// Check a recipe (names, options, inputs, files); run nothing.
+    Check(RecipeArgs),
+    /// Show every node of the recipe's graph: cached or to run, and why.
+    Plan(RecipeArgs),
+    /// The stage catalog: options, units, defaults, method sources.
+    Stages {
+        /// One stage in detail.
+        name: Option<String>,
+        /// As JSON.
+        #[arg(long)]
+        json: bool,
+    },
+    /// Re-render the report of a finished run from its run.json and the cache.
+    Report {
+        /// The output folder of a run.
+        outdir: PathBuf,
+    },
+}
+
+#[derive(clap::Args, Debug, Clone)]
+pub struct RecipeArgs {
+    /// The recipe file.
+    pub recipe: PathBuf,
+    /// Override a parameter (repeatable).
+    #[arg(long = "set", value_name = "NAME=VALUE")]
+    pub set: Vec<String>,
+    /// Allow reading files outside the recipe's folder.
+    #[arg(long)]
+    pub allow_outside: bool,
+    /// Cache folder (default: $RETORT_CACHE, else .retort/ beside the recipe).
+    #[arg(long, value_name = "DIR")]
+    pub cache: Option<PathBuf>,
+}
+
+#[derive(clap::Args, Debug, Clone)]
+pub struct RunArgs {
+    #[command(flatten)]
+    pub recipe: RecipeArgs,
+    /// Output folder (default: out/ beside the recipe).
+    #[arg(long, value_name = "DIR")]
+    pub out: Option<PathBuf>,
+    /// Steps run at once (default: all cores).
+    #[arg(long, value_name = "N")]
+    pub jobs: Option<usize>,
+    /// Stop starting new steps at the first failure.
+    #[arg(long)]
+    pub fail_fast: bool,
+    /// Ignore the cache: run everything, in a throwaway cache.
+    #[arg(long)]
+    pub no_cache: bool,
+    /// Print only errors.
+    #[arg(long)]
+    pub quiet: bool,
+}
+
+/// Parses `args` and runs the command with `catalog`; returns the exit code.
+pub fn main_with(args: Vec<String>, catalog: &[&'static dyn Stage]) -> Exit {
+    let cli = match Cli::try_parse_from(args) {
+        Ok(c) => c,
+        Err(e) => {
+            let _ = e.print();
+            return if e.use_stderr() { Exit::Usage } else { Exit::Ok };
+        }
+    };
+    match cli.command {
+        Command::Run(a) => run(&a, catalog),
+        Command::Check(a) => check(&a, catalog),
+        Command::Plan(a) => plan_cmd(&a, catalog),
+        Command::Stages { name, json } => stages_cmd(name.as_deref(), json, catalog),
+        Command::Report { outdir } => report_cmd(&outdir),
+    }
+}
+
+fn phase1(a: &RecipeArgs, catalog: &[&'static dyn Stage]) -> Result<Plan, Exit> {
+    let p1 = plan::build(&a.recipe, &a.set, a.allow_outside, catalog);
+    let text = p1.render_diagnostics();
+    if !text.is_empty() {
+        eprint!("{text}");
+    }
+    p1.plan.ok_or(Exit::Usage)
+}
+
+fn cache_dir(a: &RecipeArgs, plan: &Plan) -> PathBuf {
+    a.cache
+        .clone()
+        .or_else(|| std::env::var_os("RETORT_CACHE").filter(|v| !v.is_empty()).map(PathBuf::from))
+        .unwrap_or_else(|| plan.policy.root.join(".retort"))
+}
+
+fn host() -> String {
+    hostname::get().map(|h| h.to_string_lossy().to_string()).unwrap_or_else(|_| "unknown".into())
+}
+
+/// Identity of a node across runs, for the last-key index.
+fn identity(plan: &Plan, graph: &Graph, n: usize) -> String {
+    let node = &graph.nodes[n];
+    format!("{}\0{}\0{}", plan.policy.root.join(plan.recipes.first().map(|r| r.shown.as_str()).unwrap_or("")).display(), plan.steps[node.step].id, node.item.as_deref().unwrap_or(""))
+}
+
+fn options_hash(v: &serde_json::Value) -> String {
+    blake3::hash(v.to_string().as_bytes()).to_hex().to_string()
+}
+
+fn input_keys(graph: &Graph, n: usize) -> Vec<String> {
+    let mut out = Vec::new();
+    for inp in &graph.nodes[n].inputs {
+        match inp {
+            NodeInput::Missing => out.push(String::new()),
+            NodeInput::One(r) => out.push(graph.ref_key(*r).to_string()),
+            NodeInput::Many(v) => out.extend(v.iter().map(|(_, r)| graph.ref_key(*r).to_string())),
+        }
+    }
+    out
+}
+
+fn last_node(plan: &Plan, graph: &Graph, n: usize) -> LastNode {
+    let node = &graph.nodes[n];
+    let step = &plan.steps[node.step];
+    LastNode {
+        key: node.key.clone(),
+        stage_version: step.stage.info().version,
+        options: options_hash(&step.options),
+        files: node.files.iter().map(|&f| (graph.files[f].shown.clone(), graph.files[f].hash.clone())).collect(),
+        inputs: input_keys(graph, n),
+    }
+}
+
+fn expand(plan: &Plan, cache: &Cache) -> Result<Graph, String> {
+    let mut idx = cache.stat_index();
+    let g = graph::expand(plan, &mut idx)?;
+    if g.hashed > 0 {
+        cache.save_stat_index(&idx)?;
+    }
+    Ok(g)
+}
+
+struct Reporter {
+    bar: Option<indicatif::ProgressBar>,
+    plain: bool,
+}
+
+impl Progress for Reporter {
+    fn finished(&self, label: &str, status: &NodeStatus, ms: f64) {
+        let line = match status {
+            NodeStatus::Ran => format!("ran      {label} ({ms:.1} ms)"),
+            NodeStatus::Cached => format!("cached   {label}"),
+            NodeStatus::Failed { error } => format!("FAILED   {label}: {error}"),
+            NodeStatus::Skipped { because } => format!("skipped  {label}: {because}"),
+        };
+        if let Some(b) = &self.bar {
+            b.inc(1);
+            if matches!(status, NodeStatus::Failed { .. }) {
+                b.println(line);
+            }
+        } else if self.plain || matches!(status, NodeStatus::Failed { .. }) {
+            eprintln!("{line}");
+        }
+    }
+}
+
+fn run(a: &RunArgs, catalog: &[&'static dyn Stage]) -> Exit {
+    let plan = match phase1(&a.recipe, catalog) {
+        Ok(p) => p,
+        Err(e) => return e,
+    };
+    match run_plan(a, &plan) {
+        Ok(e) => e,
+        Err(msg) => {
+            eprintln!("error: {msg}");
+            Exit::StepFailed
+        }
+    }
+}
+
+fn run_plan(a: &RunArgs, plan: &Plan) -> Result<Exit, String> {
+    let started = timefmt::now_rfc3339();
+    let throwaway = if a.no_cache { Some(tempfile::tempdir().map_err(|e| e.to_string())?) } else { None };
+    let dir = match &throwaway {
+        Some(t) => t.path().to_path_buf(),
+        None => cache_dir(&a.recipe, plan),
+    };
+    let cache = Cache::open(&dir, throwaway.is_none())?;
+    let graph = expand(plan, &cache)?;
+    let host = host();
+    let jobs = a.jobs.unwrap_or_else(|| std::thread::available_parallelism().map(|n| n.get()).unwrap_or(1)).max(1);
+    let terminal = std::io::stderr().is_terminal();
+    let bar = (!a.quiet && terminal).then(|| {
+        let b = indicatif::ProgressBar::new(graph.nodes.iter().filter(|n| n.same_as.is_none()).count() as u64);
+        if let Ok(style) = indicatif::ProgressStyle::with_template("{bar:30} {pos}/{len} nodes {elapsed}") {
+            b.set_style(style);
+        }
+        b
+    });
+    let reporter = Reporter { bar, plain: !a.quiet && !terminal };
+    let opts = RunOptions { jobs, fail_fast: a.fail_fast, host: host.clone() };
+    let outcomes = scheduler::run(plan, &graph, &cache, &opts, &reporter)?;
+    if let Some(b) = &reporter.bar {
+        b.finish_and_clear();
+    }
+    let checks = outputs::checks(plan, &graph, &outcomes);
+    let finished = timefmt::now_rfc3339();
+    let record = outputs::run_record(plan, &graph, &outcomes, checks, started, finished, &host, &cache.dir);
+    let results = outputs::results_json(plan, &graph, &outcomes);
+    let out = a.out.clone().unwrap_or_else(|| plan.policy.root.join("out"));
+    let tmp = outputs::temp_beside(&out)?;
+    outputs::write(tmp.path(), "results.json", &outputs::json_bytes(&results)?)?;
+    outputs::write(tmp.path(), "tables/results.csv", &outputs::results_csv(&results)?)?;
+    outputs::write(tmp.path(), "provenance.json", &outputs::json_bytes(&provenance::document(plan, &graph, &outcomes, &host))?)?;
+    outputs::write(tmp.path(), "run.json", &outputs::json_bytes(&record)?)?;
+    let source = |key: &str| match cache.load(key) {
+        crate::cache::Lookup::Found(b) => Some(b.1),
+        _ => None,
+    };
+    crate::report::render(&record, &source, tmp.path(), None).map_err(|e| e.to_string())?;
+    outputs::publish(tmp, &out)?;
+    // Remember what each node was, for `plan`'s reasons.
+    if throwaway.is_none() {
+        let mut updates = NodeIndex::new();
+        for (i, o) in outcomes.iter().enumerate() {
+            if matches!(o.status, NodeStatus::Ran | NodeStatus::Cached) {
+                updates.insert(identity(plan, &graph, i), last_node(plan, &graph, i));
+            }
+        }
+        cache.update_node_index(updates)?;
+    }
+    let count = |f: fn(&NodeStatus) -> bool| record.nodes.iter().filter(|n| f(&n.status)).count();
+    let ran = count(|s| matches!(s, NodeStatus::Ran));
+    let cached = count(|s| matches!(s, NodeStatus::Cached));
+    let failed = count(|s| matches!(s, NodeStatus::Failed { .. }));
+    let skipped = count(|s| matches!(s, NodeStatus::Skipped { .. }));
+    let corrupt = outcomes.iter().filter(|o| o.corrupt.is_some()).count();
+    let checks_failed = record.checks.iter().filter(|c| !c.passed).count();
+    for (o, i) in outcomes.iter().zip(0..) {
+        if let Some(reason) = &o.corrupt {
+            if graph.nodes[i].same_as.is_none() {
+                eprintln!("warning: cache entry of {} was corrupt ({reason}); recomputed", scheduler::node_label(plan, &graph, i));
+            }
+        }
+    }
+    for c in record.checks.iter().filter(|c| !c.passed) {
+        eprintln!("check failed: {}{}: {}", c.result, c.item.as_ref().map(|i| format!(" [{i}]")).unwrap_or_default(), c.message);
+    }
+    if !a.quiet {
+        println!(
+            "{} nodes: {ran} ran, {cached} cached, {failed} failed, {skipped} skipped{}; {} checks, {checks_failed} failed; output in {}",
+            record.nodes.len(),
+            if corrupt > 0 { format!(", {corrupt} corrupt cache entries recomputed") } else { String::new() },
+            record.checks.len(),
+            out.display()
+        );
+    }
+    Ok(if failed + skipped > 0 {
+        Exit::StepFailed
+    } else if checks_failed > 0 {
+        Exit::CheckFailed
+    } else {
+        Exit::Ok
+    })
+}
+
+fn check(a: &RecipeArgs, catalog: &[&'static dyn Stage]) -> Exit {
+    match phase1(a, catalog) {
+        Ok(plan) => {
+            let nodes: usize = plan.steps.iter().map(|s| s.domain.as_ref().map_or(1, Vec::len)).sum();
+            let files: usize = plan.sets.iter().map(|s| s.files.len()).sum();
+            println!("{}: ok ({} steps, {nodes} nodes, {files} input files, {} checks)", a.recipe.display(), plan.steps.len(), plan.checks.len());
+            Exit::Ok
+        }
+        Err(e) => e,
+    }
+}
+
+/// Why a node will run, compared with its last run.
+fn reason(plan: &Plan, graph: &Graph, n: usize, last: Option<&LastNode>, cache: &Cache) -> String {
+    let node = &graph.nodes[n];
+    if let Some(Err(e)) = cache.verify(&node.key) {
+        return format!("cache entry corrupt ({e})");
+    }
+    let Some(last) = last else {
+        return "new: never run".into();
+    };
+    let now = last_node(plan, graph, n);
+    if last.key == now.key {
+        return "cache entry missing".into();
+    }
+    if last.stage_version != now.stage_version {
+        return format!("new stage version ({} -> {})", last.stage_version, now.stage_version);
+    }
+    if last.options != now.options {
+        return "changed options".into();
+    }
+    for (path, hash) in &now.files {
+        match last.files.iter().find(|(p, _)| p == path) {
+            Some((_, h)) if h != hash => return format!("changed input file {path}"),
+            None => return format!("new input file {path}"),
+            _ => {}
+        }
+    }
+    for &u in &node.upstream {
+        if !last.inputs.contains(&graph.nodes[u].key) {
+            return format!("changed input: {}", scheduler::node_label(plan, graph, u));
+        }
+    }
+    "changed inputs".into()
+}
+
+fn plan_cmd(a: &RecipeArgs, catalog: &[&'static dyn Stage]) -> Exit {
+    let plan = match phase1(a, catalog) {
+        Ok(p) => p,
+        Err(e) => return e,
+    };
+    let result = (|| -> Result<(), String> {
+        let cache = Cache::open(&cache_dir(a, &plan), true)?;
+        let graph = expand(&plan, &cache)?;
+        let index = cache.node_index();
+        let mut lines = Vec::new();
+        let mut to_run = 0;
+        for (i, node) in graph.nodes.iter().enumerate() {
+            let label = scheduler::node_label(&plan, &graph, i);
+            let line = if let Some(orig) = node.same_as {
+                format!("  same     {label}  (same work as {})", scheduler::node_label(&plan, &graph, orig))
+            } else if matches!(cache.verify(&node.key), Some(Ok(()))) {
+                format!("  cached   {label}")
+            } else {
+                to_run += 1;
+                let why = reason(&plan, &graph, i, index.get(&identity(&plan, &graph, i)), &cache);
+                format!("  run      {label}  ({why})")
+            };
+            lines.push(line);
+        }
+        println!("{}: {} nodes, {to_run} to run, {} cached", a.recipe.display(), graph.nodes.len(), graph.nodes.len() - to_run);
+        for l in lines {
+            println!("{l}");
+        }
+        Ok(())
+    })();
+    match result {
+        Ok(()) => Exit::Ok,
+        Err(e) => {
+            eprintln!("error: {e}");
+            Exit::StepFailed
+        }
+    }
+}
+
+fn report_cmd(outdir: &Path) -> Exit {
+    let result = (|| -> Result<(), String> {
+        let path = outdir.join("run.json");
+        let text = std::fs::read_to_string(&path).map_err(|e| format!("{}: {e}", path.display()))?;
+        let record: RunRecord = serde_json::from_str(&text).map_err(|e| format!("{}: {e}", path.display()))?;
+        let cache = Cache::open(Path::new(&record.cache_dir), true)?;
+        let tmp = tempfile::Builder::new().prefix(".report-").tempdir_in(outdir).map_err(|e| e.to_string())?;
+        let source = |key: &str| match cache.load(key) {
+            crate::cache::Lookup::Found(b) => Some(b.1),
+            _ => None,
+        };
+        crate::report::render(&record, &source, tmp.path(), None).map_err(|e| e.to_string())?;
+        // Move every rendered file over the old one.
+        let mut stack = vec![tmp.path().to_path_buf()];
+        while let Some(dir) = stack.pop() {
+            for entry in std::fs::read_dir(&dir).map_err(|e| e.to_string())?.flatten() {
+                let p = entry.path();
+                let rel = p.strip_prefix(tmp.path()).map_err(|e| e.to_string())?;
+                let target = outdir.join(rel);
+                if p.is_dir() {
+                    std::fs::create_dir_all(&target).map_err(|e| e.to_string())?;
+                    stack.push(p);
+                } else {
+                    std::fs::rename(&p, &target).map_err(|e| format!("{}: {e}", target.display()))?;
+                }
+            }
+        }
+        println!("report re-rendered in {}", outdir.display());
+        Ok(())
+    })();
+    match result {
+        Ok(()) => Exit::Ok,
+        Err(e) => {
+            eprintln!("error: {e}");
+            Exit::Usage
+        }
+    }
+}
+
+/// A short type name from an option's JSON schema.
+fn type_of(schema: &serde_json::Value) -> String {
+    if let Some(t) = schema.get("type") {
+        return match t {
+            serde_json::Value::Array(v) => v.iter().filter_map(|x| x.as_str()).filter(|s| *s != "null").collect::<Vec<_>>().join(" | "),
+            other => other.as_str().unwrap_or("").to_string(),
+        };
+    }
+    if let Some(r) = schema.get("$ref").and_then(|r| r.as_str()) {
+        return r.rsplit('/').next().unwrap_or(r).to_string();
+    }
+    for k in ["anyOf", "oneOf"] {
+        if let Some(v) = schema.get(k).and_then(|v| v.as_array()) {
+            return v.iter().map(type_of).filter(|s| s != "null" && !s.is_empty()).collect::<Vec<_>>().join(" | ");
+        }
+    }
+    if schema.get("enum").is_some() {
+        return "choice".into();
+    }
+    String::new()
+}
+
+fn stage_json(s: &dyn Stage) -> serde_json::Value {
+    let info = s.info();
+    let schema = serde_json::to_value(s.options_schema()).unwrap_or_default();
+    let defaults = s.resolve_options(&serde_json::Value::Null).ok();
+    let mut options = Vec::new();
+    if let Some(props) = schema.get("properties").and_then(|p| p.as_object()) {
+        for (name, p) in props {
+            options.push(serde_json::json!({
+                "name": name,
+                "type": type_of(p),
+                "default": p.get("default").cloned().or_else(|| defaults.as_ref().and_then(|d| d.get(name).cloned())),
+                "unit": p.get("x-unit"),
+                "description": p.get("description"),
+            }));
+        }
+    }
+    serde_json::json!({
+        "name": info.name,
+        "version": info.version,
+        "summary": info.summary,
+        "inputs": info.inputs.iter().map(|p| serde_json::json!({
+            "name": p.name, "kind": p.kind.name(), "arity": format!("{:?}", p.arity).to_lowercase(),
+            "optional": p.optional, "about": p.about,
+        })).collect::<Vec<_>>(),
+        "output": info.output.name(),
+        "options": options,
+        "options_schema": schema,
+        "references": info.references.iter().map(|r| serde_json::json!({ "key": r.key, "citation": r.citation })).collect::<Vec<_>>(),
+    })
+}
+
+fn stages_cmd(name: Option<&str>, json: bool, catalog: &[&'static dyn Stage]) -> Exit {
+    let chosen: Vec<&'static dyn Stage> = match name {
+        Some(n) => match catalog.iter().copied().find(|s| s.info().name == n) {
+            Some(s) => vec![s],
+            None => {
+                let hint = crate::diagnostics::did_you_mean(n, catalog.iter().map(|s| s.info().name));
+                eprintln!("error: unknown stage `{n}`{}", hint.map(|h| format!(" (did you mean `{h}`?)")).unwrap_or_default());
+                return Exit::Usage;
+            }
+        },
+        None => catalog.to_vec(),
+    };
+    let docs: Vec<serde_json::Value> = chosen.iter().map(|s| stage_json(*s)).collect();
+    if json {
+        let v = serde_json::json!({ "schema_version": 1, "stages": docs });
+        println!("{}", serde_json::to_string_pretty(&v).unwrap_or_default());
+        return Exit::Ok;
+    }
+    if name.is_none() {
+        for d in &docs {
+            println!("{:<28} v{:<3} {}", d["name"].as_str().unwrap_or(""), d["version"], d["summary"].as_str().unwrap_or(""));
+        }
+        println!("\n`retort stages NAME` shows one stage's inputs, options and sources.");
+        return Exit::Ok;
+    }
+    for d in &docs {
+        let s = |v: &serde_json::Value| match v {
+            serde_json::Value::Null => String::new(),
+            serde_json::Value::String(t) => t.clone(),
+            other => other.to_string(),
+        };
+        println!("{} (version {})\n  {}\n", s(&d["name"]), d["version"], s(&d["summary"]));
+        println!("inputs:");
+        for p in d["inputs"].as_array().into_iter().flatten() {
+            println!("  {:<14} {} ({}{}): {}", s(&p["name"]), s(&p["kind"]), s(&p["arity"]), if p["optional"] == true { ", optional" } else { "" }, s(&p["about"]));
+        }
+        println!("gives: {}\n\noptions:", s(&d["output"]));
+        for o in d["options"].as_array().into_iter().flatten() {
+            let unit = s(&o["unit"]);
+            println!("  {:<14} {:<18} default {}{}\n      {}", s(&o["name"]), s(&o["type"]), s(&o["default"]), if unit.is_empty() { String::new() } else { format!(" ({unit})") }, s(&o["description"]));
+        }
+        let refs = d["references"].as_array().cloned().unwrap_or_default();
+        if !refs.is_empty() {
+            println!("\nreferences:");
+            for r in refs {
+                println!("  [{}] {}", s(&r["key"]), s(&r["citation"]));
+            }
+        }
+    }
+    Exit::Ok
+}

@@ -1,0 +1,205 @@
+//! The output folder: `results.json`, `tables/results.csv`, `provenance.json`,
+//! `run.json` and the report, written into a temporary folder beside the target and
+//! moved into place only when everything is written.
+//!
+//! **Invariant:** results.json and the CSV hold no timestamps, host names or
+//! durations; they depend only on the recipe, its inputs and the stages, so they are
+//! byte-identical between runs and thread counts. Records keep node order (plan step
+//! order, items sorted), then the order the stage published them.
+
+use crate::graph::Graph;
+use crate::plan::{Expect, Plan, PortPlan};
+use crate::record::{CheckRecord, NodeRecord, NodeStatus, RecipeRecord, ReferenceRecord, RunRecord, StepRecord, RUN_RECORD_SCHEMA_VERSION};
+use crate::scheduler::Outcome;
+use serde_json::{json, Value};
+use stages::Scalar;
+use std::path::{Path, PathBuf};
+
+pub const RESULTS_SCHEMA_VERSION: u32 = 1;
+
+pub fn results_json(plan: &Plan, graph: &Graph, outcomes: &[Outcome]) -> Value {
+    let mut results = Vec::new();
+    let mut failures = Vec::new();
+    for (i, node) in graph.nodes.iter().enumerate() {
+        let step = &plan.steps[node.step];
+        for r in &outcomes[i].results {
+            let value = match &r.value {
+                Scalar::Number(v) => json!(v),
+                Scalar::Text(t) => json!(t),
+            };
+            results.push(json!({ "step": step.id, "item": node.item, "name": r.name, "value": value, "uncertainty": r.uncertainty, "unit": r.unit, "node": node.key }));
+        }
+        match &outcomes[i].status {
+            NodeStatus::Failed { error } => failures.push(json!({ "step": step.id, "item": node.item, "stage": step.stage.info().name, "status": "failed", "cause": error, "node": node.key })),
+            NodeStatus::Skipped { because } => failures.push(json!({ "step": step.id, "item": node.item, "stage": step.stage.info().name, "status": "skipped", "cause": because, "node": node.key })),
+            _ => {}
+        }
+    }
+    json!({ "schema_version": RESULTS_SCHEMA_VERSION, "recipe": plan.recipes.first().map(|r| r.id.clone()), "results": results, "failures": failures })
+}
+
+pub fn results_csv(results: &Value) -> Result<Vec<u8>, String> {
+    let mut w = csv::Writer::from_writer(Vec::new());
+    let e = |e: csv::Error| e.to_string();
+    w.write_record(["step", "item", "name", "value", "uncertainty", "unit", "node"]).map_err(e)?;
+    let empty = Vec::new();
+    for r in results["results"].as_array().unwrap_or(&empty) {
+        let text = |v: &Value| match v {
+            Value::Null => String::new(),
+            Value::String(s) => s.clone(),
+            other => other.to_string(),
+        };
+        w.write_record([text(&r["step"]), text(&r["item"]), text(&r["name"]), text(&r["value"]), text(&r["uncertainty"]), text(&r["unit"]), text(&r["node"])]).map_err(e)?;
+    }
+    w.into_inner().map_err(|e| e.to_string())
+}
+
+/// Evaluates the recipe's checks against the outcomes.
+pub fn checks(plan: &Plan, graph: &Graph, outcomes: &[Outcome]) -> Vec<CheckRecord> {
+    plan.checks
+        .iter()
+        .map(|c| {
+            let expected = match c.expect {
+                Expect::Near { value, tolerance } => format!("{value} ± {tolerance}"),
+                Expect::Within { low, high } => format!("between {low} and {high}"),
+            };
+            let node = graph.nodes.iter().position(|n| n.step == c.step && n.item == c.item);
+            let mut rec = CheckRecord { recipe: plan.recipes[c.recipe].id.clone(), result: c.result.clone(), item: c.item.clone(), expected, found: None, unit: String::new(), passed: false, message: String::new() };
+            let Some(n) = node else {
+                rec.message = "no such node".into();
+                return rec;
+            };
+            match &outcomes[n].status {
+                NodeStatus::Failed { .. } | NodeStatus::Skipped { .. } => {
+                    rec.message = "the step did not finish".into();
+                    return rec;
+                }
+                _ => {}
+            }
+            let Some(r) = outcomes[n].results.iter().find(|r| r.name == c.name) else {
+                let names: Vec<&str> = outcomes[n].results.iter().map(|r| r.name.as_str()).collect();
+                rec.message = format!("the step published no result `{}` (it published: {})", c.name, names.join(", "));
+                return rec;
+            };
+            rec.unit = r.unit.clone();
+            let Some(v) = r.as_number() else {
+                rec.message = "the result is not a number".into();
+                return rec;
+            };
+            rec.found = Some(v);
+            rec.passed = match c.expect {
+                Expect::Near { value, tolerance } => (v - value).abs() <= tolerance,
+                Expect::Within { low, high } => v >= low && v <= high,
+            };
+            if !rec.passed {
+                rec.message = format!("found {v}, expected {}", rec.expected);
+            }
+            rec
+        })
+        .collect()
+}
+
+#[allow(clippy::too_many_arguments)]
+pub fn run_record(plan: &Plan, graph: &Graph, outcomes: &[Outcome], checks: Vec<CheckRecord>, started: String, finished: String, host: &str, cache_dir: &Path) -> RunRecord {
+    let recipes = plan.recipes.iter().map(|r| RecipeRecord { id: r.id.clone(), title: r.title.clone(), description: r.description.clone(), author: r.author.clone(), path: r.shown.clone(), source: r.source.clone(), hash: r.hash.clone() }).collect();
+    let steps = plan
+        .steps
+        .iter()
+        .map(|s| {
+            let info = s.stage.info();
+            let mut inputs = Vec::new();
+            for p in &s.ports {
+                match p {
+                    PortPlan::Missing => {}
+                    PortPlan::One(x) | PortPlan::Gather(x) => inputs.push(plan.src_name(*x)),
+                    PortPlan::Several(v) => inputs.extend(v.iter().map(|x| plan.src_name(*x))),
+                }
+            }
+            StepRecord {
+                id: s.id.clone(),
+                recipe: plan.recipes[s.recipe].id.clone(),
+                stage: info.name.to_string(),
+                stage_version: info.version,
+                options: s.options.clone(),
+                methods: s.methods.clone(),
+                references: info.references.iter().map(|r| ReferenceRecord { key: r.key.to_string(), citation: r.citation.to_string() }).collect(),
+                output_kind: info.output.name().to_string(),
+                inputs,
+                gathers: s.ports.iter().any(|p| matches!(p, PortPlan::Gather(_))),
+            }
+        })
+        .collect();
+    let nodes = graph
+        .nodes
+        .iter()
+        .enumerate()
+        .map(|(i, n)| NodeRecord {
+            step: plan.steps[n.step].id.clone(),
+            recipe: plan.recipes[plan.steps[n.step].recipe].id.clone(),
+            item: n.item.clone(),
+            key: n.key.clone(),
+            status: outcomes[i].status.clone(),
+            files: graph.file_records(n),
+            upstream: n.upstream.iter().map(|&u| graph.nodes[u].key.clone()).collect(),
+            duration_ms: match (&outcomes[i].status, &outcomes[i].meta) {
+                (NodeStatus::Ran, Some(m)) => m.duration_ms,
+                _ => 0.0,
+            },
+        })
+        .collect();
+    RunRecord {
+        schema_version: RUN_RECORD_SCHEMA_VERSION,
+        engine_version: crate::VERSION.to_string(),
+        recipes,
+        parameters: plan.parameters.clone(),
+        steps,
+        nodes,
+        checks,
+        started,
+        finished,
+        host: host.to_string(),
+        cache_dir: cache_dir.display().to_string(),
+    }
+}
+
+/// A fresh temporary folder beside `out`.
+pub fn temp_beside(out: &Path) -> Result<tempfile::TempDir, String> {
+    let parent = out.parent().filter(|p| !p.as_os_str().is_empty()).unwrap_or(Path::new("."));
+    std::fs::create_dir_all(parent).map_err(|e| format!("{}: {e}", parent.display()))?;
+    let name = out.file_name().map(|n| n.to_string_lossy().to_string()).unwrap_or_else(|| "out".into());
+    tempfile::Builder::new().prefix(&format!(".{name}.tmp-")).tempdir_in(parent).map_err(|e| format!("{}: {e}", parent.display()))
+}
+
+pub fn write(dir: &Path, rel: &str, bytes: &[u8]) -> Result<(), String> {
+    let path = dir.join(rel);
+    if let Some(p) = path.parent() {
+        std::fs::create_dir_all(p).map_err(|e| format!("{}: {e}", p.display()))?;
+    }
+    std::fs::write(&path, bytes).map_err(|e| format!("{}: {e}", path.display()))
+}
+
+pub fn json_bytes<T: serde::Serialize>(v: &T) -> Result<Vec<u8>, String> {
+    let mut b = serde_json::to_vec_pretty(v).map_err(|e| e.to_string())?;
+    b.push(b'\n');
+    Ok(b)
+}
+
+/// Moves the finished temporary folder to `out`, replacing what was there.
+pub fn publish(tmp: tempfile::TempDir, out: &Path) -> Result<(), String> {
+    let tmp_path: PathBuf = tmp.keep();
+    let err = |e: std::io::Error| format!("cannot move the output into {}: {e}", out.display());
+    if out.exists() {
+        if !out.is_dir() {
+            return Err(format!("{} exists and is not a folder", out.display()));
+        }
+        let name = out.file_name().map(|n| n.to_string_lossy().to_string()).unwrap_or_default();
+        let old = out.with_file_name(format!(".{name}.old-{}", std::process::id()));
+        let _ = std::fs::remove_dir_all(&old);
+        std::fs::rename(out, &old).map_err(err)?;
+        std::fs::rename(&tmp_path, out).map_err(err)?;
+        let _ = std::fs::remove_dir_all(&old);
+    } else {
+        std::fs::rename(&tmp_path, out).map_err(err)?;
+    }
+    Ok(())
+}

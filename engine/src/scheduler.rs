@@ -1,0 +1,258 @@
+//! The scheduler: runs the graph's nodes on a rayon pool, as many at once as
+//! `--jobs` allows, each as soon as its inputs are done.
+//!
+//! A node whose key is in the cache is loaded (and verified) instead of run. A failed
+//! node marks everything downstream Skipped with the reason; siblings go on unless
+//! `--fail-fast`. Artifacts are held in memory only while a dependent still needs
+//! them, and ready nodes of later steps go first, so a long fan-out streams through
+//! memory instead of piling up.
+//!
+//! **Invariant:** the order nodes finish in never shows in any output: outcomes are
+//! stored by node index and the writers sort.
+
+use crate::cache::{Cache, Lookup, Meta};
+use crate::graph::{Graph, NodeInput, Ref};
+use crate::plan::Plan;
+use crate::record::NodeStatus;
+use crate::timefmt;
+use stages::stage::{Inputs, PortValue};
+use stages::{Artifact, InputFile, Note, Record, Value};
+use std::collections::{BTreeSet, HashMap};
+use std::sync::mpsc;
+use std::sync::Arc;
+use std::time::Instant;
+
+/// What happened to one node.
+#[derive(Debug, Clone)]
+pub struct Outcome {
+    pub status: NodeStatus,
+    /// How the artifact was made (this run or an earlier one).
+    pub meta: Option<Meta>,
+    pub results: Vec<Record>,
+    pub notes: Vec<Note>,
+    /// A cache entry was found corrupt and the node recomputed.
+    pub corrupt: Option<String>,
+}
+
+impl Outcome {
+    fn pending() -> Self {
+        Outcome { status: NodeStatus::Skipped { because: "not reached".into() }, meta: None, results: Vec::new(), notes: Vec::new(), corrupt: None }
+    }
+}
+
+pub struct RunOptions {
+    pub jobs: usize,
+    pub fail_fast: bool,
+    pub host: String,
+}
+
+/// Told about every finished node, in finishing order.
+pub trait Progress: Sync {
+    fn finished(&self, label: &str, status: &NodeStatus, ms: f64);
+}
+
+enum Done {
+    Ok { artifact: Arc<Artifact>, meta: Meta, cached: bool, corrupt: Option<String> },
+    Failed { error: String, corrupt: Option<String> },
+}
+
+pub fn node_label(plan: &Plan, graph: &Graph, n: usize) -> String {
+    let node = &graph.nodes[n];
+    match &node.item {
+        Some(i) => format!("{} [{i}]", plan.steps[node.step].id),
+        None => plan.steps[node.step].id.clone(),
+    }
+}
+
+/// Runs every node; returns one outcome per node (duplicates copy their original's).
+pub fn run(plan: &Plan, graph: &Graph, cache: &Cache, opts: &RunOptions, progress: &dyn Progress) -> Result<Vec<Outcome>, String> {
+    let n = graph.nodes.len();
+    let canonical: Vec<usize> = (0..n).filter(|&i| graph.nodes[i].same_as.is_none()).collect();
+    let mut waiting: Vec<usize> = vec![0; n];
+    let mut dependents: Vec<Vec<usize>> = vec![Vec::new(); n];
+    for &i in &canonical {
+        waiting[i] = graph.nodes[i].upstream.len();
+        for &u in &graph.nodes[i].upstream {
+            dependents[u].push(i);
+        }
+    }
+    let mut refcount: Vec<usize> = dependents.iter().map(Vec::len).collect();
+    let mut outcomes: Vec<Outcome> = (0..n).map(|_| Outcome::pending()).collect();
+    let mut memory: HashMap<usize, Arc<Artifact>> = HashMap::new();
+    // Ready nodes, later steps first, then by index.
+    let mut ready: BTreeSet<(std::cmp::Reverse<usize>, usize)> = canonical.iter().filter(|&&i| waiting[i] == 0).map(|&i| (std::cmp::Reverse(graph.nodes[i].step), i)).collect();
+    let pool = rayon::ThreadPoolBuilder::new().num_threads(opts.jobs.max(1)).build().map_err(|e| format!("cannot start worker threads: {e}"))?;
+    let (tx, rx) = mpsc::channel::<(usize, Done, f64)>();
+    let limit = opts.jobs.max(1) + 1;
+    let mut in_flight = 0usize;
+    let mut stopped = false;
+    let mut remaining = canonical.len();
+    pool.in_place_scope(|scope| {
+        loop {
+            while !stopped && in_flight < limit {
+                let Some(&first) = ready.iter().next() else { break };
+                ready.remove(&first);
+                let i = first.1;
+                let mut inputs: HashMap<usize, Option<Arc<Artifact>>> = HashMap::new();
+                for &u in &graph.nodes[i].upstream {
+                    inputs.insert(u, memory.get(&u).cloned());
+                }
+                let tx = tx.clone();
+                in_flight += 1;
+                scope.spawn(move |_| {
+                    let t0 = Instant::now();
+                    let done = work(plan, graph, cache, opts, i, inputs);
+                    let ms = t0.elapsed().as_secs_f64() * 1000.0;
+                    let _ = tx.send((i, done, ms));
+                });
+            }
+            if in_flight == 0 {
+                break;
+            }
+            let Ok((i, done, ms)) = rx.recv() else { break };
+            in_flight -= 1;
+            remaining -= 1;
+            let label = node_label(plan, graph, i);
+            match done {
+                Done::Ok { artifact, meta, cached, corrupt } => {
+                    let status = if cached { NodeStatus::Cached } else { NodeStatus::Ran };
+                    progress.finished(&label, &status, ms);
+                    outcomes[i] = Outcome { status, meta: Some(meta), results: artifact.results.clone(), notes: artifact.notes.clone(), corrupt };
+                    if refcount[i] > 0 {
+                        memory.insert(i, artifact);
+                    }
+                    for &d in &dependents[i] {
+                        waiting[d] -= 1;
+                        if waiting[d] == 0 && matches!(outcomes[d].status, NodeStatus::Skipped { ref because } if because == "not reached") {
+                            ready.insert((std::cmp::Reverse(graph.nodes[d].step), d));
+                        }
+                    }
+                }
+                Done::Failed { error, corrupt } => {
+                    let status = NodeStatus::Failed { error: error.clone() };
+                    progress.finished(&label, &status, ms);
+                    outcomes[i] = Outcome { status, corrupt, ..Outcome::pending() };
+                    // Everything downstream is skipped.
+                    let mut stack = dependents[i].clone();
+                    while let Some(d) = stack.pop() {
+                        if matches!(outcomes[d].status, NodeStatus::Skipped { ref because } if because == "not reached") {
+                            outcomes[d].status = NodeStatus::Skipped { because: format!("{label} failed") };
+                            progress.finished(&node_label(plan, graph, d), &outcomes[d].status, 0.0);
+                            remaining -= 1;
+                            ready.retain(|(_, x)| *x != d);
+                            stack.extend(dependents[d].iter().copied());
+                        }
+                    }
+                    if opts.fail_fast {
+                        stopped = true;
+                    }
+                }
+            }
+            for &u in &graph.nodes[i].upstream {
+                refcount[u] = refcount[u].saturating_sub(1);
+                if refcount[u] == 0 {
+                    memory.remove(&u);
+                }
+            }
+            if remaining == 0 && in_flight == 0 {
+                break;
+            }
+        }
+    });
+    for o in outcomes.iter_mut() {
+        if matches!(&o.status, NodeStatus::Skipped { because } if because == "not reached") {
+            o.status = NodeStatus::Skipped { because: "stopped after the first failure (--fail-fast)".into() };
+        }
+    }
+    for i in 0..n {
+        if let Some(orig) = graph.nodes[i].same_as {
+            outcomes[i] = outcomes[orig].clone();
+        }
+    }
+    Ok(outcomes)
+}
+
+/// Loads or runs one node on a worker thread.
+fn work(plan: &Plan, graph: &Graph, cache: &Cache, opts: &RunOptions, i: usize, mut held: HashMap<usize, Option<Arc<Artifact>>>) -> Done {
+    let node = &graph.nodes[i];
+    let step = &plan.steps[node.step];
+    let info = step.stage.info();
+    let mut corrupt = None;
+    match cache.load(&node.key) {
+        Lookup::Found(b) => {
+            let (meta, artifact) = *b;
+            return Done::Ok { artifact: Arc::new(artifact), meta, cached: true, corrupt: None };
+        }
+        Lookup::Corrupt(reason) => corrupt = Some(reason),
+        Lookup::Missing => {}
+    }
+    let fail = |error: String, corrupt: Option<String>| Done::Failed { error, corrupt };
+    // Upstream artifacts not held in memory are read back from the cache.
+    for (u, slot) in held.iter_mut() {
+        if slot.is_none() {
+            match cache.load(&graph.nodes[*u].key) {
+                Lookup::Found(b) => *slot = Some(Arc::new(b.1)),
+                _ => return fail(format!("the artifact of {} is no longer in the cache", node_label(plan, graph, *u)), corrupt),
+            }
+        }
+    }
+    let mut files: HashMap<usize, Artifact> = HashMap::new();
+    for &f in &node.files {
+        let entry = &graph.files[f];
+        let bytes = match std::fs::read(&entry.path) {
+            Ok(b) => b,
+            Err(e) => return fail(format!("cannot read {}: {e}", entry.shown), corrupt),
+        };
+        if blake3::hash(&bytes).to_hex().as_str() != entry.hash {
+            return fail(format!("{} changed while the run was being planned; run again", entry.shown), corrupt);
+        }
+        files.insert(f, Artifact::new(Value::File(InputFile { name: entry.shown.clone(), bytes })));
+    }
+    let get = |r: Ref| -> Option<&Artifact> {
+        match r {
+            Ref::File(f) => files.get(&f),
+            Ref::Node(n) => held.get(&graph.nodes[n].same_as.unwrap_or(n)).and_then(|a| a.as_deref()),
+        }
+    };
+    let mut ports = Vec::new();
+    for inp in &node.inputs {
+        ports.push(match inp {
+            NodeInput::Missing => PortValue::Missing,
+            NodeInput::One(r) => match get(*r) {
+                Some(a) => PortValue::One(a),
+                None => return fail("an input is missing".into(), corrupt),
+            },
+            NodeInput::Many(v) => {
+                let mut many = Vec::new();
+                for (name, r) in v {
+                    match get(*r) {
+                        Some(a) => many.push((name.as_str(), a)),
+                        None => return fail("an input is missing".into(), corrupt),
+                    }
+                }
+                PortValue::Many(many)
+            }
+        });
+    }
+    let inputs = Inputs { item: node.item.as_deref(), ports };
+    let started = timefmt::now_rfc3339();
+    let t0 = Instant::now();
+    let result = std::panic::catch_unwind(std::panic::AssertUnwindSafe(|| step.stage.run(&inputs, &step.options)));
+    let duration_ms = t0.elapsed().as_secs_f64() * 1000.0;
+    let artifact = match result {
+        Ok(Ok(a)) => a,
+        Ok(Err(e)) => return fail(e.to_string(), corrupt),
+        Err(p) => {
+            let msg = p.downcast_ref::<&str>().map(|s| s.to_string()).or_else(|| p.downcast_ref::<String>().cloned()).unwrap_or_default();
+            return fail(format!("stage {} panicked: {msg}", info.name), corrupt);
+        }
+    };
+    if let Some(r) = artifact.results.iter().find(|r| r.as_number().is_some_and(|v| !v.is_finite()) || r.uncertainty.is_some_and(|u| !u.is_finite())) {
+        return fail(format!("stage {} published a non-finite value for `{}`", info.name, r.name), corrupt);
+    }
+    let meta = Meta { stage: info.name.to_string(), stage_version: info.version, engine_version: crate::VERSION.to_string(), started, duration_ms, host: opts.host.clone() };
+    if let Err(e) = cache.store(&node.key, &meta, &artifact) {
+        return fail(format!("cannot write the cache: {e}"), corrupt);
+    }
+    Done::Ok { artifact: Arc::new(artifact), meta, cached: false, corrupt }
+}
