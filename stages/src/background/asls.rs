@@ -25,7 +25,7 @@ pub struct Options {
     /// Most re-weighting iterations.
     pub max_iterations: usize,
     /// Compute over x within [low, high]; the whole spectrum when absent.
-    #[schemars(extend("x-unit" = "x"))]
+    #[schemars(extend("x-unit" = "x-axis unit"))]
     pub range: Option<[f64; 2]>,
 }
 

@@ -12,7 +12,7 @@ use serde::{Deserialize, Serialize};
 #[serde(deny_unknown_fields, default)]
 pub struct Options {
     /// Compute over x within [low, high]; the whole spectrum when absent.
-    #[schemars(extend("x-unit" = "x"))]
+    #[schemars(extend("x-unit" = "x-axis unit"))]
     pub range: Option<[f64; 2]>,
     /// Points averaged at each end (x and y both averaged).
     #[schemars(extend("x-unit" = "points"))]

@@ -21,7 +21,7 @@ pub struct Options {
     /// Polynomial order, 0–10.
     pub order: usize,
     /// Compute over x within [low, high]; the whole spectrum when absent.
-    #[schemars(extend("x-unit" = "x"))]
+    #[schemars(extend("x-unit" = "x-axis unit"))]
     pub range: Option<[f64; 2]>,
     /// Convergence: largest change of the fit, as a fraction of the data's y range.
     pub tolerance: f64,

@@ -32,7 +32,7 @@ pub struct Options {
     pub order: usize,
     /// When given, each measured value is refined as the maximum within this
     /// half-width of it (parabolic refinement), in x units.
-    #[schemars(extend("x-unit" = "x"))]
+    #[schemars(extend("x-unit" = "x-axis unit"))]
     pub refine_window: Option<f64>,
 }
 

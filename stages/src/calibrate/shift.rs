@@ -30,10 +30,10 @@ pub struct Options {
     /// How the measured position is found.
     pub locate: Locate,
     /// Expected (or, with `locate: given`, measured) position of the feature, in x units.
-    #[schemars(extend("x-unit" = "x"))]
+    #[schemars(extend("x-unit" = "x-axis unit"))]
     pub near: f64,
     /// Half-width of the search window around `near`, in x units.
-    #[schemars(extend("x-unit" = "x"))]
+    #[schemars(extend("x-unit" = "x-axis unit"))]
     pub window: f64,
     /// Where the feature belongs: a number in x units, or a reference name
     /// (`adventitious_c1s`, `au_4f7_2`, `tms_1h`, `chcl3_in_cdcl3_1h`, ...).

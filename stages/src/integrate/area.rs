@@ -43,7 +43,7 @@ pub enum BackgroundUse {
 #[serde(deny_unknown_fields, default)]
 pub struct Options {
     /// Integrate over x within [low, high]; the whole spectrum when absent.
-    #[schemars(extend("x-unit" = "x"))]
+    #[schemars(extend("x-unit" = "x-axis unit"))]
     pub range: Option<[f64; 2]>,
     /// Quadrature rule.
     pub rule: Rule,

@@ -25,16 +25,16 @@ use serde::{Deserialize, Serialize};
 #[serde(deny_unknown_fields, default)]
 pub struct Options {
     /// Smallest prominence kept, in y units.
-    #[schemars(extend("x-unit" = "y"))]
+    #[schemars(extend("x-unit" = "y-axis unit"))]
     pub min_prominence: f64,
     /// Smallest height kept, in y units; no limit when absent.
-    #[schemars(extend("x-unit" = "y"))]
+    #[schemars(extend("x-unit" = "y-axis unit"))]
     pub min_height: Option<f64>,
     /// Smallest FWHM (at half prominence) kept, in x units.
-    #[schemars(extend("x-unit" = "x"))]
+    #[schemars(extend("x-unit" = "x-axis unit"))]
     pub min_width: f64,
     /// Smallest separation between peaks, in x units: of two closer peaks the lower goes.
-    #[schemars(extend("x-unit" = "x"))]
+    #[schemars(extend("x-unit" = "x-axis unit"))]
     pub min_separation: f64,
     /// Use the background-subtracted data (y − background curve) when a background is present.
     pub subtract_background: bool,

@@ -10,7 +10,7 @@ use serde::{Deserialize, Serialize};
 #[serde(deny_unknown_fields, default)]
 pub struct Options {
     /// Keep x within [low, high], inclusive, in x units. Required.
-    #[schemars(extend("x-unit" = "x"))]
+    #[schemars(extend("x-unit" = "x-axis unit"))]
     pub range: Option<[f64; 2]>,
 }
 

@@ -28,13 +28,13 @@ pub struct Options {
     /// What y is divided by.
     pub by: NormalizeBy,
     /// For `max` and `area`: only x within [low, high]; the whole spectrum when absent.
-    #[schemars(extend("x-unit" = "x"))]
+    #[schemars(extend("x-unit" = "x-axis unit"))]
     pub range: Option<[f64; 2]>,
     /// For `peak`: expected position of the reference peak, in x units.
-    #[schemars(extend("x-unit" = "x"))]
+    #[schemars(extend("x-unit" = "x-axis unit"))]
     pub near: Option<f64>,
     /// For `peak`: half-width of the search window, in x units.
-    #[schemars(extend("x-unit" = "x"))]
+    #[schemars(extend("x-unit" = "x-axis unit"))]
     pub window: f64,
 }
 

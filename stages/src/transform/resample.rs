@@ -15,13 +15,13 @@ use serde::{Deserialize, Serialize};
 #[serde(deny_unknown_fields, default)]
 pub struct Options {
     /// First grid point, in x units (with `stop` and `step`; not with a grid port).
-    #[schemars(extend("x-unit" = "x"))]
+    #[schemars(extend("x-unit" = "x-axis unit"))]
     pub start: Option<f64>,
     /// Last grid point (included when it falls on the grid), in x units.
-    #[schemars(extend("x-unit" = "x"))]
+    #[schemars(extend("x-unit" = "x-axis unit"))]
     pub stop: Option<f64>,
     /// Grid spacing, in x units; its sign is taken from start → stop.
-    #[schemars(extend("x-unit" = "x"))]
+    #[schemars(extend("x-unit" = "x-axis unit"))]
     pub step: Option<f64>,
 }
 
