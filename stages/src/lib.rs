@@ -16,6 +16,16 @@ pub mod import;
 pub mod measure;
 pub mod smooth;
 
+// spectral core
+pub mod background;
+pub mod calibrate;
+pub mod convert;
+pub mod integrate;
+pub mod peaks;
+pub mod reference;
+pub mod transform;
+pub mod units;
+
 pub use registry::{find, CATALOG};
 pub use stage::{Stage, StageError, TypedStage};
 pub use value::*;

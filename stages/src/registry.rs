@@ -13,6 +13,35 @@ pub static CATALOG: &[&dyn Stage] = &[
     &crate::measure::maximum::Maximum,
     // gather
     &crate::gather::table::GatherTable,
+    // spectral core: import
+    &crate::import::jcamp::ImportJcamp,
+    // spectral core: convert
+    &crate::convert::axis::ConvertAxis,
+    &crate::convert::absorbance::ConvertAbsorbance,
+    // spectral core: calibrate
+    &crate::calibrate::shift::CalibrateShift,
+    &crate::calibrate::polynomial::CalibratePolynomial,
+    &crate::calibrate::binding_energy::CalibrateBindingEnergy,
+    // spectral core: transform
+    &crate::transform::crop::Crop,
+    &crate::transform::resample::Resample,
+    &crate::transform::normalize::Normalize,
+    &crate::transform::subtract::Subtract,
+    &crate::transform::subtract::SubtractBackground,
+    &crate::transform::average::GatherAverage,
+    // spectral core: smooth
+    &crate::smooth::savitzky_golay::SavitzkyGolay,
+    &crate::smooth::gaussian::GaussianSmooth,
+    // spectral core: background
+    &crate::background::polynomial::PolynomialBackground,
+    &crate::background::linear::LinearBackground,
+    &crate::background::asls::AslsBackground,
+    &crate::background::shirley::ShirleyBackground,
+    &crate::background::tougaard::TougaardBackground,
+    // spectral core: peaks
+    &crate::peaks::find::FindPeaks,
+    // spectral core: integrate
+    &crate::integrate::area::IntegrateArea,
 ];
 
 /// The stage with this exact name.

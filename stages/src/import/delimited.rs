@@ -4,6 +4,11 @@
 //! Delimiter and decimal mark are detected (or given); comment lines are skipped;
 //! axis quantity and unit are taken from the header ("Energy (eV)", "Wavelength [nm]",
 //! "binding_energy_eV") unless the options name them. Descending x is kept as given.
+//! Free-text lines above the header are kept as metadata (`preamble`). A column headed
+//! `sigma` (or `error`, `uncertainty`, `std`) gives per-point standard uncertainties;
+//! for count data without one, Poisson σ = √counts with a floor of 1 count is attached
+//! (common practice for counting statistics). [`parse_all`] returns one spectrum per
+//! y column.
 //! Method: plain parsing, no published source needed (common practice).
 
 use crate::stage::{OptionError, Port, StageError, StageInfo, TypedStage};
@@ -47,7 +52,8 @@ pub struct Options {
     pub x: ColumnRef,
     /// Column holding y: header name or 1-based position.
     pub y: ColumnRef,
-    /// Optional column holding the standard uncertainty of y.
+    /// Optional column holding the standard uncertainty of y; when absent a column
+    /// headed `sigma`, `error`, `uncertainty` or `std` is used if there is one.
     pub sigma: Option<ColumnRef>,
     /// Field delimiter.
     pub delimiter: Delimiter,
@@ -63,6 +69,21 @@ pub struct Options {
     pub y_quantity: Option<String>,
     /// Unit of y (e.g. `counts`); taken from the header when not given.
     pub y_unit: Option<String>,
+    /// Per-point σ = √counts (floor 1 count): `auto` applies it when the y unit is
+    /// counts and the file gives no sigma column.
+    pub poisson_sigma: PoissonSigma,
+}
+
+/// Whether to attach Poisson standard uncertainties.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize, Deserialize, JsonSchema)]
+#[serde(rename_all = "snake_case")]
+pub enum PoissonSigma {
+    /// When y is in counts and no sigma column is read.
+    Auto,
+    /// Always (y must be counts ≥ 0).
+    On,
+    /// Never.
+    Off,
 }
 
 impl Default for Options {
@@ -78,6 +99,7 @@ impl Default for Options {
             x_unit: None,
             y_quantity: None,
             y_unit: None,
+            poisson_sigma: PoissonSigma::Auto,
         }
     }
 }
@@ -90,7 +112,7 @@ impl TypedStage for ImportDelimited {
     type Options = Options;
     const INFO: &'static StageInfo = &StageInfo {
         name: "import.delimited",
-        version: 1,
+        version: 2,
         summary: "Read a spectrum from delimited text (CSV, TSV, whitespace), with header and unit detection",
         inputs: INPUTS,
         output: Kind::Spectrum,
@@ -116,9 +138,15 @@ impl TypedStage for ImportDelimited {
             ColumnRef::Name(n) => format!("column '{n}'"),
         };
         format!(
-            "Spectra were read from delimited text exports (x from {}, y from {}).",
+            "Spectra were read from delimited text exports (x from {}, y from {}, {}).",
             col(&o.x),
-            col(&o.y)
+            col(&o.y),
+            match (&o.sigma, o.poisson_sigma) {
+                (_, PoissonSigma::On) => "with Poisson standard uncertainties σ = √counts (floor 1 count)".to_string(),
+                (Some(c), _) => format!("with standard uncertainties from {}", col(c)),
+                (None, PoissonSigma::Auto) => "with standard uncertainties from a sigma column when present, otherwise σ = √counts (floor 1 count) for count data".to_string(),
+                (None, PoissonSigma::Off) => "with standard uncertainties only from a sigma column when present".to_string(),
+            }
         )
     }
 
@@ -142,8 +170,20 @@ impl TypedStage for ImportDelimited {
     }
 }
 
-/// Parses delimited text into a spectrum. `name` is used in error messages only.
-pub fn parse(name: &str, bytes: &[u8], o: &Options) -> Result<Spectrum, StageError> {
+/// The text of a delimited file split into a header and numeric rows.
+struct Grid {
+    /// Header fields (empty when the file has no header line).
+    header: Vec<String>,
+    /// 1-based line of the header (or of the first data line).
+    header_line: usize,
+    /// Lines of free text above the header (title, instrument...), kept as metadata.
+    preamble: Vec<String>,
+    /// (1-based line number, fields) of every data line.
+    rows: Vec<(usize, Vec<String>)>,
+    decimal_comma: bool,
+}
+
+fn read_grid(name: &str, bytes: &[u8], o: &Options) -> Result<Grid, StageError> {
     let text = std::str::from_utf8(bytes).map_err(|e| {
         let line = bytes[..e.valid_up_to()]
             .iter()
@@ -169,8 +209,20 @@ pub fn parse(name: &str, bytes: &[u8], o: &Options) -> Result<Spectrum, StageErr
             "no data lines (file is empty or all comments)",
         ));
     }
+    // The first line whose first field reads as a number starts the data; the line
+    // just above it is the header; anything above that is a preamble.
+    let numeric_start = |l: &str| {
+        let t = l.trim_start().trim_start_matches('"');
+        t.starts_with(|c: char| c.is_ascii_digit() || c == '-' || c == '+' || c == '.')
+    };
+    let data_from = lines
+        .iter()
+        .position(|(_, l)| numeric_start(l))
+        .unwrap_or(lines.len());
+    let head_from = data_from.saturating_sub(1);
+    let body = &lines[head_from..];
     let delimiter = match o.delimiter {
-        Delimiter::Auto => detect_delimiter(&lines),
+        Delimiter::Auto => detect_delimiter(body),
         d => d,
     };
     let decimal_comma = match o.decimal {
@@ -178,8 +230,8 @@ pub fn parse(name: &str, bytes: &[u8], o: &Options) -> Result<Spectrum, StageErr
         DecimalMark::Point => false,
         DecimalMark::Auto => {
             delimiter != Delimiter::Comma
-                && lines.iter().skip(1).take(20).any(|(_, l)| l.contains(','))
-                && !lines.iter().skip(1).take(20).any(|(_, l)| l.contains('.'))
+                && body.iter().skip(1).take(20).any(|(_, l)| l.contains(','))
+                && !body.iter().skip(1).take(20).any(|(_, l)| l.contains('.'))
         }
     };
     let fields = |l: &str| -> Vec<String> {
@@ -194,91 +246,196 @@ pub fn parse(name: &str, bytes: &[u8], o: &Options) -> Result<Spectrum, StageErr
             .map(|p| p.trim().trim_matches('"').to_string())
             .collect()
     };
-    let number = |s: &str| -> Option<f64> {
-        let v: f64 = if decimal_comma {
-            s.replace(',', ".").parse().ok()?
-        } else {
-            s.parse().ok()?
-        };
-        Some(v)
-    };
-    let first = fields(lines[0].1);
-    let has_header = first.iter().any(|f| number(f).is_none());
+    let first = fields(body[0].1);
+    let has_header = first.iter().any(|f| parse_number(f, decimal_comma).is_none());
     let header: Vec<String> = if has_header { first } else { Vec::new() };
-    let resolve = |c: &ColumnRef, key: &str| -> Result<usize, StageError> {
+    let preamble = lines[..head_from]
+        .iter()
+        .map(|(_, l)| l.trim().to_string())
+        .collect();
+    let rows = body
+        .iter()
+        .skip(usize::from(has_header))
+        .map(|(n, l)| (*n, fields(l)))
+        .collect();
+    Ok(Grid {
+        header,
+        header_line: body[0].0,
+        preamble,
+        rows,
+        decimal_comma,
+    })
+}
+
+fn parse_number(s: &str, decimal_comma: bool) -> Option<f64> {
+    if decimal_comma {
+        s.replace(',', ".").parse().ok()
+    } else {
+        s.parse().ok()
+    }
+}
+
+impl Grid {
+    fn resolve(&self, name: &str, c: &ColumnRef, key: &str) -> Result<usize, StageError> {
         match c {
-            ColumnRef::Position(p) => Ok(p - 1),
-            ColumnRef::Name(n) => header
+            ColumnRef::Position(p) => Ok(p.saturating_sub(1)),
+            ColumnRef::Name(n) => self
+                .header
                 .iter()
                 .position(|h| h == n || h.eq_ignore_ascii_case(n))
                 .ok_or_else(|| {
                     StageError::data(
                         name,
-                        Some(lines[0].0),
+                        Some(self.header_line),
                         format!(
                             "no column named '{n}' for {key}; the header has: {}",
-                            if header.is_empty() {
+                            if self.header.is_empty() {
                                 "(no header line)".to_string()
                             } else {
-                                header.join(", ")
+                                self.header.join(", ")
                             }
                         ),
                     )
                 }),
         }
-    };
-    let xi = resolve(&o.x, "x")?;
-    let yi = resolve(&o.y, "y")?;
-    let si = o.sigma.as_ref().map(|c| resolve(c, "sigma")).transpose()?;
-    let needed = xi.max(yi).max(si.unwrap_or(0)) + 1;
-    let (mut x, mut y, mut sigma) = (Vec::new(), Vec::new(), Vec::new());
-    for (line_no, line) in lines.iter().skip(usize::from(has_header)) {
-        let f = fields(line);
-        if f.len() < needed {
-            return Err(StageError::data(
-                name,
-                Some(*line_no),
-                format!("expected at least {needed} fields, found {}", f.len()),
-            ));
-        }
-        let get = |i: usize, what: &str| -> Result<f64, StageError> {
-            let v = number(&f[i]).ok_or_else(|| {
+    }
+
+    /// A column named like an uncertainty (`sigma`, `error`, `uncertainty`, `std`...).
+    fn sigma_column(&self) -> Option<usize> {
+        self.header.iter().position(|h| {
+            let (q, _) = split_quantity_unit(h);
+            matches!(
+                q.to_ascii_lowercase().as_str(),
+                "sigma" | "error" | "uncertainty" | "std" | "stdev" | "stderr" | "u"
+            )
+        })
+    }
+
+    /// Reads one numeric column; `what` names it in error messages.
+    fn column(&self, name: &str, i: usize, what: &str) -> Result<Vec<f64>, StageError> {
+        let mut out = Vec::with_capacity(self.rows.len());
+        for (line_no, f) in &self.rows {
+            let cell = f.get(i).ok_or_else(|| {
                 StageError::data(
                     name,
                     Some(*line_no),
-                    format!("{what} value '{}' (field {}) is not a number", f[i], i + 1),
+                    format!("expected at least {} fields, found {}", i + 1, f.len()),
+                )
+            })?;
+            let v = parse_number(cell, self.decimal_comma).ok_or_else(|| {
+                StageError::data(
+                    name,
+                    Some(*line_no),
+                    format!("{what} value '{cell}' (field {}) is not a number", i + 1),
                 )
             })?;
             if !v.is_finite() {
                 return Err(StageError::data(
                     name,
                     Some(*line_no),
-                    format!("{what} value '{}' (field {}) is not finite", f[i], i + 1),
+                    format!("{what} value '{cell}' (field {}) is not finite", i + 1),
                 ));
             }
-            Ok(v)
-        };
-        x.push(get(xi, "x")?);
-        y.push(get(yi, "y")?);
-        if let Some(si) = si {
-            sigma.push(get(si, "sigma")?);
+            out.push(v);
         }
+        Ok(out)
     }
-    if x.len() < 2 {
+
+    fn width(&self) -> usize {
+        self.rows
+            .iter()
+            .map(|(_, f)| f.len())
+            .min()
+            .unwrap_or(0)
+            .max(self.header.len().min(self.rows.first().map_or(0, |r| r.1.len())))
+    }
+}
+
+/// Whether an axis holds raw counts (Poisson statistics apply).
+pub fn is_counts(axis: &Axis) -> bool {
+    let u = axis.unit.trim().to_ascii_lowercase();
+    let q = axis.quantity.trim().to_ascii_lowercase();
+    u == "counts" || u == "count" || u == "cts" || (u.is_empty() && (q == "counts" || q == "cts"))
+}
+
+/// Poisson standard uncertainty of counts: √max(y, 1) (floor at 1 count).
+pub fn poisson_sigma(y: &[f64]) -> Vec<f64> {
+    y.iter().map(|&v| v.max(1.0).sqrt()).collect()
+}
+
+/// Parses delimited text into a spectrum (the y column the options name).
+/// `name` is used in error messages only.
+pub fn parse(name: &str, bytes: &[u8], o: &Options) -> Result<Spectrum, StageError> {
+    let g = read_grid(name, bytes, o)?;
+    let yi = g.resolve(name, &o.y, "y")?;
+    build(name, &g, o, yi)
+}
+
+/// Parses delimited text into one spectrum per y column: every column except x and
+/// sigma, in file order.
+pub fn parse_all(name: &str, bytes: &[u8], o: &Options) -> Result<Vec<Spectrum>, StageError> {
+    let g = read_grid(name, bytes, o)?;
+    let xi = g.resolve(name, &o.x, "x")?;
+    let si = match &o.sigma {
+        Some(c) => Some(g.resolve(name, c, "sigma")?),
+        None => g.sigma_column(),
+    };
+    (0..g.width())
+        .filter(|&i| i != xi && Some(i) != si)
+        .map(|yi| build(name, &g, o, yi))
+        .collect()
+}
+
+fn build(name: &str, g: &Grid, o: &Options, yi: usize) -> Result<Spectrum, StageError> {
+    let xi = g.resolve(name, &o.x, "x")?;
+    let si = match &o.sigma {
+        Some(c) => Some(g.resolve(name, c, "sigma")?),
+        None => g.sigma_column().filter(|&i| i != xi && i != yi),
+    };
+    if g.rows.len() < 2 {
         return Err(StageError::data(
             name,
             None,
-            format!("a spectrum needs at least 2 data points, found {}", x.len()),
+            format!("a spectrum needs at least 2 data points, found {}", g.rows.len()),
         ));
     }
-    let (hx_q, hx_u) = header
+    // Check every row is wide enough before reading columns, so a short row is
+    // reported as such rather than as a missing value.
+    let needed = xi.max(yi).max(si.unwrap_or(0)) + 1;
+    if let Some((line_no, f)) = g.rows.iter().find(|(_, f)| f.len() < needed) {
+        return Err(StageError::data(
+            name,
+            Some(*line_no),
+            format!("expected at least {needed} fields, found {}", f.len()),
+        ));
+    }
+    let x = g.column(name, xi, "x")?;
+    let y = g.column(name, yi, "y")?;
+    let sigma = si.map(|i| g.column(name, i, "sigma")).transpose()?;
+    if let Some(s) = &sigma {
+        if let Some(k) = s.iter().position(|&v| v < 0.0) {
+            return Err(StageError::data(
+                name,
+                Some(g.rows[k].0),
+                format!("sigma value {} is negative", s[k]),
+            ));
+        }
+    }
+    let (hx_q, hx_u) = g
+        .header
         .get(xi)
         .map(|h| split_quantity_unit(h))
         .unwrap_or_default();
-    let (hy_q, hy_u) = header
+    let (mut hy_q, mut hy_u) = g
+        .header
         .get(yi)
         .map(|h| split_quantity_unit(h))
         .unwrap_or_default();
+    // "Counts" alone names the unit: the quantity is an intensity.
+    if hy_u.is_empty() && ["counts", "cts", "cps"].contains(&hy_q.to_ascii_lowercase().as_str()) {
+        hy_u = hy_q.to_ascii_lowercase();
+        hy_q = "intensity".into();
+    }
     let pick = |given: &Option<String>, from_header: String, fallback: &str| {
         given.clone().unwrap_or(if from_header.is_empty() {
             fallback.to_string()
@@ -291,13 +448,34 @@ pub fn parse(name: &str, bytes: &[u8], o: &Options) -> Result<Spectrum, StageErr
         pick(&o.y_quantity, hy_q, "intensity"),
         pick(&o.y_unit, hy_u, ""),
     );
+    let poisson = match o.poisson_sigma {
+        PoissonSigma::Auto => sigma.is_none() && is_counts(&y_axis),
+        PoissonSigma::On => true,
+        PoissonSigma::Off => false,
+    };
     let mut s = Spectrum::new(x, y, x_axis, y_axis);
-    if si.is_some() {
-        s.sigma = Some(sigma);
+    if poisson {
+        if let Some(k) = s.y.iter().position(|&v| v < 0.0) {
+            return Err(StageError::data(
+                name,
+                Some(g.rows[k].0),
+                format!("Poisson sigma needs counts ≥ 0, found {}", s.y[k]),
+            ));
+        }
+        s.sigma = Some(poisson_sigma(&s.y));
+        s.metadata.insert("sigma".into(), "poisson".into());
+    } else if let Some(sig) = sigma {
+        s.sigma = Some(sig);
+        if let Some(h) = si.and_then(|i| g.header.get(i)) {
+            s.metadata.insert("sigma".into(), format!("column '{h}'"));
+        }
     }
     s.metadata.insert("source".into(), name.to_string());
-    if let Some(h) = header.get(yi) {
+    if let Some(h) = g.header.get(yi) {
         s.metadata.insert("column".into(), h.clone());
+    }
+    if !g.preamble.is_empty() {
+        s.metadata.insert("preamble".into(), g.preamble.join("\n"));
     }
     Ok(s)
 }
@@ -365,7 +543,8 @@ mod tests {
         assert_eq!(s.x, vec![1.5, 2.5]);
         assert_eq!(s.y, vec![10.0, 20.0]);
         assert_eq!(s.x_axis, Axis::new("Energy", "eV"));
-        assert_eq!(s.y_axis.quantity, "Counts");
+        // A bare "Counts" header names the unit of an intensity.
+        assert_eq!(s.y_axis, Axis::new("intensity", "counts"));
     }
 
     #[test]
@@ -422,5 +601,49 @@ mod tests {
             e.to_string(),
             "h.csv:1: no column named 'cnts' for y; the header has: x, counts"
         );
+    }
+}
+
+#[cfg(test)]
+mod more_tests {
+    use super::*;
+
+    #[test]
+    fn several_y_columns_and_preamble() {
+        let text = b"Sample A, run 3\nwavelength (nm)\tA1\tA2\tA3\n400\t0.1\t0.2\t0.3\n401\t0.4\t0.5\t0.6\n";
+        let all = parse_all("m.tsv", text, &Options::default()).unwrap();
+        assert_eq!(all.len(), 3);
+        assert_eq!(all[2].y, vec![0.3, 0.6]);
+        assert_eq!(all[0].x_axis, Axis::new("wavelength", "nm"));
+        assert_eq!(all[1].metadata["preamble"], "Sample A, run 3");
+        let o = Options {
+            y: ColumnRef::Name("A2".into()),
+            ..Options::default()
+        };
+        assert_eq!(parse("m.tsv", text, &o).unwrap().y, vec![0.2, 0.5]);
+    }
+
+    #[test]
+    fn poisson_sigma_for_counts_and_sigma_column() {
+        let s = parse("p.csv", b"BE (eV),counts\n285,0\n284,16\n", &Options::default()).unwrap();
+        // σ = √max(counts, 1): floor 1 at zero counts, 4 at 16 counts.
+        assert_eq!(s.sigma, Some(vec![1.0, 4.0]));
+        assert_eq!(s.y_axis, Axis::new("intensity", "counts"));
+        let s = parse("q.csv", b"x,y,sigma\n1,5,0.5\n2,6,0.25\n", &Options::default()).unwrap();
+        assert_eq!(s.sigma, Some(vec![0.5, 0.25]));
+        let all = parse_all("q.csv", b"x,y,sigma\n1,5,0.5\n2,6,0.25\n", &Options::default()).unwrap();
+        assert_eq!(all.len(), 1);
+        let o = Options {
+            poisson_sigma: PoissonSigma::Off,
+            ..Options::default()
+        };
+        assert_eq!(parse("p.csv", b"x,counts\n1,4\n2,9\n", &o).unwrap().sigma, None);
+    }
+
+    #[test]
+    fn whitespace_decimal_comma() {
+        let s = parse("w.txt", b"1,5 2,5\n2,5 3,5\n", &Options::default()).unwrap();
+        assert_eq!(s.x, vec![1.5, 2.5]);
+        assert_eq!(s.y, vec![2.5, 3.5]);
     }
 }

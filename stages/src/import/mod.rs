@@ -1,1 +1,2 @@
 pub mod delimited;
+pub mod jcamp;

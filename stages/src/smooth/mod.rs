@@ -1,1 +1,3 @@
 pub mod moving_average;
+pub mod gaussian;
+pub mod savitzky_golay;

@@ -1,0 +1,3 @@
+//! Axis and ordinate conversions: `convert.axis`, `convert.absorbance`.
+pub mod absorbance;
+pub mod axis;

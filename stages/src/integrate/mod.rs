@@ -1,0 +1,2 @@
+//! Integration: `integrate.area`.
+pub mod area;

@@ -1,0 +1,2 @@
+//! Peak detection: `peaks.find`.
+pub mod find;
