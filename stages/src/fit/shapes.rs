@@ -216,12 +216,6 @@ fn lorentz_unit(t: f64, w: f64) -> (f64, f64, f64) {
     (l, l * 2.0 * t / den, 0.5 * (t * t - h * h) / (PI * den * den))
 }
 
-/// The Voigt profile of unit area (σ, γ) at offset `t`, for tests and references.
-pub fn voigt_profile(t: f64, sigma: f64, gamma: f64) -> f64 {
-    let z = Complex::new(t / (sigma * SQRT_2), gamma / (sigma * SQRT_2));
-    z.w().re / (sigma * SQRT_2PI)
-}
-
 /// The Faddeeva function w(z) = exp(−z²) erfc(−iz).
 pub fn faddeeva(re: f64, im: f64) -> (f64, f64) {
     let w = Complex::new(re, im).w();
