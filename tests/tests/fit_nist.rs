@@ -10,8 +10,10 @@
 //! b3 = A/(b5√π), b5 = w/(2√ln 2), with standard errors by first-order propagation
 //! through the full covariance rebuilt from the reported correlations and errors.
 
-use stages::stage::{Inputs, PortValue};
-use stages::{Artifact, Axis, FitResult, Spectrum, Value};
+#[path = "fit_support.rs"]
+mod support;
+
+use stages::{Artifact, Axis, FitResult, Spectrum};
 
 struct Certified {
     start1: [f64; 8],
@@ -40,7 +42,10 @@ fn parse(text: &str) -> Certified {
     for line in text.lines() {
         let t = line.trim();
         if in_data {
-            let v: Vec<f64> = t.split_whitespace().filter_map(|s| s.parse().ok()).collect();
+            let v: Vec<f64> = t
+                .split_whitespace()
+                .filter_map(|s| s.parse().ok())
+                .collect();
             if v.len() == 2 {
                 c.y.push(v[0]);
                 c.x.push(v[1]);
@@ -54,7 +59,10 @@ fn parse(text: &str) -> Certified {
         } else if let Some((name, rest)) = t.split_once('=') {
             let name = name.trim();
             if let Some(k) = name.strip_prefix('b').and_then(|k| k.parse::<usize>().ok()) {
-                let v: Vec<f64> = rest.split_whitespace().map(|s| s.parse().unwrap()).collect();
+                let v: Vec<f64> = rest
+                    .split_whitespace()
+                    .map(|s| s.parse().unwrap())
+                    .collect();
                 assert_eq!(v.len(), 4, "line {line}");
                 c.start1[k - 1] = v[0];
                 c.start2[k - 1] = v[1];
@@ -64,7 +72,10 @@ fn parse(text: &str) -> Certified {
             }
         }
     }
-    assert!(seen.iter().all(|s| *s), "all eight parameters in the header");
+    assert!(
+        seen.iter().all(|s| *s),
+        "all eight parameters in the header"
+    );
     assert_eq!(c.x.len(), 250, "250 observations");
     c
 }
@@ -72,9 +83,7 @@ fn parse(text: &str) -> Certified {
 fn options(b: &[f64; 8]) -> serde_json::Value {
     let pi_sqrt = std::f64::consts::PI.sqrt();
     let ln2_sqrt = std::f64::consts::LN_2.sqrt();
-    let peak = |h: f64, c: f64, b5: f64| {
-        serde_json::json!({ "center": c, "area": h * b5 * pi_sqrt, "fwhm": 2.0 * ln2_sqrt * b5 })
-    };
+    let peak = |h: f64, c: f64, b5: f64| serde_json::json!({ "center": c, "area": h * b5 * pi_sqrt, "fwhm": 2.0 * ln2_sqrt * b5 });
     serde_json::json!({
         "shape": "gaussian",
         "background": "exponential",
@@ -87,19 +96,13 @@ fn options(b: &[f64; 8]) -> serde_json::Value {
 }
 
 fn run(c: &Certified, start: &[f64; 8]) -> (Artifact, FitResult) {
-    let stage = stages::find("fit.peaks").expect("fit.peaks is registered");
-    let canonical = stage.resolve_options(&options(start)).unwrap();
-    let s = Spectrum::new(c.x.clone(), c.y.clone(), Axis::new("x", ""), Axis::new("y", ""));
-    let input = Artifact::new(Value::Spectrum(s));
-    let inputs = Inputs {
-        item: None,
-        ports: vec![PortValue::One(&input)],
-    };
-    let a = stage.run(&inputs, &canonical).unwrap();
-    let Value::Fit(f) = a.value.clone() else {
-        panic!("fit.peaks gives a fit result")
-    };
-    (a, f)
+    let s = Spectrum::new(
+        c.x.clone(),
+        c.y.clone(),
+        Axis::new("x", ""),
+        Axis::new("y", ""),
+    );
+    support::fit(&s, options(start)).unwrap()
 }
 
 /// b1..b8 and their standard errors from our parameters and covariance.
@@ -153,25 +156,51 @@ fn nist_parameters(f: &FitResult) -> ([f64; 8], [f64; 8]) {
 }
 
 fn check(file: &str) {
-    let Some(text) = tests::reference_file(&format!("nist-strd/{file}"), &format!("NIST StRD {file} fit")) else {
+    let Some(text) = tests::reference_file(
+        &format!("nist-strd/{file}"),
+        &format!("NIST StRD {file} fit"),
+    ) else {
         return;
     };
     let c = parse(&text);
     for (label, start) in [("Start 1", &c.start1), ("Start 2", &c.start2)] {
         let (art, f) = run(&c, start);
-        assert!(f.statistics.converged, "{file} {label}: {}", f.statistics.reason);
-        assert_eq!(art.result("converged").unwrap().value, stages::Scalar::Text("true".into()));
+        assert!(
+            f.statistics.converged,
+            "{file} {label}: {}",
+            f.statistics.reason
+        );
+        assert_eq!(
+            art.result("converged").unwrap().value,
+            stages::Scalar::Text("true".into())
+        );
         let (b, e) = nist_parameters(&f);
         for k in 0..8 {
             // Certified values: at least 6 significant digits; standard errors: 4.
             let rv = (b[k] - c.value[k]).abs() / c.value[k].abs();
             let re = (e[k] - c.stderr[k]).abs() / c.stderr[k].abs();
-            assert!(rv < 1e-6, "{file} {label} b{}: {} vs certified {} (rel {rv:.1e})", k + 1, b[k], c.value[k]);
-            assert!(re < 1e-4, "{file} {label} se(b{}): {} vs certified {} (rel {re:.1e})", k + 1, e[k], c.stderr[k]);
+            assert!(
+                rv < 1e-6,
+                "{file} {label} b{}: {} vs certified {} (rel {rv:.1e})",
+                k + 1,
+                b[k],
+                c.value[k]
+            );
+            assert!(
+                re < 1e-4,
+                "{file} {label} se(b{}): {} vs certified {} (rel {re:.1e})",
+                k + 1,
+                e[k],
+                c.stderr[k]
+            );
         }
         // Residual sum of squares (certified): unweighted χ² is the RSS.
         let rss = f.statistics.chi_square;
-        assert!((rss / c.rss - 1.0).abs() < 1e-8, "{file} {label} RSS {rss} vs {}", c.rss);
+        assert!(
+            (rss / c.rss - 1.0).abs() < 1e-8,
+            "{file} {label} RSS {rss} vs {}",
+            c.rss
+        );
         assert_eq!(f.statistics.points, 250);
         assert_eq!(f.statistics.free_parameters, 8);
         eprintln!(

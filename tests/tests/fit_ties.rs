@@ -29,7 +29,12 @@ fn truth(name: &str) -> f64 {
 /// and η) plus the line c0 + c1·(x − 461), 461 being the middle of [452, 470].
 fn model(x: f64) -> f64 {
     let mut d = [0.0; 4];
-    let p = [truth("p32.center"), truth("p32.area"), truth("p32.fwhm"), truth("p32.eta")];
+    let p = [
+        truth("p32.center"),
+        truth("p32.area"),
+        truth("p32.fwhm"),
+        truth("p32.eta"),
+    ];
     let q = [p[0] + SPLIT, 0.5 * p[1], p[2], p[3]];
     Shape::PseudoVoigt.eval(&p, x, &mut d)
         + Shape::PseudoVoigt.eval(&q, x, &mut d)
@@ -102,7 +107,11 @@ fn noisy_doublet_recovers_the_truth_within_standard_errors() {
         for (name, v) in TRUTH {
             let p = f.parameter(name).unwrap();
             let se = p.stderr.unwrap();
-            assert!((p.value - v).abs() < 3.0 * se, "seed {seed} {name}: {} ± {se} vs {v}", p.value);
+            assert!(
+                (p.value - v).abs() < 3.0 * se,
+                "seed {seed} {name}: {} ± {se} vs {v}",
+                p.value
+            );
         }
         // The tied area's propagated error is exactly half the free one's.
         let (u32_, u12) = (
@@ -112,7 +121,12 @@ fn noisy_doublet_recovers_the_truth_within_standard_errors() {
         assert!((u12 / u32_ - 0.5).abs() < 1e-12);
         // Area covariance: cov(p12, p32) = 0.5 var(p32); correlation 1.
         let c = &f.area_covariance;
-        assert!((c[1] / (u32_ * u32_) - 0.5).abs() < 1e-12 && (c[2] - c[1]).abs() < 1e-12 * c[1].abs());
-        assert!(!art.notes.iter().any(|n| n.text.contains("did not converge")));
+        assert!(
+            (c[1] / (u32_ * u32_) - 0.5).abs() < 1e-12 && (c[2] - c[1]).abs() < 1e-12 * c[1].abs()
+        );
+        assert!(!art
+            .notes
+            .iter()
+            .any(|n| n.text.contains("did not converge")));
     }
 }

@@ -6,7 +6,9 @@ use stages::fit::shapes::{faddeeva, Shape};
 
 fn rows() -> Vec<(String, [f64; 5])> {
     let text = include_str!("../data/voigt_scipy.csv");
-    assert!(text.starts_with("# Voigt profile and Faddeeva function from scipy.special (SciPy 1.17.1"));
+    assert!(
+        text.starts_with("# Voigt profile and Faddeeva function from scipy.special (SciPy 1.17.1")
+    );
     text.lines()
         .filter(|l| !l.starts_with('#') && !l.starts_with("function"))
         .map(|l| {
@@ -32,7 +34,10 @@ fn voigt_profile_matches_scipy() {
         }
         // The fit's own evaluation path: unit area, centre 0.
         let ours = Shape::Voigt.eval(&[0.0, 1.0, sigma, gamma], x, &mut d);
-        assert!(close(ours, v), "V({x}; σ={sigma}, γ={gamma}) = {ours}, scipy {v}");
+        assert!(
+            close(ours, v),
+            "V({x}; σ={sigma}, γ={gamma}) = {ours}, scipy {v}"
+        );
         n += 1;
     }
     assert_eq!(n, 9 * 4 * 6);

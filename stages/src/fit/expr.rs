@@ -186,7 +186,9 @@ impl Parser {
                     _ => self.err("expected ')'"),
                 }
             }
-            Some(Tok::Op(c)) => self.err(format!("expected a number, a name or '(' but found '{c}'")),
+            Some(Tok::Op(c)) => {
+                self.err(format!("expected a number, a name or '(' but found '{c}'"))
+            }
             None => self.err("the expression ends too early"),
         }
     }
@@ -266,7 +268,8 @@ impl Expr {
             }
             Expr::Neg(a) => -a.eval_into(lookup, values, grad, -scale)?,
             Expr::Add(a, b) => {
-                a.eval_into(lookup, values, grad, scale)? + b.eval_into(lookup, values, grad, scale)?
+                a.eval_into(lookup, values, grad, scale)?
+                    + b.eval_into(lookup, values, grad, scale)?
             }
             Expr::Sub(a, b) => {
                 a.eval_into(lookup, values, grad, scale)?
@@ -301,9 +304,7 @@ impl Expr {
     ) -> Result<f64, String> {
         Ok(match self {
             Expr::Number(v) => *v,
-            Expr::Name(n) => {
-                values[lookup(n).ok_or_else(|| format!("unknown parameter '{n}'"))?]
-            }
+            Expr::Name(n) => values[lookup(n).ok_or_else(|| format!("unknown parameter '{n}'"))?],
             Expr::Neg(a) => -a.value(lookup, values)?,
             Expr::Add(a, b) => a.value(lookup, values)? + b.value(lookup, values)?,
             Expr::Sub(a, b) => a.value(lookup, values)? - b.value(lookup, values)?,

@@ -62,7 +62,11 @@ pub fn maxima(y: &[f64]) -> Vec<Maximum> {
             i += 1;
         }
     }
-    out.sort_by(|a, b| b.prominence.total_cmp(&a.prominence).then(a.index.cmp(&b.index)));
+    out.sort_by(|a, b| {
+        b.prominence
+            .total_cmp(&a.prominence)
+            .then(a.index.cmp(&b.index))
+    });
     out
 }
 
@@ -125,13 +129,19 @@ mod tests {
         let s = 2.0 / (2.0 * (2.0f64 * 2f64.ln()).sqrt());
         let y: Vec<f64> = x
             .iter()
-            .map(|v| (-(v - 3.0f64).powi(2) / (2.0 * s * s)).exp() + 2.0 * (-(v - 7.0f64).powi(2) / (2.0 * s * s)).exp())
+            .map(|v| {
+                (-(v - 3.0f64).powi(2) / (2.0 * s * s)).exp()
+                    + 2.0 * (-(v - 7.0f64).powi(2) / (2.0 * s * s)).exp()
+            })
             .collect();
         let m = maxima(&y);
         assert_eq!(m.len(), 2);
         assert!((x[m[0].index] - 7.0).abs() < 0.02 && (x[m[1].index] - 3.0).abs() < 0.05);
         let (h, w) = height_and_width(&x, &y, 7.0);
-        assert!((h - 2.0).abs() < 0.01 && (w.unwrap() - 2.0).abs() < 0.05, "{h} {w:?}");
+        assert!(
+            (h - 2.0).abs() < 0.01 && (w.unwrap() - 2.0).abs() < 0.05,
+            "{h} {w:?}"
+        );
         // Descending x gives the same width.
         let xr: Vec<f64> = x.iter().rev().cloned().collect();
         let yr: Vec<f64> = y.iter().rev().cloned().collect();

@@ -191,16 +191,23 @@ impl Model {
 
     /// Evaluates background and each peak at x into `parts` (background first, then
     /// one entry per peak); for curves on the full grid.
-    pub fn parts_at(&self, i: usize, x: f64, values: &[f64], parts: &mut [f64], scratch: &mut [f64]) {
+    pub fn parts_at(
+        &self,
+        i: usize,
+        x: f64,
+        values: &[f64],
+        parts: &mut [f64],
+        scratch: &mut [f64],
+    ) {
         parts[0] = match &self.background {
             Background::Curve(_) => 0.0,
             _ => self.background_at(i, x, values, scratch),
         };
         for (k, pk) in self.peaks.iter().enumerate() {
             let n = pk.shape.n_params();
-            parts[k + 1] =
-                pk.shape
-                    .eval(&values[pk.offset..pk.offset + n], x, &mut scratch[..n]);
+            parts[k + 1] = pk
+                .shape
+                .eval(&values[pk.offset..pk.offset + n], x, &mut scratch[..n]);
         }
     }
 }

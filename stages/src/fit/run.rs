@@ -93,7 +93,8 @@ pub fn fit_spectrum_with_notes(s: &Spectrum, spec: &FitSpec) -> Result<FitOutcom
         .collect();
     let x: Vec<f64> = idx.iter().map(|&i| s.x[i]).collect();
     let y_raw: Vec<f64> = idx.iter().map(|&i| s.y[i]).collect();
-    let mut y = y_raw.clone();
+    // Start values come from the data above the fixed curve; the model includes it.
+    let mut y_above = y_raw.clone();
     let mut curve_w = None;
     if choice == BackgroundChoice::Curve {
         // Checked above: there is a curve when the choice is Curve.
@@ -105,7 +106,7 @@ pub fn fit_spectrum_with_notes(s: &Spectrum, spec: &FitSpec) -> Result<FitOutcom
                 c.name, x[k]
             )));
         }
-        for (v, b) in y.iter_mut().zip(&cw) {
+        for (v, b) in y_above.iter_mut().zip(&cw) {
             *v -= b;
         }
         curve_w = Some(cw);
@@ -125,7 +126,9 @@ pub fn fit_spectrum_with_notes(s: &Spectrum, spec: &FitSpec) -> Result<FitOutcom
     let (w, weighting): (Vec<f64>, String) = match weights {
         Weights::Sigma => {
             let sig = s.sigma.as_ref().ok_or_else(|| {
-                StageError::input("weights: sigma was asked for, but the spectrum has no per-point sigma")
+                StageError::input(
+                    "weights: sigma was asked for, but the spectrum has no per-point sigma",
+                )
             })?;
             let mut w = Vec::with_capacity(idx.len());
             for &i in &idx {
@@ -158,14 +161,18 @@ pub fn fit_spectrum_with_notes(s: &Spectrum, spec: &FitSpec) -> Result<FitOutcom
         )));
     }
     let mut values = starts;
-    guess_starts(&layout, &mut model, &mut values, &x, &y)?;
+    guess_starts(&layout, &mut model, &mut values, &x, &y_above)?;
     let span = x.iter().cloned().fold(f64::NEG_INFINITY, f64::max)
         - x.iter().cloned().fold(f64::INFINITY, f64::min);
     let mut theta = Vec::with_capacity(n_free);
     let mut bounds = Vec::with_capacity(n_free);
     for (k, p) in model.params.iter().enumerate() {
         if let Source::Free(_) = p.source {
-            let scale = if p.unit == s.x_axis.unit && span > 0.0 { span } else { values[k].abs().max(1.0) };
+            let scale = if p.unit == s.x_axis.unit && span > 0.0 {
+                span
+            } else {
+                values[k].abs().max(1.0)
+            };
             theta.push(inside(values[k], p.bounds, scale));
             bounds.push(p.bounds);
         }
@@ -183,7 +190,7 @@ pub fn fit_spectrum_with_notes(s: &Spectrum, spec: &FitSpec) -> Result<FitOutcom
         xtol: spec.tolerance,
         gtol: spec.tolerance * 1e-3,
     };
-    let mut problem = FitProblem::new(&model, &x, &y, &w);
+    let mut problem = FitProblem::new(&model, &x, &y_raw, &w);
     let sol = solve(&mut problem, &theta, &bounds, settings)
         .map_err(|e| StageError::numeric(format!("the fit could not start: {}", e.0)))?;
     let mut r = vec![0.0; x.len()];
@@ -284,14 +291,22 @@ pub fn fit_spectrum_with_notes(s: &Spectrum, spec: &FitSpec) -> Result<FitOutcom
         let height = pk.shape.height(pv, &mut gh);
         let fwhm = pk.shape.fwhm(pv, &mut gw);
         let along = |g: &[f64]| -> Vec<(usize, f64)> {
-            g.iter().enumerate().map(|(q, &d)| (pk.offset + q, d)).collect()
+            g.iter()
+                .enumerate()
+                .map(|(q, &d)| (pk.offset + q, d))
+                .collect()
         };
         let (_, uc) = propagate(&[(pk.offset, 1.0)]);
         let (ga, ua) = propagate(&[(pk.offset + 1, 1.0)]);
         let (_, uw) = propagate(&along(&gw));
         let (_, uh) = propagate(&along(&gh));
         area_grads.push(ga);
-        for (v, what) in [(pv[0], "centre"), (pv[1], "area"), (fwhm, "FWHM"), (height, "height")] {
+        for (v, what) in [
+            (pv[0], "centre"),
+            (pv[1], "area"),
+            (fwhm, "FWHM"),
+            (height, "height"),
+        ] {
             if !v.is_finite() {
                 return Err(StageError::numeric(format!(
                     "the fitted {what} of peak '{}' is not a finite number",
@@ -351,7 +366,10 @@ pub fn fit_spectrum_with_notes(s: &Spectrum, spec: &FitSpec) -> Result<FitOutcom
     spectrum.curves.retain(|c| {
         !matches!(
             c.role,
-            CurveRole::Background | CurveRole::Component | CurveRole::Envelope | CurveRole::Residual
+            CurveRole::Background
+                | CurveRole::Component
+                | CurveRole::Envelope
+                | CurveRole::Residual
         )
     });
     let background_words = match choice {
@@ -396,7 +414,12 @@ pub fn fit_spectrum_with_notes(s: &Spectrum, spec: &FitSpec) -> Result<FitOutcom
 
     // Statistics.
     let sw: f64 = w.iter().map(|v| v * v).sum();
-    let mean = w.iter().zip(&y_raw).map(|(wi, yi)| wi * wi * yi).sum::<f64>() / sw;
+    let mean = w
+        .iter()
+        .zip(&y_raw)
+        .map(|(wi, yi)| wi * wi * yi)
+        .sum::<f64>()
+        / sw;
     let ss_tot: f64 = w
         .iter()
         .zip(&y_raw)
@@ -418,7 +441,7 @@ pub fn fit_spectrum_with_notes(s: &Spectrum, spec: &FitSpec) -> Result<FitOutcom
             ),
         );
     }
-    if weighted && !(red >= REDUCED_CHI_SQUARE_OK[0] && red <= REDUCED_CHI_SQUARE_OK[1]) {
+    if weighted && !(REDUCED_CHI_SQUARE_OK[0]..=REDUCED_CHI_SQUARE_OK[1]).contains(&red) {
         warn(
             &mut notes,
             format!(
@@ -493,7 +516,10 @@ fn build_model(
             name: s.name.clone(),
             unit: String::new(),
             value: s.value.unwrap_or(f64::NAN),
-            bounds: Bounds { lo: s.min, hi: s.max },
+            bounds: Bounds {
+                lo: s.min,
+                hi: s.max,
+            },
             source,
         });
         starts.push(s.value.unwrap_or(f64::NAN));
@@ -687,13 +713,21 @@ fn guess_starts(
         let o = p.offset;
         if unknown(model, values, o + 1) {
             let (h, _) = height_and_width(x, &yr, values[o]);
-            let h = if h > 0.0 { h } else { 0.1 * ymax.abs().max(f64::MIN_POSITIVE) };
+            let h = if h > 0.0 {
+                h
+            } else {
+                0.1 * ymax.abs().max(f64::MIN_POSITIVE)
+            };
             let np = p.shape.n_params();
             let mut unit = values[o..o + np].to_vec();
             unit[1] = 1.0;
             let mut g = vec![0.0; np];
             let per_area = p.shape.height(&unit, &mut g);
-            values[o + 1] = if per_area > 0.0 && per_area.is_finite() { h / per_area } else { h * span / 10.0 };
+            values[o + 1] = if per_area > 0.0 && per_area.is_finite() {
+                h / per_area
+            } else {
+                h * span / 10.0
+            };
         }
     }
     resolve_links(model, values);

@@ -213,7 +213,11 @@ fn lorentz_unit(t: f64, w: f64) -> (f64, f64, f64) {
     let h = 0.5 * w;
     let den = t * t + h * h;
     let l = h / (PI * den);
-    (l, l * 2.0 * t / den, 0.5 * (t * t - h * h) / (PI * den * den))
+    (
+        l,
+        l * 2.0 * t / den,
+        0.5 * (t * t - h * h) / (PI * den * den),
+    )
 }
 
 /// The Faddeeva function w(z) = exp(−z²) erfc(−iz).
@@ -223,6 +227,7 @@ pub fn faddeeva(re: f64, im: f64) -> (f64, f64) {
 }
 
 #[cfg(test)]
+#[allow(clippy::needless_range_loop)] // index loops read clearer in these checks
 mod tests {
     use super::*;
 
@@ -269,7 +274,10 @@ mod tests {
             shape.height(&p, &mut g);
             for k in 0..p.len() {
                 let n = numeric(&|q: &[f64]| shape.height(q, &mut scratch.clone()), &p, k);
-                assert!((g[k] - n).abs() < 1e-7 * (n.abs() + 1e-3), "{shape:?} height");
+                assert!(
+                    (g[k] - n).abs() < 1e-7 * (n.abs() + 1e-3),
+                    "{shape:?} height"
+                );
             }
             shape.fwhm(&p, &mut g);
             for k in 0..p.len() {
@@ -295,7 +303,11 @@ mod tests {
             }
             // Lorentzian tails beyond ±400 hold about w/(π·400) of the area.
             let tail = if shape == Shape::Gaussian { 0.0 } else { 2e-3 };
-            assert!((s * step / p[1] - 1.0).abs() < tail + 1e-6, "{shape:?} area {}", s * step);
+            assert!(
+                (s * step / p[1] - 1.0).abs() < tail + 1e-6,
+                "{shape:?} area {}",
+                s * step
+            );
             let mut g = vec![0.0; p.len()];
             let h = shape.height(&p, &mut g);
             assert!((shape.eval(&p, p[0], &mut d) - h).abs() < 1e-12 * h);
@@ -303,7 +315,10 @@ mod tests {
             let half = shape.eval(&p, p[0] + fw / 2.0, &mut d) / h;
             // Olivero–Longbothum is stated accurate to 0.02 %; the others are exact.
             let tol = if shape == Shape::Voigt { 1e-3 } else { 1e-12 };
-            assert!((half - 0.5).abs() < tol, "{shape:?} half height ratio {half}");
+            assert!(
+                (half - 0.5).abs() < tol,
+                "{shape:?} half height ratio {half}"
+            );
         }
     }
 }

@@ -63,7 +63,9 @@ impl Transform {
     fn to_internal(self, p: f64) -> f64 {
         match self {
             Transform::None => p,
-            Transform::Both { lo, hi } => (2.0 * (p - lo) / (hi - lo) - 1.0).clamp(-1.0, 1.0).asin(),
+            Transform::Both { lo, hi } => {
+                (2.0 * (p - lo) / (hi - lo) - 1.0).clamp(-1.0, 1.0).asin()
+            }
             Transform::Lower { lo, s } => ((p - lo + s).powi(2) - s * s).max(0.0).sqrt(),
             Transform::Upper { hi, s } => ((hi - p + s).powi(2) - s * s).max(0.0).sqrt(),
         }
@@ -146,7 +148,11 @@ pub fn solve<P: Problem>(
         .zip(start)
         .map(|(b, &s)| Transform::new(*b, s))
         .collect();
-    let mut u: Vec<f64> = tr.iter().zip(start).map(|(t, &s)| t.to_internal(s)).collect();
+    let mut u: Vec<f64> = tr
+        .iter()
+        .zip(start)
+        .map(|(t, &s)| t.to_internal(s))
+        .collect();
     let mut theta = vec![0.0; p];
     let mut dtheta = vec![0.0; p];
     let external = |u: &[f64], theta: &mut [f64], dtheta: &mut [f64]| {
@@ -185,8 +191,8 @@ pub fn solve<P: Problem>(
         }
         // Jacobian in u: scale each column by dθ/du.
         ji.copy_from(&jac);
-        for k in 0..p {
-            ji.column_mut(k).scale_mut(dtheta[k]);
+        for (k, d) in dtheta.iter().enumerate() {
+            ji.column_mut(k).scale_mut(*d);
         }
         ji.tr_mul_to(&ji, &mut a);
         let rv = DVector::from_column_slice(&r);
@@ -203,7 +209,10 @@ pub fn solve<P: Problem>(
         if gmax <= settings.gtol {
             break (
                 true,
-                format!("gradient test met (cosine {gmax:.1e} ≤ {:.1e})", settings.gtol),
+                format!(
+                    "gradient test met (cosine {gmax:.1e} ≤ {:.1e})",
+                    settings.gtol
+                ),
             );
         }
         for k in 0..p {
@@ -240,17 +249,21 @@ pub fn solve<P: Problem>(
                 u_new[k] = u[k] + delta[k];
             }
             external(&u_new, &mut theta_new, &mut dtheta_new);
-            let ok = problem.residuals(&theta_new, &mut r_new)
-                && r_new.iter().all(|v| v.is_finite());
-            let chi2_new = if ok { dot(&r_new, &r_new) } else { f64::INFINITY };
+            let ok =
+                problem.residuals(&theta_new, &mut r_new) && r_new.iter().all(|v| v.is_finite());
+            let chi2_new = if ok {
+                dot(&r_new, &r_new)
+            } else {
+                f64::INFINITY
+            };
             // Predicted reduction −2gᵀδ − δᵀAδ = −gᵀδ + λ δᵀDδ.
             let mut pred = -g.dot(&delta);
             for k in 0..p {
                 let d = diag_max[k].max(1e-15 * dmax).max(1e-300);
                 pred += lambda * d * delta[k] * delta[k];
             }
-            let small_step = (0..p)
-                .all(|k| delta[k].abs() <= settings.xtol * (u[k].abs() + settings.xtol));
+            let small_step =
+                (0..p).all(|k| delta[k].abs() <= settings.xtol * (u[k].abs() + settings.xtol));
             if chi2_new < chi2 {
                 let rho = (chi2 - chi2_new) / pred.max(f64::MIN_POSITIVE);
                 let rel_actual = (chi2 - chi2_new) / chi2;
@@ -345,6 +358,7 @@ pub fn inverse_normal_matrix(j: &DMatrix<f64>) -> Option<DMatrix<f64>> {
 }
 
 #[cfg(test)]
+#[allow(clippy::needless_range_loop)] // index loops read clearer in these checks
 mod tests {
     use super::*;
 
@@ -403,7 +417,11 @@ mod tests {
             },
         ];
         let s = solve(&mut pr, &[1.0, 0.1], &b, settings()).unwrap();
-        assert!(s.theta[1] <= 0.5 && s.at_bound[1] && !s.at_bound[0], "{:?}", s.theta);
+        assert!(
+            s.theta[1] <= 0.5 && s.at_bound[1] && !s.at_bound[0],
+            "{:?}",
+            s.theta
+        );
         // A lower bound that is not active leaves the answer unchanged.
         let b = [
             Bounds {
@@ -422,11 +440,20 @@ mod tests {
     #[test]
     fn iteration_limit_is_reported_as_not_converged() {
         let x: Vec<f64> = (0..20).map(|i| i as f64 * 0.25).collect();
-        let y = x.iter().map(|v| 3.0 * (-0.7 * v).exp() + 0.01 * v.sin()).collect();
+        let y = x
+            .iter()
+            .map(|v| 3.0 * (-0.7 * v).exp() + 0.01 * v.sin())
+            .collect();
         let mut pr = Expo { x, y };
         let mut st = settings();
         st.max_iterations = 2;
-        let s = solve(&mut pr, &[1.0, 0.1], &[Bounds { lo: None, hi: None }; 2], st).unwrap();
+        let s = solve(
+            &mut pr,
+            &[1.0, 0.1],
+            &[Bounds { lo: None, hi: None }; 2],
+            st,
+        )
+        .unwrap();
         assert!(!s.converged && s.reason.contains("iteration limit"));
     }
 

@@ -118,6 +118,14 @@ pub enum SubShell {
 impl SubShell {
     /// Area ratio (2j+1 degeneracies) of the minor to the major line; the
     /// degeneracy ratio of the two j levels (common practice for photoelectron lines).
+    /// "d-shell 2:3" and so on, for the methods sentence.
+    pub fn words(self) -> &'static str {
+        match self {
+            SubShell::P => "p-shell 1:2",
+            SubShell::D => "d-shell 2:3",
+            SubShell::F => "f-shell 3:4",
+        }
+    }
     pub fn ratio(self) -> f64 {
         match self {
             SubShell::P => 1.0 / 2.0,
@@ -428,7 +436,10 @@ impl FitSpec {
     /// background model that will be fitted (None for a curve or no background).
     pub fn layout(&self, fitted_background: BackgroundChoice) -> Result<Layout, SpecError> {
         if self.peaks.is_empty() {
-            return err("peaks", "name at least one peak to fit, e.g. peaks: { main: {} }");
+            return err(
+                "peaks",
+                "name at least one peak to fit, e.g. peaks: { main: {} }",
+            );
         }
         if self.max_iterations == 0 {
             return err("max_iterations", "must be at least 1");
@@ -437,7 +448,7 @@ impl FitSpec {
             return err("tolerance", "must lie between 0 and 1 (e.g. 1e-10)");
         }
         if let Some([a, b]) = self.range {
-            if !(a < b) {
+            if a.partial_cmp(&b) != Some(std::cmp::Ordering::Less) {
                 return err(
                     "range",
                     format!("range must be [low, high] with low < high (got [{a}, {b}])"),
@@ -451,7 +462,9 @@ impl FitSpec {
             if !is_name(name) || name == "background" {
                 return err(
                     &path,
-                    format!("'{name}' cannot name a peak: use letters, digits and _ (not 'background')"),
+                    format!(
+                        "'{name}' cannot name a peak: use letters, digits and _ (not 'background')"
+                    ),
                 );
             }
             let shape = self.shape_of(p);
@@ -567,7 +580,9 @@ impl FitSpec {
                     if !slots.iter().any(|o| o.name == n) {
                         return err(
                             &s.path,
-                            format!("'{text}' refers to '{n}', which is not a parameter of this fit"),
+                            format!(
+                                "'{text}' refers to '{n}', which is not a parameter of this fit"
+                            ),
                         );
                     }
                 }
@@ -577,7 +592,12 @@ impl FitSpec {
         fn visit(slots: &[Slot], k: usize, state: &mut [u8]) -> Result<(), SpecError> {
             match state[k] {
                 2 => return Ok(()),
-                1 => return err(&slots[k].path, format!("the links through '{}' form a cycle", slots[k].name)),
+                1 => {
+                    return err(
+                        &slots[k].path,
+                        format!("the links through '{}' form a cycle", slots[k].name),
+                    )
+                }
                 _ => {}
             }
             state[k] = 1;
@@ -646,21 +666,51 @@ mod tests {
     fn bad_options_name_their_path() {
         let cases = [
             (serde_json::json!({}), "peaks"),
-            (serde_json::json!({"peaks": {"a": {"fwhm": {"min": 2.0, "max": 1.0}}}}), "peaks.a.fwhm"),
-            (serde_json::json!({"peaks": {"a": {"sigma": 1.0}}}), "peaks.a.sigma"),
-            (serde_json::json!({"peaks": {"a": {"fwhm": {"same_as": "zz"}}}}), "peaks.a.fwhm"),
-            (serde_json::json!({"peaks": {"a": {"area": {"expr": "2 * "}}}}), "peaks.a.area.expr"),
-            (serde_json::json!({"peaks": {"a": {"area": {"expr": "b.area"}}, "b": {"area": {"expr": "a.area"}}}}), "peaks.a.area"),
-            (serde_json::json!({"peaks": {"a": {"center": {"fixed": true}}}}), "peaks.a.center"),
-            (serde_json::json!({"peaks": {"a": {"doublet": {"of": "q", "split": 1.0, "ratio": "d"}}}}), "peaks.a.doublet.of"),
-            (serde_json::json!({"peaks": {"a": {}}, "background_parameters": {"q": 1.0}}), "background_parameters.q"),
-            (serde_json::json!({"peaks": {"a": {}}, "range": [5.0, 1.0]}), "range"),
+            (
+                serde_json::json!({"peaks": {"a": {"fwhm": {"min": 2.0, "max": 1.0}}}}),
+                "peaks.a.fwhm",
+            ),
+            (
+                serde_json::json!({"peaks": {"a": {"sigma": 1.0}}}),
+                "peaks.a.sigma",
+            ),
+            (
+                serde_json::json!({"peaks": {"a": {"fwhm": {"same_as": "zz"}}}}),
+                "peaks.a.fwhm",
+            ),
+            (
+                serde_json::json!({"peaks": {"a": {"area": {"expr": "2 * "}}}}),
+                "peaks.a.area.expr",
+            ),
+            (
+                serde_json::json!({"peaks": {"a": {"area": {"expr": "b.area"}}, "b": {"area": {"expr": "a.area"}}}}),
+                "peaks.a.area",
+            ),
+            (
+                serde_json::json!({"peaks": {"a": {"center": {"fixed": true}}}}),
+                "peaks.a.center",
+            ),
+            (
+                serde_json::json!({"peaks": {"a": {"doublet": {"of": "q", "split": 1.0, "ratio": "d"}}}}),
+                "peaks.a.doublet.of",
+            ),
+            (
+                serde_json::json!({"peaks": {"a": {}}, "background_parameters": {"q": 1.0}}),
+                "background_parameters.q",
+            ),
+            (
+                serde_json::json!({"peaks": {"a": {}}, "range": [5.0, 1.0]}),
+                "range",
+            ),
         ];
         for (json, path) in cases {
-            let e = spec(json.clone()).layout(BackgroundChoice::Linear).unwrap_err();
+            let e = spec(json.clone())
+                .layout(BackgroundChoice::Linear)
+                .unwrap_err();
             assert_eq!(e.path, path, "{json}: {}", e.message);
         }
-        let e = serde_json::from_value::<FitSpec>(serde_json::json!({"peaks": {"a": {"centre": 1}}}));
+        let e =
+            serde_json::from_value::<FitSpec>(serde_json::json!({"peaks": {"a": {"centre": 1}}}));
         assert!(e.is_err());
         assert_eq!(SubShell::D.ratio(), 2.0 / 3.0);
     }
