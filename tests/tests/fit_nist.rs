@@ -80,29 +80,32 @@ fn parse(text: &str) -> Certified {
     c
 }
 
-fn options(b: &[f64; 8]) -> serde_json::Value {
+fn options(b: &[f64; 8], tolerance: Option<f64>) -> serde_json::Value {
     let pi_sqrt = std::f64::consts::PI.sqrt();
     let ln2_sqrt = std::f64::consts::LN_2.sqrt();
     let peak = |h: f64, c: f64, b5: f64| serde_json::json!({ "center": c, "area": h * b5 * pi_sqrt, "fwhm": 2.0 * ln2_sqrt * b5 });
-    serde_json::json!({
+    let mut o = serde_json::json!({
         "shape": "gaussian",
         "background": "exponential",
         "background_parameters": { "a": b[0], "b": b[1] },
         "peaks": { "g1": peak(b[2], b[3], b[4]), "g2": peak(b[5], b[6], b[7]) },
         "weights": "none",
-        "tolerance": 1e-15,
         "max_iterations": 1000
-    })
+    });
+    if let Some(t) = tolerance {
+        o["tolerance"] = serde_json::json!(t);
+    }
+    o
 }
 
-fn run(c: &Certified, start: &[f64; 8]) -> (Artifact, FitResult) {
+fn run(c: &Certified, start: &[f64; 8], tolerance: Option<f64>) -> (Artifact, FitResult) {
     let s = Spectrum::new(
         c.x.clone(),
         c.y.clone(),
         Axis::new("x", ""),
         Axis::new("y", ""),
     );
-    support::fit(&s, options(start)).unwrap()
+    support::fit(&s, options(start, tolerance)).unwrap()
 }
 
 /// b1..b8 and their standard errors from our parameters and covariance.
@@ -163,8 +166,15 @@ fn check(file: &str) {
         return;
     };
     let c = parse(&text);
-    for (label, start) in [("Start 1", &c.start1), ("Start 2", &c.start2)] {
-        let (art, f) = run(&c, start);
+    // A tight tolerance, and the stage's default one (1e-10), which must be enough too.
+    let runs = [
+        ("Start 1, tolerance 1e-15", &c.start1, Some(1e-15)),
+        ("Start 2, tolerance 1e-15", &c.start2, Some(1e-15)),
+        ("Start 1, default tolerance", &c.start1, None),
+        ("Start 2, default tolerance", &c.start2, None),
+    ];
+    for (label, start, tolerance) in runs {
+        let (art, f) = run(&c, start, tolerance);
         assert!(
             f.statistics.converged,
             "{file} {label}: {}",

@@ -222,8 +222,11 @@ pub struct FitProblem<'a> {
     values: Vec<f64>,
     chain: DMatrix<f64>,
     grad: Vec<f64>,
-    /// ∂f/∂(model parameter) per point, row-major (points × params).
+    /// −wᵢ·∂fᵢ/∂(model parameter), parameter-major (params × points), so the
+    /// Jacobian is built by contiguous column updates.
     dfdp: Vec<f64>,
+    /// One point's derivatives before they are scattered into `dfdp`.
+    row: Vec<f64>,
     /// Non-zero entries of `chain` per parameter: (free index, coefficient).
     sparse: Vec<Vec<(usize, f64)>>,
 }
@@ -240,6 +243,7 @@ impl<'a> FitProblem<'a> {
             chain: DMatrix::zeros(m, model.n_free),
             grad: vec![0.0; m],
             dfdp: vec![0.0; x.len() * m],
+            row: vec![0.0; m],
             sparse: vec![Vec::new(); m],
         }
     }
@@ -268,7 +272,6 @@ impl Problem for FitProblem<'_> {
         {
             return false;
         }
-        let m = model.params.len();
         for (k, list) in self.sparse.iter_mut().enumerate() {
             list.clear();
             for j in 0..model.n_free {
@@ -279,26 +282,32 @@ impl Problem for FitProblem<'_> {
             }
         }
         let values = &self.values;
-        for (i, (&x, row)) in self.x.iter().zip(self.dfdp.chunks_exact_mut(m)).enumerate() {
+        let row = &mut self.row;
+        let npts = self.x.len();
+        for (i, &x) in self.x.iter().enumerate() {
             let mut f = model.background_at(i, x, values, row);
             for pk in &model.peaks {
                 let n = pk.shape.n_params();
                 let o = pk.offset;
                 f += pk.shape.eval(&values[o..o + n], x, &mut row[o..o + n]);
             }
-            r[i] = (self.y[i] - f) * self.w[i];
+            let wi = self.w[i];
+            r[i] = (self.y[i] - f) * wi;
+            for (k, d) in row.iter().enumerate() {
+                self.dfdp[k * npts + i] = -wi * d;
+            }
         }
         r.iter().all(|v| v.is_finite())
     }
     fn jacobian(&mut self, _theta: &[f64], j: &mut DMatrix<f64>) {
         j.fill(0.0);
-        let m = self.model.params.len();
-        for (i, row) in self.dfdp.chunks_exact(m).enumerate() {
-            let wi = -self.w[i];
-            for (k, list) in self.sparse.iter().enumerate() {
-                let d = row[k] * wi;
-                for &(col, c) in list {
-                    j[(i, col)] += d * c;
+        let n = self.x.len();
+        for (k, list) in self.sparse.iter().enumerate() {
+            let d = &self.dfdp[k * n..(k + 1) * n];
+            for &(col, c) in list {
+                let mut column = j.column_mut(col);
+                for (jc, dk) in column.iter_mut().zip(d) {
+                    *jc += c * dk;
                 }
             }
         }

@@ -224,7 +224,7 @@ pub fn fit_spectrum_with_notes(s: &Spectrum, spec: &FitSpec) -> Result<FitOutcom
                 warn(
                     &mut notes,
                     format!(
-                        "'{}' ended on its bound ({}); its standard error is not meaningful and is not given",
+                        "'{}' ended on its bound ({}); its standard error is not meaningful and is not given (derived uncertainties treat it as free)",
                         p.name, vals[k]
                     ),
                 );
@@ -653,7 +653,8 @@ fn guess_starts(
         .filter(|v| v.is_finite())
         .collect();
     let step = span / (n.max(2) - 1) as f64;
-    let found = maxima(&yr);
+    let need_centre = model.peaks.iter().any(|p| unknown(model, values, p.offset));
+    let found = if need_centre { maxima(&yr) } else { Vec::new() };
     let mut next = found.iter();
     for p in &model.peaks {
         if unknown(model, values, p.offset) {

@@ -176,7 +176,6 @@ pub fn solve<P: Problem>(
     let mut u_new = vec![0.0; p];
     let mut theta_new = vec![0.0; p];
     let mut dtheta_new = vec![0.0; p];
-    let mut ji = DMatrix::zeros(n, p); // Jacobian in u
     let mut a = DMatrix::zeros(p, p);
     let mut diag_max = vec![0.0f64; p];
     let mut lambda = 1e-3;
@@ -189,14 +188,16 @@ pub fn solve<P: Problem>(
         if chi2 == 0.0 {
             break (true, "χ² is zero (the model fits exactly)".to_string());
         }
-        // Jacobian in u: scale each column by dθ/du.
-        ji.copy_from(&jac);
-        for (k, d) in dtheta.iter().enumerate() {
-            ji.column_mut(k).scale_mut(*d);
-        }
-        ji.tr_mul_to(&ji, &mut a);
+        // Normal matrix and gradient in u: scale by dθ/du (A_u = S A_θ S, g_u = S g_θ).
+        jac.tr_mul_to(&jac, &mut a);
         let rv = DVector::from_column_slice(&r);
-        let g = ji.tr_mul(&rv);
+        let mut g = jac.tr_mul(&rv);
+        for r_ in 0..p {
+            g[r_] *= dtheta[r_];
+            for c in 0..p {
+                a[(r_, c)] *= dtheta[r_] * dtheta[c];
+            }
+        }
         // Gradient test: cosine between r and each column.
         let rnorm = chi2.sqrt();
         let mut gmax = 0.0f64;

@@ -552,15 +552,16 @@ impl FitSpec {
             if !names.contains(&k.as_str()) {
                 return err(
                     format!("background_parameters.{k}"),
-                    format!(
-                        "the {} background has {}",
-                        fitted_background.key(),
-                        if names.is_empty() {
-                            "no fitted parameters".to_string()
-                        } else {
-                            format!("parameters {}", names.join(", "))
-                        }
-                    ),
+                    if names.is_empty() {
+                        "this background (a fixed curve, or none) has no fitted parameters"
+                            .to_string()
+                    } else {
+                        format!(
+                            "the {} background has parameters {}",
+                            fitted_background.key(),
+                            names.join(", ")
+                        )
+                    },
                 );
             }
         }
