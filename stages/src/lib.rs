@@ -11,6 +11,7 @@ pub mod registry;
 pub mod stage;
 pub mod value;
 
+pub mod fit;
 pub mod gather;
 pub mod import;
 pub mod measure;

@@ -11,6 +11,8 @@ pub static CATALOG: &[&dyn Stage] = &[
     &crate::smooth::moving_average::MovingAverage,
     // measure
     &crate::measure::maximum::Maximum,
+    // fit
+    &crate::fit::peaks::FitPeaks,
     // gather
     &crate::gather::table::GatherTable,
     // spectral core: import
