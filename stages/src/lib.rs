@@ -16,6 +16,10 @@ pub mod import;
 pub mod measure;
 pub mod smooth;
 
+// quantification (issue 4)
+pub mod calibration;
+pub mod quant_util;
+
 pub use registry::{find, CATALOG};
 pub use stage::{Stage, StageError, TypedStage};
 pub use value::*;

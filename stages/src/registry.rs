@@ -11,6 +11,8 @@ pub static CATALOG: &[&dyn Stage] = &[
     &crate::smooth::moving_average::MovingAverage,
     // measure
     &crate::measure::maximum::Maximum,
+    // quantification: calibration curves
+    &crate::calibration::curve::CalibrationCurve,
     // gather
     &crate::gather::table::GatherTable,
 ];
