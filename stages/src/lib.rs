@@ -18,6 +18,7 @@ pub mod smooth;
 
 // quantification (issue 4)
 pub mod calibration;
+pub mod nmr;
 pub mod quant_util;
 
 pub use registry::{find, CATALOG};

@@ -13,6 +13,10 @@ pub static CATALOG: &[&dyn Stage] = &[
     &crate::measure::maximum::Maximum,
     // quantification: calibration curves
     &crate::calibration::curve::CalibrationCurve,
+    // quantification: NMR
+    &crate::nmr::integrate::NmrIntegrate,
+    &crate::nmr::coupling::NmrCoupling,
+    &crate::nmr::qnmr::QnmrPurity,
     // gather
     &crate::gather::table::GatherTable,
 ];
