@@ -20,6 +20,7 @@ pub mod smooth;
 pub mod calibration;
 pub mod nmr;
 pub mod quant_util;
+pub mod uvvis;
 
 pub use registry::{find, CATALOG};
 pub use stage::{Stage, StageError, TypedStage};

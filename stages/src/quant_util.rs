@@ -198,6 +198,33 @@ pub fn x_intercept(fit: &PolyFit) -> Result<(f64, f64), StageError> {
     Ok((x0, quad_form(&fit.cov, &g).max(0.0).sqrt()))
 }
 
+/// Where the line y = a + b x crosses the level y = L (with standard uncertainty u_L,
+/// uncorrelated with the line): x = (L − a)/b and its first-order uncertainty.
+pub fn line_crossing(fit: &PolyFit, level: f64, u_level: f64) -> Result<(f64, f64), StageError> {
+    let (a, b) = (fit.coef[0], fit.coef[1]);
+    if b == 0.0 {
+        return Err(StageError::numeric("the fitted line is horizontal: it never crosses the level"));
+    }
+    let x = (level - a) / b;
+    // ∂x/∂a = −1/b, ∂x/∂b = −x/b, ∂x/∂L = 1/b.
+    let var = quad_form(&fit.cov, &[-1.0 / b, -x / b]) + (u_level / b).powi(2);
+    Ok((finite("crossing", x)?, var.max(0.0).sqrt()))
+}
+
+/// Mean of y over the given indices and its standard error (s/√n; 0 for one point).
+pub fn mean_and_se(y: &[f64], idx: &[usize]) -> Option<(f64, f64)> {
+    if idx.is_empty() {
+        return None;
+    }
+    let n = idx.len() as f64;
+    let m = idx.iter().map(|&i| y[i]).sum::<f64>() / n;
+    if idx.len() < 2 {
+        return Some((m, 0.0));
+    }
+    let v = idx.iter().map(|&i| (y[i] - m).powi(2)).sum::<f64>() / (n - 1.0);
+    Some((m, (v / n).sqrt()))
+}
+
 /// First-order standard uncertainty of f at x for independent inputs with standard
 /// uncertainties u, with sensitivity coefficients from central differences.
 pub fn propagate(f: &dyn Fn(&[f64]) -> f64, x: &[f64], u: &[f64]) -> f64 {

@@ -17,6 +17,13 @@ pub static CATALOG: &[&dyn Stage] = &[
     &crate::nmr::integrate::NmrIntegrate,
     &crate::nmr::coupling::NmrCoupling,
     &crate::nmr::qnmr::QnmrPurity,
+    // quantification: UV-vis
+    &crate::uvvis::absorbance::UvvisAbsorbance,
+    &crate::uvvis::peak::UvvisPeak,
+    &crate::uvvis::beer_lambert::BeerLambert,
+    &crate::uvvis::tauc::Tauc,
+    &crate::uvvis::onset::UvvisOnset,
+    &crate::uvvis::plasmon::UvvisPlasmon,
     // gather
     &crate::gather::table::GatherTable,
 ];
