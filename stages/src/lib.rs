@@ -21,6 +21,7 @@ pub mod calibration;
 pub mod nmr;
 pub mod quant_util;
 pub mod uvvis;
+pub mod xps;
 
 pub use registry::{find, CATALOG};
 pub use stage::{Stage, StageError, TypedStage};

@@ -24,6 +24,11 @@ pub static CATALOG: &[&dyn Stage] = &[
     &crate::uvvis::tauc::Tauc,
     &crate::uvvis::onset::UvvisOnset,
     &crate::uvvis::plasmon::UvvisPlasmon,
+    // quantification: photoelectron spectra
+    &crate::xps::atomic_percent::AtomicPercent,
+    &crate::xps::fractions::XpsFractions,
+    &crate::xps::ups::WorkFunction,
+    &crate::xps::ups::ValenceBandMaximum,
     // gather
     &crate::gather::table::GatherTable,
 ];
