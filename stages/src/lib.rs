@@ -18,6 +18,7 @@ pub mod smooth;
 
 // quantification (issue 4)
 pub mod calibration;
+pub mod eds;
 pub mod nmr;
 pub mod quant_util;
 pub mod uvvis;

@@ -29,6 +29,11 @@ pub static CATALOG: &[&dyn Stage] = &[
     &crate::xps::fractions::XpsFractions,
     &crate::xps::ups::WorkFunction,
     &crate::xps::ups::ValenceBandMaximum,
+    // quantification: EDS
+    &crate::eds::calibrate::EdsCalibrate,
+    &crate::eds::identify::EdsIdentify,
+    &crate::eds::net_intensity::NetIntensity,
+    &crate::eds::cliff_lorimer::CliffLorimer,
     // gather
     &crate::gather::table::GatherTable,
 ];
