@@ -23,6 +23,7 @@ pub mod nmr;
 pub mod quant_util;
 pub mod uvvis;
 pub mod xps;
+pub mod xrd;
 
 pub use registry::{find, CATALOG};
 pub use stage::{Stage, StageError, TypedStage};

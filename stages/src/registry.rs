@@ -34,6 +34,11 @@ pub static CATALOG: &[&dyn Stage] = &[
     &crate::eds::identify::EdsIdentify,
     &crate::eds::net_intensity::NetIntensity,
     &crate::eds::cliff_lorimer::CliffLorimer,
+    // quantification: diffraction
+    &crate::xrd::bragg::XrdBragg,
+    &crate::xrd::scherrer::Scherrer,
+    &crate::xrd::cubic::CubicLattice,
+    &crate::xrd::index::XrdIndex,
     // gather
     &crate::gather::table::GatherTable,
 ];
