@@ -26,6 +26,14 @@ pub mod peaks;
 pub mod reference;
 pub mod transform;
 pub mod units;
+// quantification (issue 4)
+pub mod calibration;
+pub mod eds;
+pub mod nmr;
+pub mod quant_util;
+pub mod uvvis;
+pub mod xps;
+pub mod xrd;
 
 pub use registry::{find, CATALOG};
 pub use stage::{Stage, StageError, TypedStage};

@@ -13,6 +13,34 @@ pub static CATALOG: &[&dyn Stage] = &[
     &crate::measure::maximum::Maximum,
     // fit
     &crate::fit::peaks::FitPeaks,
+    // quantification: calibration curves
+    &crate::calibration::curve::CalibrationCurve,
+    // quantification: NMR
+    &crate::nmr::integrate::NmrIntegrate,
+    &crate::nmr::coupling::NmrCoupling,
+    &crate::nmr::qnmr::QnmrPurity,
+    // quantification: UV-vis
+    &crate::uvvis::absorbance::UvvisAbsorbance,
+    &crate::uvvis::peak::UvvisPeak,
+    &crate::uvvis::beer_lambert::BeerLambert,
+    &crate::uvvis::tauc::Tauc,
+    &crate::uvvis::onset::UvvisOnset,
+    &crate::uvvis::plasmon::UvvisPlasmon,
+    // quantification: photoelectron spectra
+    &crate::xps::atomic_percent::AtomicPercent,
+    &crate::xps::fractions::XpsFractions,
+    &crate::xps::ups::WorkFunction,
+    &crate::xps::ups::ValenceBandMaximum,
+    // quantification: EDS
+    &crate::eds::calibrate::EdsCalibrate,
+    &crate::eds::identify::EdsIdentify,
+    &crate::eds::net_intensity::NetIntensity,
+    &crate::eds::cliff_lorimer::CliffLorimer,
+    // quantification: diffraction
+    &crate::xrd::bragg::XrdBragg,
+    &crate::xrd::scherrer::Scherrer,
+    &crate::xrd::cubic::CubicLattice,
+    &crate::xrd::index::XrdIndex,
     // gather
     &crate::gather::table::GatherTable,
     // spectral core: import

@@ -1,0 +1,3 @@
+pub mod coupling;
+pub mod integrate;
+pub mod qnmr;
