@@ -16,6 +16,14 @@ pub mod import;
 pub mod measure;
 pub mod smooth;
 
+// image analysis families
+pub mod ediff;
+pub mod elements;
+pub mod image;
+pub mod lattice;
+pub mod particles;
+pub mod surface;
+
 pub use registry::{find, CATALOG};
 pub use stage::{Stage, StageError, TypedStage};
 pub use value::*;

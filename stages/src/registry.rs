@@ -11,6 +11,18 @@ pub static CATALOG: &[&dyn Stage] = &[
     &crate::smooth::moving_average::MovingAverage,
     // measure
     &crate::measure::maximum::Maximum,
+    // image (import and preparation)
+    &crate::image::import::ImportImage,
+    &crate::image::filters::Gaussian,
+    &crate::image::filters::Median,
+    &crate::image::filters::Flatten,
+    &crate::image::filters::Clip,
+    // particles
+    &crate::particles::threshold::Threshold,
+    &crate::particles::threshold::Morphology,
+    &crate::particles::label::Label,
+    &crate::particles::measure::Measure,
+    &crate::particles::distribution::Distribution,
     // gather
     &crate::gather::table::GatherTable,
 ];
