@@ -23,6 +23,19 @@ pub static CATALOG: &[&dyn Stage] = &[
     &crate::particles::label::Label,
     &crate::particles::measure::Measure,
     &crate::particles::distribution::Distribution,
+    // surface (AFM/STM height maps)
+    &crate::surface::level::Level,
+    &crate::surface::roughness::Roughness,
+    &crate::surface::profile::Profile,
+    &crate::surface::profile::StepHeight,
+    // lattice
+    &crate::lattice::fft::LatticeFft,
+    // ediff (electron diffraction)
+    &crate::ediff::rings::RadialProfile,
+    &crate::ediff::rings::Rings,
+    // elements (element maps)
+    &crate::elements::per_particle::ElementsPerParticle,
+    &crate::elements::per_particle::ElementsOverlay,
     // gather
     &crate::gather::table::GatherTable,
 ];

@@ -1,1 +1,3 @@
-//! ediff
+//! Electron diffraction ring patterns: centre, radial profile, ring radii, d-spacings.
+
+pub mod rings;

@@ -1,1 +1,3 @@
-//! elements
+//! Element maps read out per particle, and the overlay the report draws.
+
+pub mod per_particle;

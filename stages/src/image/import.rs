@@ -557,8 +557,8 @@ mod tests {
     fn rgb_png_uses_bt709_weights() {
         let f = png_bytes(1, 1, png::ColorType::Rgb, png::BitDepth::Eight, &[100, 200, 50]);
         let (img, _) = decode("c.png", &f, &Options::default()).unwrap();
-        // BT.709: 0.2126·100 + 0.7152·200 + 0.0722·50 = 167.65
-        assert!((img.data[0] - 167.65).abs() < 1e-3);
+        // BT.709: 0.2126·100 + 0.7152·200 + 0.0722·50 = 167.91
+        assert!((img.data[0] - 167.91).abs() < 1e-3);
     }
 
     #[test]

@@ -1,1 +1,3 @@
-//! lattice
+//! Lattice spacings from the Fourier transform of lattice-resolved micrographs.
+
+pub mod fft;
