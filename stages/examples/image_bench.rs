@@ -12,7 +12,9 @@ use stages::{Axis, Image, PixelSize};
 use std::time::Instant;
 
 fn lcg(state: &mut u64) -> f64 {
-    *state = state.wrapping_mul(6364136223846793005).wrapping_add(1442695040888963407);
+    *state = state
+        .wrapping_mul(6364136223846793005)
+        .wrapping_add(1442695040888963407);
     (*state >> 11) as f64 / (1u64 << 53) as f64
 }
 
@@ -21,7 +23,11 @@ fn image(w: usize, h: usize, data: Vec<f32>) -> Image {
         width: w,
         height: h,
         data,
-        pixel_size: Some(PixelSize { x: 1.0, y: 1.0, unit: "nm".into() }),
+        pixel_size: Some(PixelSize {
+            x: 1.0,
+            y: 1.0,
+            unit: "nm".into(),
+        }),
         z_axis: Axis::new("intensity", "counts"),
         source_bits: 16,
         metadata: Default::default(),
@@ -33,7 +39,8 @@ fn particles_image(n: usize) -> Image {
     let mut data: Vec<f32> = (0..n * n)
         .map(|i| {
             let (c, r) = ((i % n) as f64, (i / n) as f64);
-            (8000.0 + 3000.0 * (c / n as f64) + 2000.0 * (r / n as f64) + 600.0 * lcg(&mut s)) as f32
+            (8000.0 + 3000.0 * (c / n as f64) + 2000.0 * (r / n as f64) + 600.0 * lcg(&mut s))
+                as f32
         })
         .collect();
     // About 20 000 discs of radius 4–14 px on a jittered grid.
@@ -79,7 +86,8 @@ fn main() {
     let lattice: Vec<f32> = (0..m * m)
         .map(|i| {
             let (x, y) = ((i % m) as f64, (i / m) as f64);
-            (1000.0 + 100.0 * (x * 0.137 + y * 0.05).cos() + 80.0 * (x * 0.02 - y * 0.171).cos()) as f32
+            (1000.0 + 100.0 * (x * 0.137 + y * 0.05).cos() + 80.0 * (x * 0.02 - y * 0.171).cos())
+                as f32
         })
         .collect();
     let limg = image(m, m, lattice);

@@ -27,7 +27,12 @@ fn two_discs(shift: (isize, isize), a_in: [f64; 2], back: f64) -> Artifact {
 #[test]
 fn per_particle_fractions_and_registration() {
     let micro = two_discs((0, 0), [1000.0, 1000.0], 100.0);
-    let mask = run("particles.threshold", vec![PortValue::One(&micro)], json!({})).unwrap();
+    let mask = run(
+        "particles.threshold",
+        vec![PortValue::One(&micro)],
+        json!({}),
+    )
+    .unwrap();
     let labels = run("particles.label", vec![PortValue::One(&mask)], json!({})).unwrap();
     for (shift, register) in [((0, 0), false), ((3, -2), true)] {
         let ma = two_discs(shift, [8.0, 3.0], 0.0);
@@ -41,14 +46,26 @@ fn per_particle_fractions_and_registration() {
         .unwrap();
         let fa = column(&t, "Au.fraction");
         let fb = column(&t, "Ag.fraction");
-        assert!((fa[0] - 0.8).abs() < 1e-12 && (fb[0] - 0.2).abs() < 1e-12, "{fa:?}");
-        assert!((fa[1] - 0.25).abs() < 1e-12 && (fb[1] - 0.75).abs() < 1e-12, "{fa:?}");
+        assert!(
+            (fa[0] - 0.8).abs() < 1e-12 && (fb[0] - 0.2).abs() < 1e-12,
+            "{fa:?}"
+        );
+        assert!(
+            (fa[1] - 0.25).abs() < 1e-12 && (fb[1] - 0.75).abs() < 1e-12,
+            "{fa:?}"
+        );
         // Share of each map's signal inside each particle: 8/(8+3) of map A in particle 1.
         let sa = column(&t, "Au.share");
         assert!((sa[0] - 8.0 / 11.0).abs() < 1e-9);
         assert_eq!(num(&t, "count"), 2.0);
         if register {
-            assert!(t.notes.iter().any(|n| n.text.contains("shifted by (3, -2) px")), "{:?}", t.notes);
+            assert!(
+                t.notes
+                    .iter()
+                    .any(|n| n.text.contains("shifted by (3, -2) px")),
+                "{:?}",
+                t.notes
+            );
         }
         let maps = PortValue::Many(vec![("au_map", &ma), ("ag_map", &mb)]);
         let o = run(

@@ -9,7 +9,9 @@ use stages::{Artifact, InputFile, Value};
 use std::f64::consts::PI;
 
 fn data_path(rel: &str) -> std::path::PathBuf {
-    std::path::PathBuf::from(env!("CARGO_MANIFEST_DIR")).join("data").join(rel)
+    std::path::PathBuf::from(env!("CARGO_MANIFEST_DIR"))
+        .join("data")
+        .join(rel)
 }
 
 /// Source: scikit-image 0.24.0 `threshold_otsu` (numpy 2.1.3), values committed by
@@ -23,14 +25,24 @@ fn otsu_threshold_matches_scikit_image() {
     for (name, v) in values {
         let file = v["file"].as_str().unwrap();
         let bytes = std::fs::read(data_path(file)).unwrap();
-        let f = Artifact::new(Value::File(InputFile { name: file.into(), bytes }));
+        let f = Artifact::new(Value::File(InputFile {
+            name: file.into(),
+            bytes,
+        }));
         let img = run1("image.import", &f, json!({}));
-        let mask = run1("particles.threshold", &img, json!({ "method": "otsu", "bins": 256 }));
+        let mask = run1(
+            "particles.threshold",
+            &img,
+            json!({ "method": "otsu", "bins": 256 }),
+        );
         let t = num(&mask, "threshold");
         let expected = v["threshold"].as_f64().unwrap();
         let bin = v["bin_width"].as_f64().unwrap();
         // Same histogram and criterion: the same bin centre, up to float rounding.
-        assert!((t - expected).abs() <= 1e-6 * bin.max(1.0), "{name}: {t} vs scikit-image {expected}");
+        assert!(
+            (t - expected).abs() <= 1e-6 * bin.max(1.0),
+            "{name}: {t} vs scikit-image {expected}"
+        );
     }
 }
 
@@ -40,7 +52,11 @@ fn discs(w: usize, h: usize, list: &[(f64, f64, f64)], pixel: Option<(f64, &str)
         let inside = list
             .iter()
             .any(|&(cx, cy, rad)| (c as f64 - cx).powi(2) + (r as f64 - cy).powi(2) <= rad * rad);
-        if inside { 1000.0 } else { 100.0 }
+        if inside {
+            1000.0
+        } else {
+            100.0
+        }
     })
 }
 
@@ -52,14 +68,30 @@ fn discs(w: usize, h: usize, list: &[(f64, f64, f64)], pixel: Option<(f64, &str)
 #[test]
 fn discs_of_known_radius_are_measured() {
     let px = 2.0; // nm per pixel
-    let list = [(30.0, 30.0, 5.0), (80.0, 35.0, 8.0), (40.0, 90.0, 12.0), (110.0, 110.0, 20.0), (0.0, 70.0, 6.0), (140.0, 20.0, 0.5)];
+    let list = [
+        (30.0, 30.0, 5.0),
+        (80.0, 35.0, 8.0),
+        (40.0, 90.0, 12.0),
+        (110.0, 110.0, 20.0),
+        (0.0, 70.0, 6.0),
+        (140.0, 20.0, 0.5),
+    ];
     let img = discs(150, 140, &list, Some((px, "nm")));
     let mask = run1("particles.threshold", &img, json!({}));
-    let labels = run1("particles.label", &mask, json!({ "connectivity": 8, "exclude_border": true, "min_area": 5 }));
+    let labels = run1(
+        "particles.label",
+        &mask,
+        json!({ "connectivity": 8, "exclude_border": true, "min_area": 5 }),
+    );
     assert_eq!(num(&labels, "count"), 4.0);
     assert_eq!(num(&labels, "excluded_border"), 1.0);
     assert_eq!(num(&labels, "excluded_small"), 1.0);
-    let m = run("particles.measure", vec![PortValue::One(&labels), PortValue::One(&img)], json!({})).unwrap();
+    let m = run(
+        "particles.measure",
+        vec![PortValue::One(&labels), PortValue::One(&img)],
+        json!({}),
+    )
+    .unwrap();
     let area = column(&m, "area");
     let ecd = column(&m, "equivalent_diameter");
     let fmax = column(&m, "feret_max");
@@ -71,21 +103,39 @@ fn discs_of_known_radius_are_measured() {
     // Labels are numbered in raster order of first pixel: (30,30), (80,35), (40,90), (110,110).
     for (k, &(x0, y0, r)) in list[..4].iter().enumerate() {
         let a = area[k] / (px * px);
-        assert!((a - PI * r * r).abs() <= PI * r, "r={r}: {a} px² vs π r² = {}", PI * r * r);
-        assert!((ecd[k] / px - 2.0 * r).abs() <= 1.0, "r={r}: ECD {}", ecd[k] / px);
+        assert!(
+            (a - PI * r * r).abs() <= PI * r,
+            "r={r}: {a} px² vs π r² = {}",
+            PI * r * r
+        );
+        assert!(
+            (ecd[k] / px - 2.0 * r).abs() <= 1.0,
+            "r={r}: ECD {}",
+            ecd[k] / px
+        );
         for f in [fmax[k], fmin[k]] {
             let f = f / px;
-            assert!(f >= 2.0 * r - 1e-9 && f <= 2.0 * r + 2f64.sqrt() + 1e-9, "r={r}: Feret {f}");
+            assert!(
+                f >= 2.0 * r - 1e-9 && f <= 2.0 * r + 2f64.sqrt() + 1e-9,
+                "r={r}: Feret {f}"
+            );
         }
         // Circularity of a disc is 1 (analytic); the digital Crofton perimeter carries a
         // discretisation bias of order one pixel, so the stated tolerance is 1/r.
         eprintln!("r={r}: circularity {}", circ[k]);
-        assert!((circ[k] - 1.0).abs() < 1.0 / r, "r={r}: circularity {}", circ[k]);
+        assert!(
+            (circ[k] - 1.0).abs() < 1.0 / r,
+            "r={r}: circularity {}",
+            circ[k]
+        );
         // Centroid: the disc centre (pixel centres at c + 0.5), exact by symmetry.
         assert!((cx[k] - (x0 + 0.5) * px).abs() < 1e-9 && (cy[k] - (y0 + 0.5) * px).abs() < 1e-9);
         assert_eq!(mean_i[k], 1000.0);
     }
-    assert_eq!(m.result("threshold_method").map(|r| r.value.clone()), Some(stages::Scalar::Text("otsu".into())));
+    assert_eq!(
+        m.result("threshold_method").map(|r| r.value.clone()),
+        Some(stages::Scalar::Text("otsu".into()))
+    );
     assert_eq!(num(&m, "excluded_border"), 1.0);
 }
 
@@ -99,16 +149,32 @@ fn watershed_splits_two_overlapping_discs() {
     let mask = run1("particles.threshold", &img, json!({}));
     let whole = run1("particles.label", &mask, json!({}));
     assert_eq!(num(&whole, "count"), 1.0);
-    let split = run1("particles.label", &mask, json!({ "split": true, "smooth": 1.0, "min_height": 1.0 }));
+    let split = run1(
+        "particles.label",
+        &mask,
+        json!({ "split": true, "smooth": 1.0, "min_height": 1.0 }),
+    );
     assert_eq!(num(&split, "count"), 2.0);
-    let m = run("particles.measure", vec![PortValue::One(&split), PortValue::Missing], json!({})).unwrap();
+    let m = run(
+        "particles.measure",
+        vec![PortValue::One(&split), PortValue::Missing],
+        json!({}),
+    )
+    .unwrap();
     let cx = column(&m, "centroid_x");
     let area = column(&m, "area");
-    assert!((cx[0] - 40.5).abs() < 2.0 && (cx[1] - 62.5).abs() < 2.0, "{cx:?}");
+    assert!(
+        (cx[0] - 40.5).abs() < 2.0 && (cx[1] - 62.5).abs() < 2.0,
+        "{cx:?}"
+    );
     assert!((area[0] - area[1]).abs() <= 0.05 * area[0], "{area:?}");
     // A lone disc must not be over-split.
     let one = discs(60, 60, &[(30.0, 30.0, 14.0)], None);
-    let l1 = run1("particles.label", &run1("particles.threshold", &one, json!({})), json!({ "split": true }));
+    let l1 = run1(
+        "particles.label",
+        &run1("particles.threshold", &one, json!({})),
+        json!({ "split": true }),
+    );
     assert_eq!(num(&l1, "count"), 1.0);
 }
 
@@ -116,12 +182,28 @@ fn watershed_splits_two_overlapping_discs() {
 /// and the warning below 100 particles.
 #[test]
 fn distribution_over_images_reports_n_and_warns() {
-    let a = discs(100, 100, &[(25.0, 25.0, 6.0), (70.0, 60.0, 9.0), (0.0, 50.0, 5.0)], Some((1.5, "nm")));
+    let a = discs(
+        100,
+        100,
+        &[(25.0, 25.0, 6.0), (70.0, 60.0, 9.0), (0.0, 50.0, 5.0)],
+        Some((1.5, "nm")),
+    );
     let b = discs(100, 100, &[(30.0, 70.0, 7.0)], Some((1.5, "nm")));
     let mut tables = Vec::new();
     for img in [&a, &b] {
-        let l = run1("particles.label", &run1("particles.threshold", img, json!({})), json!({}));
-        tables.push(run("particles.measure", vec![PortValue::One(&l), PortValue::One(img)], json!({})).unwrap());
+        let l = run1(
+            "particles.label",
+            &run1("particles.threshold", img, json!({})),
+            json!({}),
+        );
+        tables.push(
+            run(
+                "particles.measure",
+                vec![PortValue::One(&l), PortValue::One(img)],
+                json!({}),
+            )
+            .unwrap(),
+        );
     }
     let port = PortValue::Many(vec![("a", &tables[0]), ("b", &tables[1])]);
     let d = run("particles.distribution", vec![port], json!({})).unwrap();
@@ -142,10 +224,22 @@ fn adaptive_threshold_and_opening() {
         let ramp = 20.0 * c as f64;
         let disc = |x: f64, y: f64| (c as f64 - x).powi(2) + (r as f64 - y).powi(2) <= 49.0;
         let speck = (c, r) == (60, 10);
-        ramp + if disc(20.0, 30.0) || disc(95.0, 30.0) || speck { 300.0 } else { 0.0 }
+        ramp + if disc(20.0, 30.0) || disc(95.0, 30.0) || speck {
+            300.0
+        } else {
+            0.0
+        }
     });
-    let mask = run1("particles.threshold", &img, json!({ "method": "adaptive_mean", "window": 31, "offset": 50 }));
-    let opened = run1("particles.morphology", &mask, json!({ "operation": "open", "shape": "disk", "radius": 1 }));
+    let mask = run1(
+        "particles.threshold",
+        &img,
+        json!({ "method": "adaptive_mean", "window": 31, "offset": 50 }),
+    );
+    let opened = run1(
+        "particles.morphology",
+        &mask,
+        json!({ "operation": "open", "shape": "disk", "radius": 1 }),
+    );
     let l = run1("particles.label", &opened, json!({}));
     assert_eq!(num(&l, "count"), 2.0);
 }

@@ -27,7 +27,9 @@
 use crate::image::common::{check_image, image_in, pixel_dims};
 use crate::lattice::fft::fft2;
 use crate::stage::{Inputs, OptionError, Port, Reference, StageError, StageInfo, TypedStage};
-use crate::value::{Artifact, Axis, Column, ColumnData, Image, Kind, Record, Spectrum, Table, Value};
+use crate::value::{
+    Artifact, Axis, Column, ColumnData, Image, Kind, Record, Spectrum, Table, Value,
+};
 use nalgebra::{DMatrix, DVector};
 use rustfft::num_complex::Complex;
 use schemars::JsonSchema;
@@ -58,7 +60,12 @@ pub const MARQUARDT1963: Reference = Reference {
 /// Relativistic electron wavelength in metres for an accelerating voltage in volts.
 pub fn electron_wavelength(volts: f64) -> f64 {
     let ev = ELEMENTARY_CHARGE * volts;
-    PLANCK / (2.0 * ELECTRON_MASS * ev * (1.0 + ev / (2.0 * ELECTRON_MASS * SPEED_OF_LIGHT * SPEED_OF_LIGHT))).sqrt()
+    PLANCK
+        / (2.0
+            * ELECTRON_MASS
+            * ev
+            * (1.0 + ev / (2.0 * ELECTRON_MASS * SPEED_OF_LIGHT * SPEED_OF_LIGHT)))
+            .sqrt()
 }
 
 // ---------------------------------------------------------------- ediff.radial_profile
@@ -91,13 +98,22 @@ pub struct ProfileOptions {
 
 impl Default for ProfileOptions {
     fn default() -> Self {
-        ProfileOptions { centre_method: CentreMethod::Symmetry, centre: None, bin: 1.0, max_radius: None }
+        ProfileOptions {
+            centre_method: CentreMethod::Symmetry,
+            centre: None,
+            bin: 1.0,
+            max_radius: None,
+        }
     }
 }
 
 pub struct RadialProfile;
 
-static IMAGE_IN: &[Port] = &[Port::each("pattern", Kind::Image, "an electron diffraction pattern")];
+static IMAGE_IN: &[Port] = &[Port::each(
+    "pattern",
+    Kind::Image,
+    "an electron diffraction pattern",
+)];
 
 impl TypedStage for RadialProfile {
     type Options = ProfileOptions;
@@ -114,7 +130,10 @@ impl TypedStage for RadialProfile {
             return Err(OptionError::new("bin", "the bin width must be positive"));
         }
         if o.centre_method == CentreMethod::Given && o.centre.is_none() {
-            return Err(OptionError::new("centre", "the given method needs a centre [x, y]"));
+            return Err(OptionError::new(
+                "centre",
+                "the given method needs a centre [x, y]",
+            ));
         }
         Ok(())
     }
@@ -143,8 +162,14 @@ impl TypedStage for RadialProfile {
             CentreMethod::Symmetry => symmetry_centre(img)?,
             CentreMethod::BrightCentroid => bright_centroid(img)?,
         };
-        if !(cx >= 0.0 && cy >= 0.0 && cx <= (img.width - 1) as f64 && cy <= (img.height - 1) as f64) {
-            return Err(StageError::input(format!("the centre ({cx:.1}, {cy:.1}) px lies outside the pattern")));
+        if !(cx >= 0.0
+            && cy >= 0.0
+            && cx <= (img.width - 1) as f64
+            && cy <= (img.height - 1) as f64)
+        {
+            return Err(StageError::input(format!(
+                "the centre ({cx:.1}, {cy:.1}) px lies outside the pattern"
+            )));
         }
         let s = radial_profile(img, (cx, cy), o.bin, o.max_radius)?;
         Ok(Artifact::new(Value::Spectrum(s)).with_results(vec![
@@ -177,13 +202,19 @@ pub fn symmetry_centre(img: &Image) -> Result<(f64, f64), StageError> {
         }
     }
     if !best.is_finite() || best <= 0.0 {
-        return Err(StageError::numeric("the pattern has no symmetric structure to find a centre from"));
+        return Err(StageError::numeric(
+            "the pattern has no symmetric structure to find a centre from",
+        ));
     }
     let (sc, sr) = (bi % pw, bi / pw);
     let g = |c: usize, r: usize| re[(r % ph) * pw + (c % pw)];
     let refine = |m: f64, z: f64, p: f64| {
         let den = m - 2.0 * z + p;
-        if den < 0.0 { (0.5 * (m - p) / den).clamp(-0.5, 0.5) } else { 0.0 }
+        if den < 0.0 {
+            (0.5 * (m - p) / den).clamp(-0.5, 0.5)
+        } else {
+            0.0
+        }
     };
     let dx = refine(g(sc + pw - 1, sr), best, g(sc + 1, sr));
     let dy = refine(g(sc, sr + ph - 1), best, g(sc, sr + 1));
@@ -205,20 +236,29 @@ pub fn bright_centroid(img: &Image) -> Result<(f64, f64), StageError> {
         }
     }
     if sw <= 0.0 {
-        return Err(StageError::numeric("no bright pixels to take a centroid of"));
+        return Err(StageError::numeric(
+            "no bright pixels to take a centroid of",
+        ));
     }
     Ok((sx / sw, sy / sw))
 }
 
 /// Azimuthal average about `centre` (pixel coordinates) in bins of `bin` pixels.
-pub fn radial_profile(img: &Image, centre: (f64, f64), bin: f64, max_radius: Option<f64>) -> Result<Spectrum, StageError> {
+pub fn radial_profile(
+    img: &Image,
+    centre: (f64, f64),
+    bin: f64,
+    max_radius: Option<f64>,
+) -> Result<Spectrum, StageError> {
     let (w, h) = (img.width, img.height);
     let (cx, cy) = centre;
     let inside = cx.min(cy).min((w - 1) as f64 - cx).min((h - 1) as f64 - cy);
     let rmax = max_radius.unwrap_or(inside).max(bin);
     let nb = (rmax / bin).floor() as usize;
     if nb < 3 {
-        return Err(StageError::input("fewer than 3 radial bins fit in the pattern around its centre"));
+        return Err(StageError::input(
+            "fewer than 3 radial bins fit in the pattern around its centre",
+        ));
     }
     let mut sum = vec![0.0; nb];
     let mut cnt = vec![0usize; nb];
@@ -241,7 +281,11 @@ pub fn radial_profile(img: &Image, centre: (f64, f64), bin: f64, max_radius: Opt
     }
     let (px, _, unit) = pixel_dims(&img.pixel_size);
     let recip = unit.starts_with("1/");
-    let x_axis = if recip { Axis::new("scattering vector", unit.clone()) } else { Axis::new("radius", "px") };
+    let x_axis = if recip {
+        Axis::new("scattering vector", unit.clone())
+    } else {
+        Axis::new("radius", "px")
+    };
     if recip {
         x.iter_mut().for_each(|v| *v *= px);
     }
@@ -331,7 +375,11 @@ pub struct Ring {
 
 pub struct Rings;
 
-static PROFILE_IN: &[Port] = &[Port::each("profile", Kind::Spectrum, "a radial profile (ediff.radial_profile)")];
+static PROFILE_IN: &[Port] = &[Port::each(
+    "profile",
+    Kind::Spectrum,
+    "a radial profile (ediff.radial_profile)",
+)];
 static RING_REFS: &[Reference] = &[MARQUARDT1963, WILLIAMS2009, CODATA2018];
 
 impl TypedStage for Rings {
@@ -357,17 +405,33 @@ impl TypedStage for Rings {
         if !(o.tolerance > 0.0) {
             return Err(OptionError::new("tolerance", "must be positive"));
         }
-        let routes = [o.camera_constant.is_some(), o.voltage_kv.is_some(), o.calibrant.is_some()];
+        let routes = [
+            o.camera_constant.is_some(),
+            o.voltage_kv.is_some(),
+            o.calibrant.is_some(),
+        ];
         if routes.iter().filter(|&&b| b).count() > 1 {
             return Err(OptionError::new("camera_constant", "give one of camera_constant, voltage_kv (with camera_length_mm and detector_pixel_um) or calibrant"));
         }
-        if o.voltage_kv.is_some() && (o.camera_length_mm.is_none() || o.detector_pixel_um.is_none()) {
-            return Err(OptionError::new("camera_length_mm", "voltage_kv needs camera_length_mm and detector_pixel_um"));
+        if o.voltage_kv.is_some() && (o.camera_length_mm.is_none() || o.detector_pixel_um.is_none())
+        {
+            return Err(OptionError::new(
+                "camera_length_mm",
+                "voltage_kv needs camera_length_mm and detector_pixel_um",
+            ));
         }
         if o.voltage_kv.is_some() && !matches!(o.d_unit.as_str(), "nm" | "Å" | "pm") {
-            return Err(OptionError::new("d_unit", "with voltage_kv the spacing unit must be nm, Å or pm"));
+            return Err(OptionError::new(
+                "d_unit",
+                "with voltage_kv the spacing unit must be nm, Å or pm",
+            ));
         }
-        for (k, v) in [("camera_constant", o.camera_constant), ("voltage_kv", o.voltage_kv), ("camera_length_mm", o.camera_length_mm), ("detector_pixel_um", o.detector_pixel_um)] {
+        for (k, v) in [
+            ("camera_constant", o.camera_constant),
+            ("voltage_kv", o.voltage_kv),
+            ("camera_length_mm", o.camera_length_mm),
+            ("detector_pixel_um", o.detector_pixel_um),
+        ] {
             if let Some(v) = v {
                 if !(v > 0.0 && v.is_finite()) {
                     return Err(OptionError::new(k, "must be positive"));
@@ -379,19 +443,29 @@ impl TypedStage for Rings {
     fn methods(&self, o: &RingsOptions) -> String {
         let cal = if let Some(c) = o.camera_constant {
             format!("d = λL/R with a camera constant λL = {c} {}·px", o.d_unit)
-        } else if let (Some(v), Some(l), Some(p)) = (o.voltage_kv, o.camera_length_mm, o.detector_pixel_um) {
+        } else if let (Some(v), Some(l), Some(p)) =
+            (o.voltage_kv, o.camera_length_mm, o.detector_pixel_um)
+        {
             format!(
                 "d = λL/R with the relativistic electron wavelength at {v} kV [williams2009] from CODATA 2018 constants [codata2018], a camera length of {l} mm and a detector pixel of {p} µm"
             )
         } else if let Some(c) = &o.calibrant {
-            format!("d = λL/R with λL calibrated on ring {} of the reference (d = {} {})", c.ring, c.d, o.d_unit)
+            format!(
+                "d = λL/R with λL calibrated on ring {} of the reference (d = {} {})",
+                c.ring, c.d, o.d_unit
+            )
         } else {
-            "d = 1/R on a profile in reciprocal length (radii in pixels when uncalibrated)".to_string()
+            "d = 1/R on a profile in reciprocal length (radii in pixels when uncalibrated)"
+                .to_string()
         };
         let index = if o.expected.is_empty() {
             String::new()
         } else {
-            format!(", and rings were indexed against {} expected spacings within {}%", o.expected.len(), o.tolerance * 100.0)
+            format!(
+                ", and rings were indexed against {} expected spacings within {}%",
+                o.expected.len(),
+                o.tolerance * 100.0
+            )
         };
         format!(
             "Ring radii were found as profile maxima of prominence at least {} of the profile range and fitted within ±{} of each maximum by a Gaussian on a linear background (Levenberg–Marquardt [marquardt1963]); {cal}{index}.",
@@ -407,25 +481,41 @@ impl TypedStage for Rings {
         // Camera constant (d_unit·px) and its standard uncertainty.
         let (lam_l, lam_l_u): (Option<f64>, f64) = if let Some(c) = o.camera_constant {
             (Some(c), 0.0)
-        } else if let (Some(v), Some(l), Some(p)) = (o.voltage_kv, o.camera_length_mm, o.detector_pixel_um) {
+        } else if let (Some(v), Some(l), Some(p)) =
+            (o.voltage_kv, o.camera_length_mm, o.detector_pixel_um)
+        {
             let lambda_m = electron_wavelength(v * 1e3);
             let scale = match o.d_unit.as_str() {
                 "Å" => 1e10,
                 "pm" => 1e12,
                 _ => 1e9,
             };
-            a.record(Record::number("electron_wavelength", lambda_m * 1e12, None, "pm"));
+            a.record(Record::number(
+                "electron_wavelength",
+                lambda_m * 1e12,
+                None,
+                "pm",
+            ));
             (Some(lambda_m * scale * (l * 1e-3) / (p * 1e-6)), 0.0)
         } else if let Some(c) = &o.calibrant {
             let r = rings.get(c.ring.wrapping_sub(1)).ok_or_else(|| {
-                StageError::input(format!("calibrant ring {} not found: {} ring(s) were found", c.ring, rings.len()))
+                StageError::input(format!(
+                    "calibrant ring {} not found: {} ring(s) were found",
+                    c.ring,
+                    rings.len()
+                ))
             })?;
             (Some(c.d * r.radius), c.d * r.radius_u)
         } else {
             (None, 0.0)
         };
         if let Some(l) = lam_l {
-            a.record(Record::number("camera_constant", l, if lam_l_u > 0.0 { Some(lam_l_u) } else { None }, &format!("{}·px", o.d_unit)));
+            a.record(Record::number(
+                "camera_constant",
+                l,
+                if lam_l_u > 0.0 { Some(lam_l_u) } else { None },
+                &format!("{}·px", o.d_unit),
+            ));
         }
         let d_unit = if lam_l.is_some() {
             o.d_unit.clone()
@@ -439,7 +529,10 @@ impl TypedStage for Rings {
             let (d, du) = match lam_l {
                 Some(l) => {
                     let d = l / r.radius;
-                    (d, d * ((r.radius_u / r.radius).powi(2) + (lam_l_u / l).powi(2)).sqrt())
+                    (
+                        d,
+                        d * ((r.radius_u / r.radius).powi(2) + (lam_l_u / l).powi(2)).sqrt(),
+                    )
                 }
                 None => (1.0 / r.radius, r.radius_u / (r.radius * r.radius)),
             };
@@ -449,7 +542,12 @@ impl TypedStage for Rings {
         let mut devs = Vec::new();
         for (i, &(d, du)) in ds.iter().enumerate() {
             let n = i + 1;
-            a.record(Record::number(format!("ring{n}.radius"), rings[i].radius, Some(rings[i].radius_u), &s.x_axis.unit));
+            a.record(Record::number(
+                format!("ring{n}.radius"),
+                rings[i].radius,
+                Some(rings[i].radius_u),
+                &s.x_axis.unit,
+            ));
             a.record(Record::number(format!("ring{n}.d"), d, Some(du), &d_unit));
             let best = o
                 .expected
@@ -471,7 +569,10 @@ impl TypedStage for Rings {
         if !o.expected.is_empty() {
             let unmatched = labels.iter().filter(|l| l.is_empty()).count();
             if unmatched > 0 {
-                a.warn(format!("{unmatched} ring(s) match no expected spacing within {}%", o.tolerance * 100.0));
+                a.warn(format!(
+                    "{unmatched} ring(s) match no expected spacing within {}%",
+                    o.tolerance * 100.0
+                ));
             }
         }
         if lam_l.is_none() && !recip {
@@ -480,16 +581,43 @@ impl TypedStage for Rings {
         let num = |name: &str, unit: &str, v: Vec<f64>, u: Option<Vec<f64>>| Column {
             name: name.into(),
             unit: unit.into(),
-            data: ColumnData::Number { values: v, uncertainty: u },
+            data: ColumnData::Number {
+                values: v,
+                uncertainty: u,
+            },
         };
         a.value = Value::Table(Table {
             title: "diffraction rings".into(),
             columns: vec![
-                num("ring", "", (1..=rings.len()).map(|i| i as f64).collect(), None),
-                num("radius", &s.x_axis.unit, rings.iter().map(|r| r.radius).collect(), Some(rings.iter().map(|r| r.radius_u).collect())),
-                num("fwhm", &s.x_axis.unit, rings.iter().map(|r| r.fwhm).collect(), None),
-                num("d", &d_unit, ds.iter().map(|v| v.0).collect(), Some(ds.iter().map(|v| v.1).collect())),
-                Column { name: "index".into(), unit: String::new(), data: ColumnData::Text(labels) },
+                num(
+                    "ring",
+                    "",
+                    (1..=rings.len()).map(|i| i as f64).collect(),
+                    None,
+                ),
+                num(
+                    "radius",
+                    &s.x_axis.unit,
+                    rings.iter().map(|r| r.radius).collect(),
+                    Some(rings.iter().map(|r| r.radius_u).collect()),
+                ),
+                num(
+                    "fwhm",
+                    &s.x_axis.unit,
+                    rings.iter().map(|r| r.fwhm).collect(),
+                    None,
+                ),
+                num(
+                    "d",
+                    &d_unit,
+                    ds.iter().map(|v| v.0).collect(),
+                    Some(ds.iter().map(|v| v.1).collect()),
+                ),
+                Column {
+                    name: "index".into(),
+                    unit: String::new(),
+                    data: ColumnData::Text(labels),
+                },
                 num("relative_deviation", "", devs, None),
             ],
         });
@@ -503,7 +631,11 @@ pub fn find_rings(x: &[f64], y: &[f64], o: &RingsOptions) -> Result<Vec<Ring>, S
     if n < 5 {
         return Err(StageError::input("the profile has fewer than 5 points"));
     }
-    let (lo, hi) = y.iter().fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), &v| (a.min(v), b.max(v)));
+    let (lo, hi) = y
+        .iter()
+        .fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), &v| {
+            (a.min(v), b.max(v))
+        });
     let range = hi - lo;
     if !(range > 0.0) {
         return Err(StageError::input("the profile is flat: no rings"));
@@ -541,7 +673,9 @@ pub fn find_rings(x: &[f64], y: &[f64], o: &RingsOptions) -> Result<Vec<Ring>, S
     peaks.truncate(o.max_rings);
     let mut rings = Vec::new();
     for &(prom, i) in &peaks {
-        let idx: Vec<usize> = (0..n).filter(|&k| (x[k] - x[i]).abs() <= o.window).collect();
+        let idx: Vec<usize> = (0..n)
+            .filter(|&k| (x[k] - x[i]).abs() <= o.window)
+            .collect();
         if idx.len() < 6 {
             continue;
         }
@@ -572,9 +706,20 @@ pub fn fit_gaussian(x: &[f64], y: &[f64], x0: f64, a0: f64, s0: f64) -> Option<R
     let jac_row = |p: &[f64; 5], xi: f64| {
         let t = (xi - p[1]) / p[2];
         let e = (-0.5 * t * t).exp();
-        [e, p[0] * e * t / p[2], p[0] * e * t * t / p[2], 1.0, xi - x0]
+        [
+            e,
+            p[0] * e * t / p[2],
+            p[0] * e * t * t / p[2],
+            1.0,
+            xi - x0,
+        ]
     };
-    let ssr = |p: &[f64; 5]| x.iter().zip(y).map(|(&xi, &yi)| (yi - model(p, xi)).powi(2)).sum::<f64>();
+    let ssr = |p: &[f64; 5]| {
+        x.iter()
+            .zip(y)
+            .map(|(&xi, &yi)| (yi - model(p, xi)).powi(2))
+            .sum::<f64>()
+    };
     let mut cost = ssr(&p);
     let mut lambda = 1e-3;
     for _ in 0..200 {
@@ -623,7 +768,13 @@ pub fn fit_gaussian(x: &[f64], y: &[f64], x0: f64, a0: f64, s0: f64) -> Option<R
     finish(&p, cost, n, x, &jac_row)
 }
 
-fn finish(p: &[f64; 5], cost: f64, n: usize, x: &[f64], jac_row: &dyn Fn(&[f64; 5], f64) -> [f64; 5]) -> Option<Ring> {
+fn finish(
+    p: &[f64; 5],
+    cost: f64,
+    n: usize,
+    x: &[f64],
+    jac_row: &dyn Fn(&[f64; 5], f64) -> [f64; 5],
+) -> Option<Ring> {
     if n <= 5 || !(p[0] > 0.0) {
         return None;
     }
@@ -642,7 +793,12 @@ fn finish(p: &[f64; 5], cost: f64, n: usize, x: &[f64], jac_row: &dyn Fn(&[f64; 
     if !p[1].is_finite() || !ru.is_finite() {
         return None;
     }
-    Some(Ring { radius: p[1], radius_u: ru, fwhm: 2.0 * (2.0 * 2f64.ln()).sqrt() * p[2], height: p[0] })
+    Some(Ring {
+        radius: p[1],
+        radius_u: ru,
+        fwhm: 2.0 * (2.0 * 2f64.ln()).sqrt() * p[2],
+        height: p[0],
+    })
 }
 
 #[cfg(test)]
@@ -652,7 +808,10 @@ mod tests {
     #[test]
     fn gaussian_fit_recovers_its_parameters() {
         let x: Vec<f64> = (0..30).map(|i| 40.0 + i as f64 * 0.5).collect();
-        let y: Vec<f64> = x.iter().map(|&v| 7.0 * (-0.5 * ((v - 47.3) / 1.8f64).powi(2)).exp() + 2.0 - 0.05 * v).collect();
+        let y: Vec<f64> = x
+            .iter()
+            .map(|&v| 7.0 * (-0.5 * ((v - 47.3) / 1.8f64).powi(2)).exp() + 2.0 - 0.05 * v)
+            .collect();
         let r = fit_gaussian(&x, &y, 47.0, 6.0, 1.5).unwrap();
         assert!((r.radius - 47.3).abs() < 1e-6, "{r:?}");
         assert!((r.fwhm - 2.0 * (2.0 * 2f64.ln()).sqrt() * 1.8).abs() < 1e-5);

@@ -14,7 +14,9 @@
 
 use crate::image::common::labels_in;
 use crate::lattice::fft::fft2;
-use crate::stage::{Inputs, OptionError, Port, PortValue, Reference, StageError, StageInfo, TypedStage};
+use crate::stage::{
+    Inputs, OptionError, Port, PortValue, Reference, StageError, StageInfo, TypedStage,
+};
 use crate::value::{Artifact, Axis, Column, ColumnData, Image, Kind, Labels, Record, Table, Value};
 use rustfft::num_complex::Complex;
 use schemars::JsonSchema;
@@ -41,14 +43,23 @@ pub struct ElementOptions {
 
 impl Default for ElementOptions {
     fn default() -> Self {
-        ElementOptions { names: Vec::new(), register: false, max_shift: 32 }
+        ElementOptions {
+            names: Vec::new(),
+            register: false,
+            max_shift: 32,
+        }
     }
 }
 
 static INPUTS: &[Port] = &[
     Port::each("labels", Kind::Labels, "the labelled particles"),
     Port::several("maps", Kind::Image, "element maps of the same field"),
-    Port::each("micrograph", Kind::Image, "the micrograph the labels come from (for registration)").optional(),
+    Port::each(
+        "micrograph",
+        Kind::Image,
+        "the micrograph the labels come from (for registration)",
+    )
+    .optional(),
 ];
 
 /// The maps with their names and (dx, dy) shifts applied when reading them.
@@ -58,18 +69,30 @@ struct Maps<'a> {
     shifts: Vec<(isize, isize)>,
 }
 
-fn gather_maps<'a>(inputs: &Inputs<'a>, o: &ElementOptions, labels: &Labels) -> Result<Maps<'a>, StageError> {
+fn gather_maps<'a>(
+    inputs: &Inputs<'a>,
+    o: &ElementOptions,
+    labels: &Labels,
+) -> Result<Maps<'a>, StageError> {
     let entries: Vec<(&str, &Image)> = match inputs.ports.get(1) {
         Some(PortValue::Many(v)) => v
             .iter()
             .map(|(id, a)| match &a.value {
                 Value::Image(i) => Ok((*id, i)),
-                other => Err(StageError::input(format!("map '{id}' is a {}, not an image", other.kind().name()))),
+                other => Err(StageError::input(format!(
+                    "map '{id}' is a {}, not an image",
+                    other.kind().name()
+                ))),
             })
             .collect::<Result<_, _>>()?,
         Some(PortValue::One(a)) => match &a.value {
             Value::Image(i) => vec![("map", i)],
-            other => return Err(StageError::input(format!("the map is a {}, not an image", other.kind().name()))),
+            other => {
+                return Err(StageError::input(format!(
+                    "the map is a {}, not an image",
+                    other.kind().name()
+                )))
+            }
         },
         _ => Vec::new(),
     };
@@ -77,26 +100,47 @@ fn gather_maps<'a>(inputs: &Inputs<'a>, o: &ElementOptions, labels: &Labels) -> 
         return Err(StageError::input("no element maps were given"));
     }
     if !o.names.is_empty() && o.names.len() != entries.len() {
-        return Err(StageError::input(format!("{} names for {} maps", o.names.len(), entries.len())));
+        return Err(StageError::input(format!(
+            "{} names for {} maps",
+            o.names.len(),
+            entries.len()
+        )));
     }
     let micro = match inputs.optional(2).map(|a| &a.value) {
         Some(Value::Image(i)) => Some(i),
         _ => None,
     };
-    let mut m = Maps { names: Vec::new(), images: Vec::new(), shifts: Vec::new() };
+    let mut m = Maps {
+        names: Vec::new(),
+        images: Vec::new(),
+        shifts: Vec::new(),
+    };
     for (k, (id, img)) in entries.iter().enumerate() {
-        let name = o.names.get(k).cloned().or_else(|| img.metadata.get("element").cloned()).unwrap_or_else(|| id.to_string());
+        let name = o
+            .names
+            .get(k)
+            .cloned()
+            .or_else(|| img.metadata.get("element").cloned())
+            .unwrap_or_else(|| id.to_string());
         if m.names.contains(&name) {
-            return Err(StageError::input(format!("two maps are named '{name}'; give distinct names")));
+            return Err(StageError::input(format!(
+                "two maps are named '{name}'; give distinct names"
+            )));
         }
         let shift = match (o.register, micro) {
             (true, Some(mi)) => {
                 if mi.width != img.width || mi.height != img.height {
-                    return Err(StageError::input(format!("map '{name}' and the micrograph differ in size; resample first")));
+                    return Err(StageError::input(format!(
+                        "map '{name}' and the micrograph differ in size; resample first"
+                    )));
                 }
                 phase_correlation(mi, img, o.max_shift)?
             }
-            (true, None) => return Err(StageError::input("register is on but no micrograph was given")),
+            (true, None) => {
+                return Err(StageError::input(
+                    "register is on but no micrograph was given",
+                ))
+            }
             _ => (0, 0),
         };
         if shift == (0, 0) && (img.width != labels.width || img.height != labels.height) {
@@ -113,11 +157,19 @@ fn gather_maps<'a>(inputs: &Inputs<'a>, o: &ElementOptions, labels: &Labels) -> 
 }
 
 /// Integer shift (dx, dy) such that map(x + dx, y + dy) ≈ reference(x, y).
-pub fn phase_correlation(reference: &Image, map: &Image, max_shift: usize) -> Result<(isize, isize), StageError> {
+pub fn phase_correlation(
+    reference: &Image,
+    map: &Image,
+    max_shift: usize,
+) -> Result<(isize, isize), StageError> {
     let (w, h) = (reference.width, reference.height);
     let prep = |img: &Image| {
         let mean = img.data.iter().map(|&v| v as f64).sum::<f64>() / img.data.len() as f64;
-        let mut b: Vec<Complex<f64>> = img.data.iter().map(|&v| Complex::new(v as f64 - mean, 0.0)).collect();
+        let mut b: Vec<Complex<f64>> = img
+            .data
+            .iter()
+            .map(|&v| Complex::new(v as f64 - mean, 0.0))
+            .collect();
         fft2(&mut b, w, h, false);
         b
     };
@@ -128,7 +180,11 @@ pub fn phase_correlation(reference: &Image, map: &Image, max_shift: usize) -> Re
         .map(|(a, b)| {
             let c = b * a.conj();
             let n = c.norm();
-            if n > 1e-300 { c / n } else { Complex::new(0.0, 0.0) }
+            if n > 1e-300 {
+                c / n
+            } else {
+                Complex::new(0.0, 0.0)
+            }
         })
         .collect();
     fft2(&mut r, w, h, true);
@@ -136,7 +192,10 @@ pub fn phase_correlation(reference: &Image, map: &Image, max_shift: usize) -> Re
     let mut best = (f64::NEG_INFINITY, 0, 0);
     for dy in -ms..=ms {
         for dx in -ms..=ms {
-            let (c, rr) = (dx.rem_euclid(w as isize) as usize, dy.rem_euclid(h as isize) as usize);
+            let (c, rr) = (
+                dx.rem_euclid(w as isize) as usize,
+                dy.rem_euclid(h as isize) as usize,
+            );
             let v = r[rr * w + c].re;
             if v > best.0 {
                 best = (v, dx, dy);
@@ -144,7 +203,9 @@ pub fn phase_correlation(reference: &Image, map: &Image, max_shift: usize) -> Re
         }
     }
     if !best.0.is_finite() {
-        return Err(StageError::numeric("phase correlation failed (flat images?)"));
+        return Err(StageError::numeric(
+            "phase correlation failed (flat images?)",
+        ));
     }
     Ok((best.1, best.2))
 }
@@ -186,8 +247,30 @@ fn per_particle(l: &Labels, maps: &Maps) -> PerParticle {
                 cnt[v] += 1;
             }
         }
-        mean.push(present.iter().map(|&p| if cnt[p as usize] > 0 { sum[p as usize] / cnt[p as usize] as f64 } else { f64::NAN }).collect::<Vec<_>>());
-        share.push(present.iter().map(|&p| if total != 0.0 { sum[p as usize] / total } else { f64::NAN }).collect());
+        mean.push(
+            present
+                .iter()
+                .map(|&p| {
+                    if cnt[p as usize] > 0 {
+                        sum[p as usize] / cnt[p as usize] as f64
+                    } else {
+                        f64::NAN
+                    }
+                })
+                .collect::<Vec<_>>(),
+        );
+        share.push(
+            present
+                .iter()
+                .map(|&p| {
+                    if total != 0.0 {
+                        sum[p as usize] / total
+                    } else {
+                        f64::NAN
+                    }
+                })
+                .collect(),
+        );
     }
     let mut fraction = vec![vec![f64::NAN; present.len()]; maps.images.len()];
     for p in 0..present.len() {
@@ -198,7 +281,12 @@ fn per_particle(l: &Labels, maps: &Maps) -> PerParticle {
             }
         }
     }
-    PerParticle { labels: present, mean, share, fraction }
+    PerParticle {
+        labels: present,
+        mean,
+        share,
+        fraction,
+    }
 }
 
 pub struct ElementsPerParticle;
@@ -231,8 +319,18 @@ impl TypedStage for ElementsPerParticle {
         let l = labels_in(inputs, 0)?;
         let maps = gather_maps(inputs, o, l)?;
         let pp = per_particle(l, &maps);
-        let num = |name: String, v: Vec<f64>| Column { name, unit: String::new(), data: ColumnData::Number { values: v, uncertainty: None } };
-        let mut columns = vec![num("label".into(), pp.labels.iter().map(|&v| v as f64).collect())];
+        let num = |name: String, v: Vec<f64>| Column {
+            name,
+            unit: String::new(),
+            data: ColumnData::Number {
+                values: v,
+                uncertainty: None,
+            },
+        };
+        let mut columns = vec![num(
+            "label".into(),
+            pp.labels.iter().map(|&v| v as f64).collect(),
+        )];
         for (e, name) in maps.names.iter().enumerate() {
             let mut c = num(format!("{name}.mean"), pp.mean[e].clone());
             c.unit = maps.images[e].z_axis.unit.clone();
@@ -240,18 +338,36 @@ impl TypedStage for ElementsPerParticle {
             columns.push(num(format!("{name}.fraction"), pp.fraction[e].clone()));
             columns.push(num(format!("{name}.share"), pp.share[e].clone()));
         }
-        let mut a = Artifact::new(Value::Table(Table { title: "per-particle composition".into(), columns }));
+        let mut a = Artifact::new(Value::Table(Table {
+            title: "per-particle composition".into(),
+            columns,
+        }));
         a.record(Record::number("count", pp.labels.len() as f64, None, ""));
         for (e, name) in maps.names.iter().enumerate() {
-            let f: Vec<f64> = pp.fraction[e].iter().copied().filter(|v| v.is_finite()).collect();
+            let f: Vec<f64> = pp.fraction[e]
+                .iter()
+                .copied()
+                .filter(|v| v.is_finite())
+                .collect();
             if !f.is_empty() {
                 let m = f.iter().sum::<f64>() / f.len() as f64;
-                let sd = if f.len() > 1 { (f.iter().map(|v| (v - m).powi(2)).sum::<f64>() / (f.len() - 1) as f64).sqrt() } else { 0.0 };
-                a.record(Record::number(format!("fraction.{name}"), m, Some(sd / (f.len() as f64).sqrt()), ""));
+                let sd = if f.len() > 1 {
+                    (f.iter().map(|v| (v - m).powi(2)).sum::<f64>() / (f.len() - 1) as f64).sqrt()
+                } else {
+                    0.0
+                };
+                a.record(Record::number(
+                    format!("fraction.{name}"),
+                    m,
+                    Some(sd / (f.len() as f64).sqrt()),
+                    "",
+                ));
             }
             let (dx, dy) = maps.shifts[e];
             if (dx, dy) != (0, 0) {
-                a.info(format!("map '{name}' shifted by ({dx}, {dy}) px to match the micrograph"));
+                a.info(format!(
+                    "map '{name}' shifted by ({dx}, {dy}) px to match the micrograph"
+                ));
             }
         }
         if pp.labels.is_empty() {
@@ -268,13 +384,15 @@ impl TypedStage for ElementsOverlay {
     const INFO: &'static StageInfo = &StageInfo {
         name: "elements.overlay",
         version: 1,
-        summary: "Categorical image of each particle's dominant element, for a false-colour overlay",
+        summary:
+            "Categorical image of each particle's dominant element, for a false-colour overlay",
         inputs: INPUTS,
         output: Kind::Image,
         references: &[KUGLIN1975],
     };
     fn methods(&self, _o: &ElementOptions) -> String {
-        "Each particle was coloured by the element map with the largest fraction of its signal.".into()
+        "Each particle was coloured by the element map with the largest fraction of its signal."
+            .into()
     }
     fn run(&self, inputs: &Inputs, o: &ElementOptions) -> Result<Artifact, StageError> {
         let l = labels_in(inputs, 0)?;
@@ -291,12 +409,21 @@ impl TypedStage for ElementsOverlay {
             }
             class[lab as usize] = best.1 as f32;
         }
-        let data = l.labels.iter().map(|&v| class.get(v as usize).copied().unwrap_or(0.0)).collect();
+        let data = l
+            .labels
+            .iter()
+            .map(|&v| class.get(v as usize).copied().unwrap_or(0.0))
+            .collect();
         let mut metadata = BTreeMap::new();
         metadata.insert("overlay.kind".into(), "categorical".into());
         metadata.insert(
             "overlay.classes".into(),
-            maps.names.iter().enumerate().map(|(i, n)| format!("{}={n}", i + 1)).collect::<Vec<_>>().join(";"),
+            maps.names
+                .iter()
+                .enumerate()
+                .map(|(i, n)| format!("{}={n}", i + 1))
+                .collect::<Vec<_>>()
+                .join(";"),
         );
         Ok(Artifact::new(Value::Image(Image {
             width: l.width,

@@ -100,7 +100,11 @@ pub fn reflect(i: isize, n: usize) -> usize {
 
 /// Converts a length option to pixels along x: `value` in pixels when `unit` is `px`,
 /// otherwise in the image's unit (which must match).
-pub fn to_pixels(value: f64, unit: &str, img_ps: &Option<crate::value::PixelSize>) -> Result<f64, StageError> {
+pub fn to_pixels(
+    value: f64,
+    unit: &str,
+    img_ps: &Option<crate::value::PixelSize>,
+) -> Result<f64, StageError> {
     if unit == "px" {
         return Ok(value);
     }
@@ -117,7 +121,12 @@ pub fn to_pixels(value: f64, unit: &str, img_ps: &Option<crate::value::PixelSize
 }
 
 /// Applies a 1-D operation to every row, then every column, of a w×h buffer.
-pub fn separable(data: &mut [f64], w: usize, h: usize, mut op: impl FnMut(&[f64], &mut [f64], bool)) {
+pub fn separable(
+    data: &mut [f64],
+    w: usize,
+    h: usize,
+    mut op: impl FnMut(&[f64], &mut [f64], bool),
+) {
     let mut line = vec![0.0; w.max(h)];
     let mut out = vec![0.0; w.max(h)];
     for r in 0..h {
@@ -194,7 +203,9 @@ pub fn box_widths(sigma: f64, passes: usize) -> Vec<usize> {
     let m = ((12.0 * sigma * sigma - n * wlf * wlf - 4.0 * n * wlf - 3.0 * n) / (-4.0 * wlf - 4.0))
         .round()
         .clamp(0.0, n) as usize;
-    (0..passes).map(|i| if i < m { wl } else { wl + 2 }).collect()
+    (0..passes)
+        .map(|i| if i < m { wl } else { wl + 2 })
+        .collect()
 }
 
 /// Running-sum box filter of odd width `width` along one line, reflecting at the ends.
@@ -233,7 +244,13 @@ pub fn gaussian_boxes(data: &mut [f64], w: usize, h: usize, sx: f64, sy: f64) {
 /// Lower envelope of parabolas (Felzenszwalb & Huttenlocher 2012):
 /// `out[p] = min_q f[q] + weight·(p − q)²`, in O(n). Infinite `f[q]` are skipped; when
 /// every `f` is infinite the output is infinite.
-pub fn lower_envelope(f: &[f64], weight: f64, out: &mut [f64], v: &mut Vec<usize>, z: &mut Vec<f64>) {
+pub fn lower_envelope(
+    f: &[f64],
+    weight: f64,
+    out: &mut [f64],
+    v: &mut Vec<usize>,
+    z: &mut Vec<f64>,
+) {
     let n = f.len();
     v.clear();
     z.clear();
@@ -283,7 +300,13 @@ pub fn lower_envelope(f: &[f64], weight: f64, out: &mut [f64], v: &mut Vec<usize
 
 /// Exact squared Euclidean distance (in pixel-size units²) of every pixel to the nearest
 /// pixel where `is_source` holds; infinite when there is none.
-pub fn squared_distance(w: usize, h: usize, is_source: impl Fn(usize) -> bool, px: f64, py: f64) -> Vec<f64> {
+pub fn squared_distance(
+    w: usize,
+    h: usize,
+    is_source: impl Fn(usize) -> bool,
+    px: f64,
+    py: f64,
+) -> Vec<f64> {
     let mut d: Vec<f64> = (0..w * h)
         .map(|i| if is_source(i) { 0.0 } else { f64::INFINITY })
         .collect();
@@ -313,7 +336,9 @@ pub fn squared_distance(w: usize, h: usize, is_source: impl Fn(usize) -> bool, p
 pub fn erode_paraboloid(data: &mut [f64], w: usize, h: usize, radius: f64) {
     let weight = 1.0 / (2.0 * radius);
     let (mut v, mut z) = (Vec::new(), Vec::new());
-    separable(data, w, h, |l, o, _| lower_envelope(l, weight, o, &mut v, &mut z));
+    separable(data, w, h, |l, o, _| {
+        lower_envelope(l, weight, o, &mut v, &mut z)
+    });
 }
 
 /// Grey-scale dilation by the same paraboloid (the dual of [`erode_paraboloid`]).
@@ -345,7 +370,9 @@ pub const HYNDMAN1996: Reference = Reference {
 /// Minimum and maximum of the samples.
 pub fn min_max(data: &[f32]) -> (f32, f32) {
     data.iter()
-        .fold((f32::INFINITY, f32::NEG_INFINITY), |(a, b), &v| (a.min(v), b.max(v)))
+        .fold((f32::INFINITY, f32::NEG_INFINITY), |(a, b), &v| {
+            (a.min(v), b.max(v))
+        })
 }
 
 #[cfg(test)]

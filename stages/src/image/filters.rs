@@ -14,8 +14,8 @@
 //!   definition 7) are set to those percentiles.
 
 use crate::image::common::{
-    self, check_image, image_in, percentile_sorted, to_pixels, with_data, FELZENSZWALB2012, HYNDMAN1996,
-    KOVESI2010, WELLS1986,
+    self, check_image, image_in, percentile_sorted, to_pixels, with_data, FELZENSZWALB2012,
+    HYNDMAN1996, KOVESI2010, WELLS1986,
 };
 use crate::stage::{Inputs, OptionError, Port, Reference, StageError, StageInfo, TypedStage};
 use crate::value::{Artifact, Image, Kind, Record, Value};
@@ -35,7 +35,10 @@ fn positive(path: &str, v: f64) -> Result<(), OptionError> {
     if v > 0.0 && v.is_finite() {
         Ok(())
     } else {
-        Err(OptionError::new(path, format!("{path} must be a positive number")))
+        Err(OptionError::new(
+            path,
+            format!("{path} must be a positive number"),
+        ))
     }
 }
 
@@ -52,7 +55,10 @@ pub struct GaussianOptions {
 
 impl Default for GaussianOptions {
     fn default() -> Self {
-        GaussianOptions { sigma: 1.0, unit: "px".into() }
+        GaussianOptions {
+            sigma: 1.0,
+            unit: "px".into(),
+        }
     }
 }
 
@@ -206,7 +212,11 @@ pub fn median_filter(data: &[f32], w: usize, h: usize, k: usize) -> Vec<f32> {
         for (i, &c) in cols.iter().enumerate() {
             if i > 0 {
                 // Slide horizontally by one column.
-                let (old, new) = if forward { (c - r - 1, c + r) } else { (c + r + 1, c - r) };
+                let (old, new) = if forward {
+                    (c - r - 1, c + r)
+                } else {
+                    (c + r + 1, c - r)
+                };
                 for dy in -r..=r {
                     add(&mut hist, mdn, &mut lt, at(old, row + dy), -1);
                     add(&mut hist, mdn, &mut lt, at(new, row + dy), 1);
@@ -321,7 +331,12 @@ impl TypedStage for Flatten {
         let size = to_pixels(o.size, &o.unit, &img.pixel_size)?;
         let (out, bg_mean) = flatten(img, o.background, size, o.removal, o.bright_objects)?;
         let mut a = Artifact::new(Value::Image(out));
-        a.record(Record::number("background_mean", bg_mean, None, &img.z_axis.unit));
+        a.record(Record::number(
+            "background_mean",
+            bg_mean,
+            None,
+            &img.z_axis.unit,
+        ));
         Ok(a)
     }
 }
@@ -351,14 +366,23 @@ pub fn flatten(
     }
     let mean = bg.iter().sum::<f64>() / bg.len() as f64;
     let out: Vec<f32> = match removal {
-        Removal::Subtract => img.data.iter().zip(&bg).map(|(&v, &b)| (v as f64 - b + mean) as f32).collect(),
+        Removal::Subtract => img
+            .data
+            .iter()
+            .zip(&bg)
+            .map(|(&v, &b)| (v as f64 - b + mean) as f32)
+            .collect(),
         Removal::Divide => {
             if bg.iter().any(|&b| b <= 0.0) {
                 return Err(StageError::input(
                     "the background reaches zero or below; division is not possible (use subtract)",
                 ));
             }
-            img.data.iter().zip(&bg).map(|(&v, &b)| (v as f64 / b * mean) as f32).collect()
+            img.data
+                .iter()
+                .zip(&bg)
+                .map(|(&v, &b)| (v as f64 / b * mean) as f32)
+                .collect()
         }
     };
     let mut out = with_data(img, out);
@@ -381,7 +405,10 @@ pub struct ClipOptions {
 
 impl Default for ClipOptions {
     fn default() -> Self {
-        ClipOptions { low: 0.5, high: 99.5 }
+        ClipOptions {
+            low: 0.5,
+            high: 99.5,
+        }
     }
 }
 
@@ -431,11 +458,13 @@ impl TypedStage for Clip {
             })
             .collect();
         let u = &img.z_axis.unit;
-        Ok(Artifact::new(Value::Image(with_data(img, out))).with_results(vec![
-            Record::number("clip_low", lo as f64, None, u),
-            Record::number("clip_high", hi as f64, None, u),
-            Record::number("clipped_pixels", n as f64, None, ""),
-        ]))
+        Ok(
+            Artifact::new(Value::Image(with_data(img, out))).with_results(vec![
+                Record::number("clip_low", lo as f64, None, u),
+                Record::number("clip_high", hi as f64, None, u),
+                Record::number("clipped_pixels", n as f64, None, ""),
+            ]),
+        )
     }
 }
 
@@ -446,7 +475,9 @@ mod tests {
     #[test]
     fn median_matches_sorting_windows() {
         let (w, h, k) = (17usize, 11usize, 5usize);
-        let data: Vec<f32> = (0..w * h).map(|i| ((i * 7919) % 97) as f32 * 13.0 + 40000.0).collect();
+        let data: Vec<f32> = (0..w * h)
+            .map(|i| ((i * 7919) % 97) as f32 * 13.0 + 40000.0)
+            .collect();
         let out = median_filter(&data, w, h, k);
         let r = (k / 2) as isize;
         for row in 0..h as isize {
@@ -480,7 +511,16 @@ mod tests {
     #[test]
     fn flatten_removes_a_linear_ramp() {
         // A ramp plus one small bright square: both backgrounds leave the square on a flat field.
-        let im = img(256, 192, |c, r| 1000.0 + 3.0 * c as f32 + 2.0 * r as f32 + if (120..124).contains(&c) && (90..94).contains(&r) { 500.0 } else { 0.0 });
+        let im = img(256, 192, |c, r| {
+            1000.0
+                + 3.0 * c as f32
+                + 2.0 * r as f32
+                + if (120..124).contains(&c) && (90..94).contains(&r) {
+                    500.0
+                } else {
+                    0.0
+                }
+        });
         for bg in [Background::Gaussian, Background::RollingBall] {
             let (out, _) = flatten(&im, bg, 20.0, Removal::Subtract, true).unwrap();
             let far = out.get(80, 60) - out.get(180, 130);

@@ -137,14 +137,19 @@ impl Default for Options {
 
 pub struct ImportImage;
 
-static INPUTS: &[Port] = &[Port::each("file", Kind::File, "a PNG, TIFF or text matrix file")];
+static INPUTS: &[Port] = &[Port::each(
+    "file",
+    Kind::File,
+    "a PNG, TIFF or text matrix file",
+)];
 
 impl TypedStage for ImportImage {
     type Options = Options;
     const INFO: &'static StageInfo = &StageInfo {
         name: "image.import",
         version: 1,
-        summary: "Read a greyscale image or height map (PNG, TIFF, text matrix) with its pixel size",
+        summary:
+            "Read a greyscale image or height map (PNG, TIFF, text matrix) with its pixel size",
         inputs: INPUTS,
         output: Kind::Image,
         references: &[],
@@ -153,12 +158,18 @@ impl TypedStage for ImportImage {
     fn check(&self, o: &Options) -> Result<(), OptionError> {
         if let Some(p) = o.pixel_size {
             if !(p > 0.0 && p.is_finite()) {
-                return Err(OptionError::new("pixel_size", "pixel_size must be a positive number"));
+                return Err(OptionError::new(
+                    "pixel_size",
+                    "pixel_size must be a positive number",
+                ));
             }
         }
         if let Some(sb) = &o.scale_bar {
             if !(sb.length > 0.0 && sb.length.is_finite()) {
-                return Err(OptionError::new("scale_bar.length", "the bar length must be positive"));
+                return Err(OptionError::new(
+                    "scale_bar.length",
+                    "the bar length must be positive",
+                ));
             }
             match (sb.pixels, sb.region) {
                 (Some(p), _) if !(p > 0.0 && p.is_finite()) => {
@@ -174,7 +185,10 @@ impl TypedStage for ImportImage {
             }
         }
         if o.unit.trim().is_empty() || o.unit == "px" {
-            return Err(OptionError::new("unit", "give a physical length unit such as nm or µm"));
+            return Err(OptionError::new(
+                "unit",
+                "give a physical length unit such as nm or µm",
+            ));
         }
         Ok(())
     }
@@ -192,7 +206,10 @@ impl TypedStage for ImportImage {
             (None, None) => "the pixel size was taken from the file header when present (otherwise lengths are in pixels)".into(),
         };
         let crop = if o.crop_bottom > 0 {
-            format!(", {} rows of data bar were cropped from the bottom", o.crop_bottom)
+            format!(
+                ", {} rows of data bar were cropped from the bottom",
+                o.crop_bottom
+            )
         } else {
             String::new()
         };
@@ -255,12 +272,26 @@ pub fn decode(name: &str, bytes: &[u8], o: &Options) -> Result<(Image, Vec<Strin
         data,
         pixel_size: None,
         z_axis: Axis::new(
-            o.z_quantity.clone().or_else(|| header.get("z_quantity").cloned()).unwrap_or_else(|| {
-                if format == Format::Text { "height".into() } else { "intensity".into() }
-            }),
-            o.z_unit.clone().or_else(|| header.get("z_unit").cloned()).unwrap_or_else(|| {
-                if format == Format::Text { String::new() } else { "counts".into() }
-            }),
+            o.z_quantity
+                .clone()
+                .or_else(|| header.get("z_quantity").cloned())
+                .unwrap_or_else(|| {
+                    if format == Format::Text {
+                        "height".into()
+                    } else {
+                        "intensity".into()
+                    }
+                }),
+            o.z_unit
+                .clone()
+                .or_else(|| header.get("z_unit").cloned())
+                .unwrap_or_else(|| {
+                    if format == Format::Text {
+                        String::new()
+                    } else {
+                        "counts".into()
+                    }
+                }),
         ),
         source_bits: bits,
         metadata: BTreeMap::new(),
@@ -271,21 +302,31 @@ pub fn decode(name: &str, bytes: &[u8], o: &Options) -> Result<(Image, Vec<Strin
         img.pixel_size = Some(parse_header_pixel_size(name, ps)?);
     }
     if let Some(p) = o.pixel_size {
-        img.pixel_size = Some(PixelSize { x: p, y: p, unit: o.unit.clone() });
+        img.pixel_size = Some(PixelSize {
+            x: p,
+            y: p,
+            unit: o.unit.clone(),
+        });
     }
     if let Some(sb) = &o.scale_bar {
         let px = match (sb.pixels, sb.region) {
             (Some(p), _) => p,
             (None, Some(region)) => {
-                let run = detect_bar(&img, region, sb.bright).map_err(|m| StageError::data(name, None, m))?;
+                let run = detect_bar(&img, region, sb.bright)
+                    .map_err(|m| StageError::data(name, None, m))?;
                 notes.push(format!("scale bar detected: {run} pixels long"));
                 run as f64
             }
             (None, None) => return Err(StageError::input("scale bar needs pixels or a region")),
         };
         let p = sb.length / px;
-        img.pixel_size = Some(PixelSize { x: p, y: p, unit: o.unit.clone() });
-        img.metadata.insert("scale_bar_pixels".into(), px.to_string());
+        img.pixel_size = Some(PixelSize {
+            x: p,
+            y: p,
+            unit: o.unit.clone(),
+        });
+        img.metadata
+            .insert("scale_bar_pixels".into(), px.to_string());
     }
     if o.crop_bottom > 0 {
         if o.crop_bottom >= img.height {
@@ -296,26 +337,51 @@ pub fn decode(name: &str, bytes: &[u8], o: &Options) -> Result<(Image, Vec<Strin
         }
         let h2 = img.height - o.crop_bottom;
         let data = img.data[..h2 * img.width].to_vec();
-        img = with_data(&Image { height: h2, data: Vec::new(), ..img.clone() }, data);
+        img = with_data(
+            &Image {
+                height: h2,
+                data: Vec::new(),
+                ..img.clone()
+            },
+            data,
+        );
         notes.push(format!("{} rows cropped from the bottom", o.crop_bottom));
     }
     if let Some(p) = &img.pixel_size {
-        img.metadata.insert("pixel_size".into(), format!("{} {}", p.x, p.unit));
+        img.metadata
+            .insert("pixel_size".into(), format!("{} {}", p.x, p.unit));
     }
-    notes.push(format!("{}×{} pixels, {}-bit samples, read from {name}", img.width, img.height, bits));
+    notes.push(format!(
+        "{}×{} pixels, {}-bit samples, read from {name}",
+        img.width, img.height, bits
+    ));
     Ok((img, notes))
 }
 
 fn parse_header_pixel_size(name: &str, text: &str) -> Result<PixelSize, StageError> {
     let parts: Vec<&str> = text.split_whitespace().collect();
-    let bad = || StageError::data(name, None, format!("header pixel_size '{text}' is not 'VALUE UNIT' or 'X Y UNIT'"));
+    let bad = || {
+        StageError::data(
+            name,
+            None,
+            format!("header pixel_size '{text}' is not 'VALUE UNIT' or 'X Y UNIT'"),
+        )
+    };
     let num = |s: &str| s.parse::<f64>().ok().filter(|v| *v > 0.0 && v.is_finite());
     match parts.as_slice() {
         [v, u] => {
             let v = num(v).ok_or_else(bad)?;
-            Ok(PixelSize { x: v, y: v, unit: u.to_string() })
+            Ok(PixelSize {
+                x: v,
+                y: v,
+                unit: u.to_string(),
+            })
         }
-        [x, y, u] => Ok(PixelSize { x: num(x).ok_or_else(bad)?, y: num(y).ok_or_else(bad)?, unit: u.to_string() }),
+        [x, y, u] => Ok(PixelSize {
+            x: num(x).ok_or_else(bad)?,
+            y: num(y).ok_or_else(bad)?,
+            unit: u.to_string(),
+        }),
         _ => Err(bad()),
     }
 }
@@ -329,11 +395,19 @@ fn detect_bar(img: &Image, region: [usize; 4], bright: bool) -> Result<usize, St
             img.width, img.height
         ));
     }
-    let mut extreme = if bright { f32::NEG_INFINITY } else { f32::INFINITY };
+    let mut extreme = if bright {
+        f32::NEG_INFINITY
+    } else {
+        f32::INFINITY
+    };
     for r in r0..r0 + rh {
         for c in c0..c0 + rw {
             let v = img.get(c, r);
-            extreme = if bright { extreme.max(v) } else { extreme.min(v) };
+            extreme = if bright {
+                extreme.max(v)
+            } else {
+                extreme.min(v)
+            };
         }
     }
     let mut best = 0;
@@ -358,19 +432,31 @@ type Decoded = (usize, usize, Vec<f32>, u8);
 
 fn check_size(name: &str, w: usize, h: usize, o: &Options) -> Result<(), StageError> {
     if w == 0 || h == 0 {
-        return Err(StageError::data(name, None, format!("the image has zero size ({w}×{h})")));
+        return Err(StageError::data(
+            name,
+            None,
+            format!("the image has zero size ({w}×{h})"),
+        ));
     }
     if w.saturating_mul(h) > o.max_pixels {
         return Err(StageError::data(
             name,
             None,
-            format!("the image is {w}×{h} pixels, more than the {} allowed (max_pixels)", o.max_pixels),
+            format!(
+                "the image is {w}×{h} pixels, more than the {} allowed (max_pixels)",
+                o.max_pixels
+            ),
         ));
     }
     Ok(())
 }
 
-fn to_grey(name: &str, samples: &[f64], channels: usize, o: &Options) -> Result<Vec<f32>, StageError> {
+fn to_grey(
+    name: &str,
+    samples: &[f64],
+    channels: usize,
+    o: &Options,
+) -> Result<Vec<f32>, StageError> {
     match channels {
         1 => Ok(samples.iter().map(|&v| v as f32).collect()),
         2 => Ok(samples.chunks_exact(2).map(|p| p[0] as f32).collect()),
@@ -381,12 +467,17 @@ fn to_grey(name: &str, samples: &[f64], channels: usize, o: &Options) -> Result<
                 .map(|p| (wt[0] * p[0] + wt[1] * p[1] + wt[2] * p[2]) as f32)
                 .collect())
         }
-        n => Err(StageError::data(name, None, format!("{n} samples per pixel are not supported"))),
+        n => Err(StageError::data(
+            name,
+            None,
+            format!("{n} samples per pixel are not supported"),
+        )),
     }
 }
 
 fn decode_png(name: &str, bytes: &[u8], o: &Options) -> Result<Decoded, StageError> {
-    let err = |e: png::DecodingError| StageError::data(name, None, format!("not a readable PNG: {e}"));
+    let err =
+        |e: png::DecodingError| StageError::data(name, None, format!("not a readable PNG: {e}"));
     let mut dec = png::Decoder::new_with_limits(Cursor::new(bytes), png::Limits { bytes: 1 << 31 });
     // Palette and low-bit grey are expanded to 8 bits; 16-bit samples are kept.
     dec.set_transformations(png::Transformations::EXPAND);
@@ -419,7 +510,8 @@ fn decode_png(name: &str, bytes: &[u8], o: &Options) -> Result<Decoded, StageErr
 fn decode_tiff(name: &str, bytes: &[u8], o: &Options) -> Result<Decoded, StageError> {
     use tiff::decoder::{Decoder, DecodingResult};
     use tiff::ColorType;
-    let err = |e: tiff::TiffError| StageError::data(name, None, format!("not a readable TIFF: {e}"));
+    let err =
+        |e: tiff::TiffError| StageError::data(name, None, format!("not a readable TIFF: {e}"));
     let mut dec = Decoder::new(Cursor::new(bytes)).map_err(err)?;
     let (w, h) = dec.dimensions().map_err(err)?;
     let (w, h) = (w as usize, h as usize);
@@ -430,7 +522,11 @@ fn decode_tiff(name: &str, bytes: &[u8], o: &Options) -> Result<Decoded, StageEr
         ColorType::RGB(b) => (3, b),
         ColorType::RGBA(b) => (4, b),
         other => {
-            return Err(StageError::data(name, None, format!("TIFF colour type {other:?} is not supported")))
+            return Err(StageError::data(
+                name,
+                None,
+                format!("TIFF colour type {other:?} is not supported"),
+            ))
         }
     };
     let mut limits = tiff::decoder::Limits::default();
@@ -445,17 +541,31 @@ fn decode_tiff(name: &str, bytes: &[u8], o: &Options) -> Result<Decoded, StageEr
         DecodingResult::I32(v) => v.into_iter().map(f64::from).collect(),
         DecodingResult::F32(v) => v.into_iter().map(f64::from).collect(),
         DecodingResult::F64(v) => v,
-        _ => return Err(StageError::data(name, None, "TIFF sample format is not supported")),
+        _ => {
+            return Err(StageError::data(
+                name,
+                None,
+                "TIFF sample format is not supported",
+            ))
+        }
     };
     if samples.len() < w * h * channels {
-        return Err(StageError::data(name, None, "TIFF holds fewer samples than its size says (truncated?)"));
+        return Err(StageError::data(
+            name,
+            None,
+            "TIFF holds fewer samples than its size says (truncated?)",
+        ));
     }
     let grey = to_grey(name, &samples[..w * h * channels], channels, o)?;
     if let Some(i) = grey.iter().position(|v| !v.is_finite()) {
         return Err(StageError::data(
             name,
             None,
-            format!("sample at column {}, row {} is not a finite number", i % w, i / w),
+            format!(
+                "sample at column {}, row {} is not a finite number",
+                i % w,
+                i / w
+            ),
         ));
     }
     Ok((w, h, grey, bits))
@@ -468,7 +578,11 @@ fn decode_text(
     header: &mut BTreeMap<String, String>,
 ) -> Result<Decoded, StageError> {
     let text = std::str::from_utf8(bytes).map_err(|e| {
-        let line = bytes[..e.valid_up_to()].iter().filter(|&&b| b == b'\n').count() + 1;
+        let line = bytes[..e.valid_up_to()]
+            .iter()
+            .filter(|&&b| b == b'\n')
+            .count()
+            + 1;
         StageError::data(name, Some(line), "neither PNG, TIFF nor valid UTF-8 text")
     })?;
     let text = text.strip_prefix('\u{feff}').unwrap_or(text);
@@ -498,7 +612,11 @@ fn decode_text(
         match parsed {
             Ok(row) => {
                 if let Some(j) = row.iter().position(|v| !v.is_finite()) {
-                    return Err(StageError::data(name, Some(line_no), format!("value {} is not finite", j + 1)));
+                    return Err(StageError::data(
+                        name,
+                        Some(line_no),
+                        format!("value {} is not finite", j + 1),
+                    ));
                 }
                 if rows.is_empty() {
                     width = row.len();
@@ -511,13 +629,24 @@ fn decode_text(
                 }
                 rows.push(row);
                 if rows.len().saturating_mul(width) > o.max_pixels {
-                    return Err(StageError::data(name, Some(line_no), "more values than max_pixels allows"));
+                    return Err(StageError::data(
+                        name,
+                        Some(line_no),
+                        "more values than max_pixels allows",
+                    ));
                 }
             }
             Err(_) if rows.is_empty() && !skipped_title => skipped_title = true,
             Err(_) => {
-                let bad = fields.iter().find(|s| s.parse::<f32>().is_err()).unwrap_or(&"");
-                return Err(StageError::data(name, Some(line_no), format!("'{bad}' is not a number")));
+                let bad = fields
+                    .iter()
+                    .find(|s| s.parse::<f32>().is_err())
+                    .unwrap_or(&"");
+                return Err(StageError::data(
+                    name,
+                    Some(line_no),
+                    format!("'{bad}' is not a number"),
+                ));
             }
         }
     }
@@ -530,7 +659,13 @@ fn decode_text(
 mod tests {
     use super::*;
 
-    fn png_bytes(w: u32, h: u32, color: png::ColorType, depth: png::BitDepth, data: &[u8]) -> Vec<u8> {
+    fn png_bytes(
+        w: u32,
+        h: u32,
+        color: png::ColorType,
+        depth: png::BitDepth,
+        data: &[u8],
+    ) -> Vec<u8> {
         let mut out = Vec::new();
         {
             let mut e = png::Encoder::new(&mut out, w, h);
@@ -546,7 +681,13 @@ mod tests {
     fn png_16_bit_keeps_every_level() {
         let vals: [u16; 4] = [0, 1, 40000, 65535];
         let bytes: Vec<u8> = vals.iter().flat_map(|v| v.to_be_bytes()).collect();
-        let f = png_bytes(2, 2, png::ColorType::Grayscale, png::BitDepth::Sixteen, &bytes);
+        let f = png_bytes(
+            2,
+            2,
+            png::ColorType::Grayscale,
+            png::BitDepth::Sixteen,
+            &bytes,
+        );
         let (img, _) = decode("a.png", &f, &Options::default()).unwrap();
         assert_eq!(img.data, vec![0.0, 1.0, 40000.0, 65535.0]);
         assert_eq!(img.source_bits, 16);
@@ -555,7 +696,13 @@ mod tests {
 
     #[test]
     fn rgb_png_uses_bt709_weights() {
-        let f = png_bytes(1, 1, png::ColorType::Rgb, png::BitDepth::Eight, &[100, 200, 50]);
+        let f = png_bytes(
+            1,
+            1,
+            png::ColorType::Rgb,
+            png::BitDepth::Eight,
+            &[100, 200, 50],
+        );
         let (img, _) = decode("c.png", &f, &Options::default()).unwrap();
         // BT.709: 0.2126·100 + 0.7152·200 + 0.0722·50 = 167.91
         assert!((img.data[0] - 167.91).abs() < 1e-3);
@@ -563,7 +710,13 @@ mod tests {
 
     #[test]
     fn truncated_png_names_the_file() {
-        let f = png_bytes(4, 4, png::ColorType::Grayscale, png::BitDepth::Eight, &[7; 16]);
+        let f = png_bytes(
+            4,
+            4,
+            png::ColorType::Grayscale,
+            png::BitDepth::Eight,
+            &[7; 16],
+        );
         let e = decode("cut.png", &f[..f.len() - 20], &Options::default()).unwrap_err();
         assert!(e.to_string().contains("cut.png"), "{e}");
     }
@@ -573,14 +726,16 @@ mod tests {
         let mut out = Cursor::new(Vec::new());
         {
             let mut enc = tiff::encoder::TiffEncoder::new(&mut out).unwrap();
-            enc.write_image::<tiff::encoder::colortype::Gray32Float>(2, 1, &[1.5, -2.25]).unwrap();
+            enc.write_image::<tiff::encoder::colortype::Gray32Float>(2, 1, &[1.5, -2.25])
+                .unwrap();
         }
         let (img, _) = decode("f.tif", out.get_ref(), &Options::default()).unwrap();
         assert_eq!(img.data, vec![1.5, -2.25]);
         let mut out = Cursor::new(Vec::new());
         {
             let mut enc = tiff::encoder::TiffEncoder::new(&mut out).unwrap();
-            enc.write_image::<tiff::encoder::colortype::Gray16>(3, 1, &[0, 65535, 1234]).unwrap();
+            enc.write_image::<tiff::encoder::colortype::Gray16>(3, 1, &[0, 65535, 1234])
+                .unwrap();
         }
         let (img, _) = decode("g.tif", out.get_ref(), &Options::default()).unwrap();
         assert_eq!(img.data, vec![0.0, 65535.0, 1234.0]);
@@ -605,7 +760,10 @@ mod tests {
     #[test]
     fn absurd_sizes_are_refused_without_panic() {
         let row: String = std::iter::repeat_n("1 ", 100_000).collect();
-        let o = Options { max_pixels: 50_000, ..Options::default() };
+        let o = Options {
+            max_pixels: 50_000,
+            ..Options::default()
+        };
         assert!(decode("wide.txt", row.as_bytes(), &o).is_err());
         let (img, _) = decode("wide.txt", row.as_bytes(), &Options::default()).unwrap();
         assert_eq!((img.width, img.height), (100_000, 1));
@@ -620,7 +778,12 @@ mod tests {
         }
         let f = png_bytes(20, 10, png::ColorType::Grayscale, png::BitDepth::Eight, &d);
         let o = Options {
-            scale_bar: Some(ScaleBar { length: 60.0, pixels: None, region: Some([0, 8, 20, 2]), bright: true }),
+            scale_bar: Some(ScaleBar {
+                length: 60.0,
+                pixels: None,
+                region: Some([0, 8, 20, 2]),
+                bright: true,
+            }),
             crop_bottom: 2,
             ..Options::default()
         };

@@ -97,7 +97,11 @@ pub struct LatticeOptions {
 
 impl Default for LatticeOptions {
     fn default() -> Self {
-        LatticeOptions { spots: 3, dc_exclusion: 4.0, min_relative_power: 0.01 }
+        LatticeOptions {
+            spots: 3,
+            dc_exclusion: 4.0,
+            min_relative_power: 0.01,
+        }
     }
 }
 
@@ -118,7 +122,11 @@ pub struct Spot {
 
 pub struct LatticeFft;
 
-static INPUTS: &[Port] = &[Port::each("image", Kind::Image, "a lattice-resolved micrograph")];
+static INPUTS: &[Port] = &[Port::each(
+    "image",
+    Kind::Image,
+    "a lattice-resolved micrograph",
+)];
 
 impl TypedStage for LatticeFft {
     type Options = LatticeOptions;
@@ -156,44 +164,92 @@ impl TypedStage for LatticeFft {
         }
         let spots = find_spots(img, o);
         if spots.is_empty() {
-            return Err(StageError::input("no periodic spot found outside the zero-frequency region"));
+            return Err(StageError::input(
+                "no periodic spot found outside the zero-frequency region",
+            ));
         }
         let (_, _, unit) = pixel_dims(&img.pixel_size);
         let ku = format!("1/{unit}");
         let col = |name: &str, u: &str, v: Vec<f64>, unc: Option<Vec<f64>>| Column {
             name: name.into(),
             unit: u.into(),
-            data: ColumnData::Number { values: v, uncertainty: unc },
+            data: ColumnData::Number {
+                values: v,
+                uncertainty: unc,
+            },
         };
         let table = Table {
             title: "lattice spots".into(),
             columns: vec![
-                col("spot", "", (1..=spots.len()).map(|i| i as f64).collect(), None),
+                col(
+                    "spot",
+                    "",
+                    (1..=spots.len()).map(|i| i as f64).collect(),
+                    None,
+                ),
                 col("kx", &ku, spots.iter().map(|s| s.kx).collect(), None),
                 col("ky", &ku, spots.iter().map(|s| s.ky).collect(), None),
-                col("k", &ku, spots.iter().map(|s| s.k).collect(), Some(spots.iter().map(|s| s.k_u).collect())),
-                col("d", &unit, spots.iter().map(|s| s.d).collect(), Some(spots.iter().map(|s| s.d_u).collect())),
-                col("direction", "deg", spots.iter().map(|s| s.angle).collect(), None),
-                col("relative_power", "", spots.iter().map(|s| s.power / spots[0].power).collect(), None),
+                col(
+                    "k",
+                    &ku,
+                    spots.iter().map(|s| s.k).collect(),
+                    Some(spots.iter().map(|s| s.k_u).collect()),
+                ),
+                col(
+                    "d",
+                    &unit,
+                    spots.iter().map(|s| s.d).collect(),
+                    Some(spots.iter().map(|s| s.d_u).collect()),
+                ),
+                col(
+                    "direction",
+                    "deg",
+                    spots.iter().map(|s| s.angle).collect(),
+                    None,
+                ),
+                col(
+                    "relative_power",
+                    "",
+                    spots.iter().map(|s| s.power / spots[0].power).collect(),
+                    None,
+                ),
             ],
         };
         let mut a = Artifact::new(Value::Table(table));
         for (i, s) in spots.iter().enumerate() {
-            a.record(Record::number(format!("spot{}.d", i + 1), s.d, Some(s.d_u), &unit));
-            a.record(Record::number(format!("spot{}.direction", i + 1), s.angle, None, "deg"));
+            a.record(Record::number(
+                format!("spot{}.d", i + 1),
+                s.d,
+                Some(s.d_u),
+                &unit,
+            ));
+            a.record(Record::number(
+                format!("spot{}.direction", i + 1),
+                s.angle,
+                None,
+                "deg",
+            ));
         }
         for i in 0..spots.len() {
             for j in i + 1..spots.len() {
                 let (p, q) = (&spots[i], &spots[j]);
                 let cos = ((p.kx * q.kx + p.ky * q.ky) / (p.k * q.k)).abs().min(1.0);
-                a.record(Record::number(format!("angle.{}_{}", i + 1, j + 1), cos.acos().to_degrees(), None, "deg"));
+                a.record(Record::number(
+                    format!("angle.{}_{}", i + 1, j + 1),
+                    cos.acos().to_degrees(),
+                    None,
+                    "deg",
+                ));
             }
         }
         if img.pixel_size.is_none() {
             a.warn("the image has no pixel size: spacings are in pixels (px)");
         }
         if spots.len() < o.spots {
-            a.info(format!("only {} spot pair(s) above the power limit", spots.len()));
+            a.info(format!(
+                "only {} spot pair(s) above the power limit",
+                spots.len()
+            ));
         }
         Ok(a)
     }
@@ -209,9 +265,17 @@ fn interpolate(am: f64, a0: f64, ap: f64) -> (f64, f64) {
         let al = am / a0;
         -(2.0 * al - 1.0) / (al + 1.0)
     };
-    let (lm, l0, lp) = (am.max(1e-300).ln(), a0.max(1e-300).ln(), ap.max(1e-300).ln());
+    let (lm, l0, lp) = (
+        am.max(1e-300).ln(),
+        a0.max(1e-300).ln(),
+        ap.max(1e-300).ln(),
+    );
     let den = lm - 2.0 * l0 + lp;
-    let para = if den < 0.0 { 0.5 * (lm - lp) / den } else { 0.0 };
+    let para = if den < 0.0 {
+        0.5 * (lm - lp) / den
+    } else {
+        0.0
+    };
     let g = grandke.clamp(-1.0, 1.0);
     (g, (g - para).abs())
 }
@@ -221,7 +285,9 @@ pub fn find_spots(img: &Image, o: &LatticeOptions) -> Vec<Spot> {
     let (w, h) = (img.width, img.height);
     let p = power_spectrum(img);
     let (cx, cy) = ((w / 2) as isize, (h / 2) as isize);
-    let at = |c: isize, r: isize| p[(r.rem_euclid(h as isize) as usize) * w + c.rem_euclid(w as isize) as usize];
+    let at = |c: isize, r: isize| {
+        p[(r.rem_euclid(h as isize) as usize) * w + c.rem_euclid(w as isize) as usize]
+    };
     let mut cand: Vec<(f64, isize, isize)> = Vec::new();
     for r in 0..h as isize {
         for c in 0..w as isize {
@@ -276,7 +342,16 @@ pub fn find_spots(img: &Image, o: &LatticeOptions) -> Vec<Spot> {
             if angle >= 180.0 {
                 angle -= 180.0;
             }
-            Spot { kx, ky, k, k_u, d, d_u: d * k_u / k, angle, power: val }
+            Spot {
+                kx,
+                ky,
+                k,
+                k_u,
+                d,
+                d_u: d * k_u / k,
+                angle,
+                power: val,
+            }
         })
         .collect()
 }

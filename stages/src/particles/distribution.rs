@@ -54,13 +54,21 @@ pub struct DistributionOptions {
 
 impl Default for DistributionOptions {
     fn default() -> Self {
-        DistributionOptions { quantity: "equivalent_diameter".into(), bin_rule: BinRule::FreedmanDiaconis, bins: 20 }
+        DistributionOptions {
+            quantity: "equivalent_diameter".into(),
+            bin_rule: BinRule::FreedmanDiaconis,
+            bins: 20,
+        }
     }
 }
 
 pub struct Distribution;
 
-static INPUTS: &[Port] = &[Port::gather("particles", Kind::Table, "particle tables of every image")];
+static INPUTS: &[Port] = &[Port::gather(
+    "particles",
+    Kind::Table,
+    "particle tables of every image",
+)];
 static REFS: &[Reference] = &[FREEDMAN1981, STURGES1926, HYNDMAN1996, LIMPERT2001];
 
 /// Summary statistics of a sample of sizes.
@@ -120,10 +128,18 @@ impl TypedStage for Distribution {
         for (item, a) in &items {
             let t = match &a.value {
                 Value::Table(t) => t,
-                other => return Err(StageError::input(format!("{item}: expected a particle table, got a {}", other.kind().name()))),
+                other => {
+                    return Err(StageError::input(format!(
+                        "{item}: expected a particle table, got a {}",
+                        other.kind().name()
+                    )))
+                }
             };
             let col = t.column(&o.quantity).ok_or_else(|| {
-                StageError::input(format!("{item}: the particle table has no column '{}'", o.quantity))
+                StageError::input(format!(
+                    "{item}: the particle table has no column '{}'",
+                    o.quantity
+                ))
             })?;
             if !unit.is_empty() && col.unit != unit {
                 return Err(StageError::input(format!(
@@ -142,7 +158,9 @@ impl TypedStage for Distribution {
             }
             excluded_border += num("excluded_border");
             excluded_small += num("excluded_small");
-            if let Some(crate::value::Scalar::Text(m)) = a.result("threshold_method").map(|r| &r.value) {
+            if let Some(crate::value::Scalar::Text(m)) =
+                a.result("threshold_method").map(|r| &r.value)
+            {
                 if !methods.contains(m) {
                     methods.push(m.clone());
                 }
@@ -156,7 +174,11 @@ impl TypedStage for Distribution {
         }
         let s = size_stats(&values, o)?;
         let mut a = Artifact::new(Value::Table(histogram_table(&s, &unit)));
-        let log_unit = if unit.is_empty() { String::new() } else { format!("ln({unit})") };
+        let log_unit = if unit.is_empty() {
+            String::new()
+        } else {
+            format!("ln({unit})")
+        };
         let recs = vec![
             Record::number("n", s.n as f64, None, ""),
             Record::number("images", items.len() as f64, None, ""),
@@ -170,19 +192,35 @@ impl TypedStage for Distribution {
             Record::number("d90", s.d90, None, &unit),
             Record::number("lognormal.mu", s.ln_mu, Some(s.ln_mu_se), &log_unit),
             Record::number("lognormal.sigma", s.ln_sigma, Some(s.ln_sigma_se), ""),
-            Record::number("lognormal.median", s.ln_mu.exp(), Some(s.ln_mu.exp() * s.ln_mu_se), &unit),
+            Record::number(
+                "lognormal.median",
+                s.ln_mu.exp(),
+                Some(s.ln_mu.exp() * s.ln_mu_se),
+                &unit,
+            ),
             Record::text("threshold_method", methods.join(", ")),
             Record::text("pixel_size", pixel_sizes.join(", ")),
         ];
         a.results = recs;
         if area > 0.0 {
             let per = s.n as f64 / area;
-            let au = area_unit.strip_suffix("^2").unwrap_or(&area_unit).to_string();
+            let au = area_unit
+                .strip_suffix("^2")
+                .unwrap_or(&area_unit)
+                .to_string();
             a.record(Record::number("analysed_area", area, None, &area_unit));
-            a.record(Record::number("count_per_area", per, Some((s.n as f64).sqrt() / area), &format!("1/{au}^2")));
+            a.record(Record::number(
+                "count_per_area",
+                per,
+                Some((s.n as f64).sqrt() / area),
+                &format!("1/{au}^2"),
+            ));
         }
         if s.n < 100 {
-            a.warn(format!("only {} particles: the size distribution is statistically weak (fewer than 100)", s.n));
+            a.warn(format!(
+                "only {} particles: the size distribution is statistically weak (fewer than 100)",
+                s.n
+            ));
         }
         if unit == "px" {
             a.warn("sizes are in pixels: no pixel size was given");
@@ -193,14 +231,25 @@ impl TypedStage for Distribution {
 
 fn histogram_table(s: &SizeStats, unit: &str) -> Table {
     let k = s.counts.len();
-    let num = |name: &str, u: &str, v: Vec<f64>| Column { name: name.into(), unit: u.into(), data: ColumnData::Number { values: v, uncertainty: None } };
+    let num = |name: &str, u: &str, v: Vec<f64>| Column {
+        name: name.into(),
+        unit: u.into(),
+        data: ColumnData::Number {
+            values: v,
+            uncertainty: None,
+        },
+    };
     Table {
         title: "size distribution".into(),
         columns: vec![
             num("bin_low", unit, s.edges[..k].to_vec()),
             num("bin_high", unit, s.edges[1..].to_vec()),
             num("count", "", s.counts.iter().map(|&c| c as f64).collect()),
-            num("fraction", "", s.counts.iter().map(|&c| c as f64 / s.n as f64).collect()),
+            num(
+                "fraction",
+                "",
+                s.counts.iter().map(|&c| c as f64 / s.n as f64).collect(),
+            ),
         ],
     }
 }
@@ -209,10 +258,14 @@ fn histogram_table(s: &SizeStats, unit: &str) -> Table {
 pub fn size_stats(values: &[f64], o: &DistributionOptions) -> Result<SizeStats, StageError> {
     let n = values.len();
     if n < 2 {
-        return Err(StageError::input(format!("{n} particle(s): at least 2 are needed for a distribution")));
+        return Err(StageError::input(format!(
+            "{n} particle(s): at least 2 are needed for a distribution"
+        )));
     }
     if values.iter().any(|&v| !(v > 0.0)) {
-        return Err(StageError::input("sizes must be positive for the log-normal fit"));
+        return Err(StageError::input(
+            "sizes must be positive for the log-normal fit",
+        ));
     }
     let mut sorted = values.to_vec();
     sorted.sort_by(f64::total_cmp);
@@ -236,9 +289,21 @@ pub fn size_stats(values: &[f64], o: &DistributionOptions) -> Result<SizeStats, 
             }
         }
     };
-    let (lo_e, hi_e) = if hi > lo { (lo, hi) } else { (lo - 0.5, hi + 0.5) };
+    let (lo_e, hi_e) = if hi > lo {
+        (lo, hi)
+    } else {
+        (lo - 0.5, hi + 0.5)
+    };
     let step = (hi_e - lo_e) / bins as f64;
-    let edges: Vec<f64> = (0..=bins).map(|i| if i == bins { hi_e } else { lo_e + i as f64 * step }).collect();
+    let edges: Vec<f64> = (0..=bins)
+        .map(|i| {
+            if i == bins {
+                hi_e
+            } else {
+                lo_e + i as f64 * step
+            }
+        })
+        .collect();
     let mut counts = vec![0usize; bins];
     for &v in &sorted {
         let i = (((v - lo_e) / step) as usize).min(bins - 1);

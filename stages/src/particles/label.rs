@@ -70,7 +70,11 @@ impl Default for LabelOptions {
 
 pub struct Label;
 
-static MASK_IN: &[Port] = &[Port::each("mask", Kind::Labels, "an object mask (non-zero = object)")];
+static MASK_IN: &[Port] = &[Port::each(
+    "mask",
+    Kind::Labels,
+    "an object mask (non-zero = object)",
+)];
 static REFS: &[Reference] = &[FELZENSZWALB2012, GRIMAUD1992, BEUCHER1979, MEYER1994];
 
 impl TypedStage for Label {
@@ -124,14 +128,26 @@ impl TypedStage for Label {
         let mask: Vec<bool> = m.labels.iter().map(|&v| v != 0).collect();
         let (px, py, _) = common::pixel_dims(&m.pixel_size);
         let raw = if o.split {
-            watershed_split(&mask, m.width, m.height, o.connectivity, o.smooth, o.min_height, px / py)
+            watershed_split(
+                &mask,
+                m.width,
+                m.height,
+                o.connectivity,
+                o.smooth,
+                o.min_height,
+                px / py,
+            )
         } else {
             label_components(&mask, m.width, m.height, o.connectivity).0
         };
-        let (labels, count, border, small) = exclude(&raw, m.width, m.height, o.exclude_border, min_px);
+        let (labels, count, border, small) =
+            exclude(&raw, m.width, m.height, o.exclude_border, min_px);
         let mut metadata = m.metadata.clone();
         metadata.insert("connectivity".into(), o.connectivity.to_string());
-        metadata.insert("split".into(), if o.split { "watershed" } else { "none" }.into());
+        metadata.insert(
+            "split".into(),
+            if o.split { "watershed" } else { "none" }.into(),
+        );
         metadata.insert("excluded_border".into(), border.to_string());
         metadata.insert("excluded_small".into(), small.to_string());
         metadata.insert("min_area_px".into(), min_px.to_string());
@@ -158,14 +174,18 @@ fn min_area_pixels(o: &LabelOptions, m: &Labels) -> Result<usize, StageError> {
         return Ok(o.min_area.ceil() as usize);
     }
     match &m.pixel_size {
-        Some(p) if o.area_unit == format!("{}^2", p.unit) || o.area_unit == format!("{}²", p.unit) => {
+        Some(p)
+            if o.area_unit == format!("{}^2", p.unit) || o.area_unit == format!("{}²", p.unit) =>
+        {
             Ok((o.min_area / (p.x * p.y)).ceil() as usize)
         }
         Some(p) => Err(StageError::input(format!(
             "min_area is in {} but the pixel size is in {} (use {}^2 or px)",
             o.area_unit, p.unit, p.unit
         ))),
-        None => Err(StageError::input("min_area has a physical unit but the image has no pixel size; use px")),
+        None => Err(StageError::input(
+            "min_area has a physical unit but the image has no pixel size; use px",
+        )),
     }
 }
 
@@ -249,7 +269,13 @@ pub fn label_components(mask: &[bool], w: usize, h: usize, connectivity: u8) -> 
 
 /// Removes particles touching the border (when asked) and smaller than `min_px` pixels;
 /// renumbers the rest in raster order. Returns labels, count, removed at border, removed small.
-pub fn exclude(lab: &[u32], w: usize, h: usize, border: bool, min_px: usize) -> (Vec<u32>, u32, usize, usize) {
+pub fn exclude(
+    lab: &[u32],
+    w: usize,
+    h: usize,
+    border: bool,
+    min_px: usize,
+) -> (Vec<u32>, u32, usize, usize) {
     let n = lab.iter().copied().max().unwrap_or(0) as usize;
     let mut area = vec![0usize; n + 1];
     let mut touches = vec![false; n + 1];
@@ -298,9 +324,18 @@ pub fn exclude(lab: &[u32], w: usize, h: usize, border: bool, min_px: usize) -> 
 fn neighbours(i: usize, w: usize, h: usize, connectivity: u8, out: &mut Vec<usize>) {
     out.clear();
     let (c, r) = ((i % w) as isize, (i / w) as isize);
-    for (dc, dr) in [(-1, 0), (1, 0), (0, -1), (0, 1), (-1, -1), (1, -1), (-1, 1), (1, 1)]
-        .into_iter()
-        .take(if connectivity == 8 { 8 } else { 4 })
+    for (dc, dr) in [
+        (-1, 0),
+        (1, 0),
+        (0, -1),
+        (0, 1),
+        (-1, -1),
+        (1, -1),
+        (-1, 1),
+        (1, 1),
+    ]
+    .into_iter()
+    .take(if connectivity == 8 { 8 } else { 4 })
     {
         let (cc, rr) = (c + dc, r + dr);
         if cc >= 0 && rr >= 0 && (cc as usize) < w && (rr as usize) < h {
@@ -321,9 +356,26 @@ fn key(v: f64) -> u64 {
 
 /// Watershed split of the mask's particles (labels 1.. in raster order of marker flooding,
 /// renumbered by [`exclude`] afterwards). `aspect` = pixel width / height.
-pub fn watershed_split(mask: &[bool], w: usize, h: usize, connectivity: u8, smooth: f64, min_height: f64, aspect: f64) -> Vec<u32> {
+pub fn watershed_split(
+    mask: &[bool],
+    w: usize,
+    h: usize,
+    connectivity: u8,
+    smooth: f64,
+    min_height: f64,
+    aspect: f64,
+) -> Vec<u32> {
     let d2 = common::squared_distance(w, h, |i| !mask[i], aspect, 1.0);
-    let mut dist: Vec<f64> = d2.iter().map(|v| if v.is_finite() { v.sqrt() } else { (w + h) as f64 }).collect();
+    let mut dist: Vec<f64> = d2
+        .iter()
+        .map(|v| {
+            if v.is_finite() {
+                v.sqrt()
+            } else {
+                (w + h) as f64
+            }
+        })
+        .collect();
     if smooth > 0.0 {
         common::gaussian_exact(&mut dist, w, h, smooth, smooth);
     }
@@ -344,7 +396,10 @@ pub fn watershed_split(mask: &[bool], w: usize, h: usize, connectivity: u8, smoo
             if !done[q] {
                 continue;
             }
-            let (rp, rq) = (find(&mut parent, p as u32) as usize, find(&mut parent, q as u32) as usize);
+            let (rp, rq) = (
+                find(&mut parent, p as u32) as usize,
+                find(&mut parent, q as u32) as usize,
+            );
             if rp == rq {
                 continue;
             }
@@ -418,7 +473,9 @@ mod tests {
 
     #[test]
     fn exclusion_counts_border_and_small() {
-        let lab = [1, 0, 0, 0, 0, 0, 2, 2, 0, 0, 0, 2, 2, 3, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0];
+        let lab = [
+            1, 0, 0, 0, 0, 0, 2, 2, 0, 0, 0, 2, 2, 3, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0,
+        ];
         let (out, n, b, s) = exclude(&lab, 5, 5, true, 2);
         assert_eq!((n, b, s), (1, 1, 1));
         assert_eq!(out[6], 1);

@@ -40,7 +40,12 @@ pub struct Measure;
 
 static INPUTS: &[Port] = &[
     Port::each("labels", Kind::Labels, "the labelled particles"),
-    Port::each("image", Kind::Image, "the intensity image for mean intensities").optional(),
+    Port::each(
+        "image",
+        Kind::Image,
+        "the intensity image for mean intensities",
+    )
+    .optional(),
 ];
 static REFS: &[Reference] = &[SERRA1982, TOUSSAINT1983];
 
@@ -78,7 +83,12 @@ impl TypedStage for Measure {
         let l = labels_in(inputs, 0)?;
         let img = match inputs.optional(1).map(|a| &a.value) {
             Some(Value::Image(i)) => Some(i),
-            Some(other) => return Err(StageError::input(format!("expected an image, got a {}", other.kind().name()))),
+            Some(other) => {
+                return Err(StageError::input(format!(
+                    "expected an image, got a {}",
+                    other.kind().name()
+                )))
+            }
             None => None,
         };
         if let Some(i) = img {
@@ -94,24 +104,66 @@ impl TypedStage for Measure {
         let mut a = Artifact::new(Value::Table(particle_table(&parts, &unit, img, o)));
         let n = parts.len();
         let analysed = (l.width * l.height) as f64 * px * py;
-        let meta_num = |k: &str| l.metadata.get(k).and_then(|v| v.parse::<f64>().ok()).unwrap_or(0.0);
+        let meta_num = |k: &str| {
+            l.metadata
+                .get(k)
+                .and_then(|v| v.parse::<f64>().ok())
+                .unwrap_or(0.0)
+        };
         a.record(Record::number("count", n as f64, None, ""));
-        a.record(Record::number("excluded_border", meta_num("excluded_border"), None, ""));
-        a.record(Record::number("excluded_small", meta_num("excluded_small"), None, ""));
-        a.record(Record::number("analysed_area", analysed, None, &format!("{unit}^2")));
+        a.record(Record::number(
+            "excluded_border",
+            meta_num("excluded_border"),
+            None,
+            "",
+        ));
+        a.record(Record::number(
+            "excluded_small",
+            meta_num("excluded_small"),
+            None,
+            "",
+        ));
+        a.record(Record::number(
+            "analysed_area",
+            analysed,
+            None,
+            &format!("{unit}^2"),
+        ));
         a.record(Record::number("pixel_size", px, None, &unit));
         a.record(Record::text(
             "threshold_method",
-            l.metadata.get("threshold.method").cloned().unwrap_or_else(|| "unknown".into()),
+            l.metadata
+                .get("threshold.method")
+                .cloned()
+                .unwrap_or_else(|| "unknown".into()),
         ));
-        if let Some(t) = l.metadata.get("threshold.value").and_then(|v| v.parse::<f64>().ok()) {
+        if let Some(t) = l
+            .metadata
+            .get("threshold.value")
+            .and_then(|v| v.parse::<f64>().ok())
+        {
             a.record(Record::number("threshold", t, None, ""));
         }
         if n > 0 {
             let mean = |f: fn(&Particle) -> f64| parts.iter().map(f).sum::<f64>() / n as f64;
-            a.record(Record::number("mean_equivalent_diameter", mean(|p| p.equivalent_diameter), None, &unit));
-            a.record(Record::number("mean_area", mean(|p| p.area), None, &format!("{unit}^2")));
-            a.record(Record::number("mean_circularity", mean(|p| p.circularity), None, ""));
+            a.record(Record::number(
+                "mean_equivalent_diameter",
+                mean(|p| p.equivalent_diameter),
+                None,
+                &unit,
+            ));
+            a.record(Record::number(
+                "mean_area",
+                mean(|p| p.area),
+                None,
+                &format!("{unit}^2"),
+            ));
+            a.record(Record::number(
+                "mean_circularity",
+                mean(|p| p.circularity),
+                None,
+                "",
+            ));
         }
         if l.pixel_size.is_none() {
             a.warn("the image has no pixel size: lengths are in pixels (px)");
@@ -125,12 +177,20 @@ impl TypedStage for Measure {
     }
 }
 
-fn particle_table(parts: &[Particle], unit: &str, img: Option<&Image>, o: &MeasureOptions) -> Table {
+fn particle_table(
+    parts: &[Particle],
+    unit: &str,
+    img: Option<&Image>,
+    o: &MeasureOptions,
+) -> Table {
     let area_u = format!("{unit}^2");
     let col = |name: &str, unit: &str, f: &dyn Fn(&Particle) -> f64| Column {
         name: name.into(),
         unit: unit.into(),
-        data: ColumnData::Number { values: parts.iter().map(f).collect(), uncertainty: None },
+        data: ColumnData::Number {
+            values: parts.iter().map(f).collect(),
+            uncertainty: None,
+        },
     };
     let mut columns = vec![
         col("label", "", &|p| p.label as f64),
@@ -147,7 +207,14 @@ fn particle_table(parts: &[Particle], unit: &str, img: Option<&Image>, o: &Measu
     if let Some(i) = img {
         columns.push(col("mean_intensity", &i.z_axis.unit, &|p| p.mean_intensity));
     }
-    Table { title: if o.title.is_empty() { "particles".into() } else { o.title.clone() }, columns }
+    Table {
+        title: if o.title.is_empty() {
+            "particles".into()
+        } else {
+            o.title.clone()
+        },
+        columns,
+    }
 }
 
 /// Measures every label 1..=count (labels with no pixel are skipped).
@@ -222,7 +289,12 @@ pub fn measure(l: &Labels, img: Option<&Image>) -> Vec<Particle> {
             * px;
         let mut pts = Vec::with_capacity(rows[v].len() * 4);
         for &(r, c0, c1) in &rows[v] {
-            let (x0, x1, y0, y1) = (c0 as f64 * px, (c1 + 1) as f64 * px, r as f64 * py, (r + 1) as f64 * py);
+            let (x0, x1, y0, y1) = (
+                c0 as f64 * px,
+                (c1 + 1) as f64 * px,
+                r as f64 * py,
+                (r + 1) as f64 * py,
+            );
             pts.extend([(x0, y0), (x0, y1), (x1, y0), (x1, y1)]);
         }
         let hull = convex_hull(pts);
@@ -259,10 +331,15 @@ pub fn convex_hull(mut pts: Vec<(f64, f64)>) -> Vec<(f64, f64)> {
     let mut hull: Vec<(f64, f64)> = Vec::with_capacity(2 * pts.len());
     for pass in 0..2 {
         let start = hull.len();
-        let iter: Box<dyn Iterator<Item = &(f64, f64)>> =
-            if pass == 0 { Box::new(pts.iter()) } else { Box::new(pts.iter().rev()) };
+        let iter: Box<dyn Iterator<Item = &(f64, f64)>> = if pass == 0 {
+            Box::new(pts.iter())
+        } else {
+            Box::new(pts.iter().rev())
+        };
         for &p in iter {
-            while hull.len() >= start + 2 && cross(hull[hull.len() - 2], hull[hull.len() - 1], p) <= 0.0 {
+            while hull.len() >= start + 2
+                && cross(hull[hull.len() - 2], hull[hull.len() - 1], p) <= 0.0
+            {
                 hull.pop();
             }
             hull.push(p);
@@ -305,10 +382,23 @@ mod tests {
     #[test]
     fn feret_of_a_rectangle_and_a_square_pixel() {
         // Analytic: a 4×3 rectangle has Feret max 5 (its diagonal) and min 3.
-        let h = convex_hull(vec![(0.0, 0.0), (4.0, 0.0), (4.0, 3.0), (0.0, 3.0), (2.0, 1.0)]);
+        let h = convex_hull(vec![
+            (0.0, 0.0),
+            (4.0, 0.0),
+            (4.0, 3.0),
+            (0.0, 3.0),
+            (2.0, 1.0),
+        ]);
         let (fmax, fmin) = feret(&h);
         assert!((fmax - 5.0).abs() < 1e-12 && (fmin - 3.0).abs() < 1e-12);
-        let l = Labels { width: 3, height: 3, labels: vec![0, 0, 0, 0, 1, 0, 0, 0, 0], count: 1, pixel_size: None, metadata: Default::default() };
+        let l = Labels {
+            width: 3,
+            height: 3,
+            labels: vec![0, 0, 0, 0, 1, 0, 0, 0, 0],
+            count: 1,
+            pixel_size: None,
+            metadata: Default::default(),
+        };
         let p = &measure(&l, None)[0];
         assert!((p.feret_max - 2f64.sqrt()).abs() < 1e-12 && (p.feret_min - 1.0).abs() < 1e-12);
         // One pixel: n0 = n90 = 2, n45 = n135 = 2 → P = π/8·(4 + 4/√2).

@@ -71,7 +71,14 @@ pub struct ThresholdOptions {
 
 impl Default for ThresholdOptions {
     fn default() -> Self {
-        ThresholdOptions { method: Method::Otsu, value: None, bins: 256, window: 51, offset: 0.0, objects: Objects::Bright }
+        ThresholdOptions {
+            method: Method::Otsu,
+            value: None,
+            bins: 256,
+            window: 51,
+            offset: 0.0,
+            objects: Objects::Bright,
+        }
     }
 }
 
@@ -91,14 +98,21 @@ impl TypedStage for Threshold {
     };
     fn check(&self, o: &ThresholdOptions) -> Result<(), OptionError> {
         match o.method {
-            Method::Fixed if o.value.is_none_or(|v| !v.is_finite()) => {
-                Err(OptionError::new("value", "the fixed method needs a finite value"))
-            }
-            Method::Otsu if !(2..=1 << 20).contains(&o.bins) => {
-                Err(OptionError::new("bins", "bins must be between 2 and 1048576"))
-            }
-            Method::AdaptiveMean | Method::AdaptiveGaussian if o.window % 2 == 0 || o.window < 3 => {
-                Err(OptionError::new("window", "the window must be odd and at least 3"))
+            Method::Fixed if o.value.is_none_or(|v| !v.is_finite()) => Err(OptionError::new(
+                "value",
+                "the fixed method needs a finite value",
+            )),
+            Method::Otsu if !(2..=1 << 20).contains(&o.bins) => Err(OptionError::new(
+                "bins",
+                "bins must be between 2 and 1048576",
+            )),
+            Method::AdaptiveMean | Method::AdaptiveGaussian
+                if o.window % 2 == 0 || o.window < 3 =>
+            {
+                Err(OptionError::new(
+                    "window",
+                    "the window must be odd and at least 3",
+                ))
             }
             _ if !o.offset.is_finite() => Err(OptionError::new("offset", "offset must be finite")),
             _ => Ok(()),
@@ -132,7 +146,9 @@ impl TypedStage for Threshold {
         let (mask, t) = threshold(img, o)?;
         let mut a = Artifact::new(Value::Labels(mask));
         let frac = match &a.value {
-            Value::Labels(l) => l.labels.iter().filter(|&&v| v != 0).count() as f64 / l.labels.len() as f64,
+            Value::Labels(l) => {
+                l.labels.iter().filter(|&&v| v != 0).count() as f64 / l.labels.len() as f64
+            }
             _ => 0.0,
         };
         a.record(Record::text("threshold_method", method_name(o.method)));
@@ -159,7 +175,9 @@ pub fn otsu_threshold(data: &[f32], bins: usize) -> Result<f64, StageError> {
     let (lo, hi) = common::min_max(data);
     let (lo, hi) = (lo as f64, hi as f64);
     if !(hi > lo) {
-        return Err(StageError::input("the image is uniform: no threshold separates two classes"));
+        return Err(StageError::input(
+            "the image is uniform: no threshold separates two classes",
+        ));
     }
     let mut hist = vec![0f64; bins];
     let norm = bins as f64 / (hi - lo);
@@ -238,7 +256,11 @@ pub fn threshold(img: &Image, o: &ThresholdOptions) -> Result<(Labels, Option<f6
                 .zip(&mean)
                 .map(|(&v, &m)| {
                     let v = v as f64;
-                    u32::from(if bright { v > m + o.offset } else { v < m - o.offset })
+                    u32::from(if bright {
+                        v > m + o.offset
+                    } else {
+                        v < m - o.offset
+                    })
                 })
                 .collect();
             (m, None)
@@ -249,12 +271,22 @@ pub fn threshold(img: &Image, o: &ThresholdOptions) -> Result<(Labels, Option<f6
     if let Some(t) = t {
         metadata.insert("threshold.value".into(), format!("{t}"));
     }
-    metadata.insert("objects".into(), if bright { "bright" } else { "dark" }.into());
+    metadata.insert(
+        "objects".into(),
+        if bright { "bright" } else { "dark" }.into(),
+    );
     if let Some(s) = img.metadata.get("source") {
         metadata.insert("source".into(), s.clone());
     }
     Ok((
-        Labels { width: img.width, height: img.height, labels: mask, count: 1, pixel_size: img.pixel_size.clone(), metadata },
+        Labels {
+            width: img.width,
+            height: img.height,
+            labels: mask,
+            count: 1,
+            pixel_size: img.pixel_size.clone(),
+            metadata,
+        },
         t,
     ))
 }
@@ -297,13 +329,21 @@ pub struct MorphologyOptions {
 
 impl Default for MorphologyOptions {
     fn default() -> Self {
-        MorphologyOptions { operation: Operation::Open, shape: Shape::Disk, radius: 1 }
+        MorphologyOptions {
+            operation: Operation::Open,
+            shape: Shape::Disk,
+            radius: 1,
+        }
     }
 }
 
 pub struct Morphology;
 
-static MASK_IN: &[Port] = &[Port::each("mask", Kind::Labels, "a mask or label image (non-zero = object)")];
+static MASK_IN: &[Port] = &[Port::each(
+    "mask",
+    Kind::Labels,
+    "a mask or label image (non-zero = object)",
+)];
 
 impl TypedStage for Morphology {
     type Options = MorphologyOptions;
@@ -342,7 +382,10 @@ impl TypedStage for Morphology {
         let mask: Vec<bool> = l.labels.iter().map(|&v| v != 0).collect();
         let out = morphology(&mask, l.width, l.height, o);
         let mut metadata = l.metadata.clone();
-        metadata.insert("morphology".into(), format!("{:?} {:?} r={}", o.operation, o.shape, o.radius).to_lowercase());
+        metadata.insert(
+            "morphology".into(),
+            format!("{:?} {:?} r={}", o.operation, o.shape, o.radius).to_lowercase(),
+        );
         Ok(Artifact::new(Value::Labels(Labels {
             width: l.width,
             height: l.height,
@@ -367,7 +410,9 @@ pub fn morphology(mask: &[bool], w: usize, h: usize, o: &MorphologyOptions) -> V
     let dilate = |m: &[bool]| match o.shape {
         Shape::Disk => {
             let d = common::squared_distance(w, h, |i| m[i], 1.0, 1.0);
-            d.iter().map(|&v| v <= (r * r) as f64).collect::<Vec<bool>>()
+            d.iter()
+                .map(|&v| v <= (r * r) as f64)
+                .collect::<Vec<bool>>()
         }
         Shape::Square => square(m, w, h, r, false),
     };
@@ -394,7 +439,17 @@ fn square(m: &[bool], w: usize, h: usize, r: usize, erode: bool) -> Vec<bool> {
             let a = i.saturating_sub(r);
             let b = (i + r + 1).min(n);
             let ones = prefix[b] - prefix[a];
-            *o = if erode { if ones == (b - a) as f64 { 1.0 } else { 0.0 } } else if ones > 0.0 { 1.0 } else { 0.0 };
+            *o = if erode {
+                if ones == (b - a) as f64 {
+                    1.0
+                } else {
+                    0.0
+                }
+            } else if ones > 0.0 {
+                1.0
+            } else {
+                0.0
+            };
         }
     });
     d.iter().map(|&v| v > 0.5).collect()
@@ -406,7 +461,9 @@ mod tests {
 
     #[test]
     fn otsu_splits_two_levels_between_them() {
-        let data: Vec<f32> = (0..1000).map(|i| if i % 3 == 0 { 200.0 } else { 50.0 }).collect();
+        let data: Vec<f32> = (0..1000)
+            .map(|i| if i % 3 == 0 { 200.0 } else { 50.0 })
+            .collect();
         let t = otsu_threshold(&data, 256).unwrap();
         assert!(t > 50.0 && t < 200.0, "{t}");
         assert!(otsu_threshold(&[3.0; 10], 256).is_err());
@@ -423,7 +480,11 @@ mod tests {
             }
         }
         for shape in [Shape::Disk, Shape::Square] {
-            let o = MorphologyOptions { operation: Operation::Open, shape, radius: 1 };
+            let o = MorphologyOptions {
+                operation: Operation::Open,
+                shape,
+                radius: 1,
+            };
             let out = morphology(&m, w, h, &o);
             assert!(!out[3 * w + 3], "{shape:?}");
             assert!(out[20 * w + 20] && out[20 * w + 27], "{shape:?}");

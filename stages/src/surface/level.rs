@@ -44,7 +44,9 @@ pub struct LevelOptions {
 
 impl Default for LevelOptions {
     fn default() -> Self {
-        LevelOptions { method: Levelling::Plane }
+        LevelOptions {
+            method: Levelling::Plane,
+        }
     }
 }
 
@@ -57,7 +59,8 @@ impl TypedStage for Level {
     const INFO: &'static StageInfo = &StageInfo {
         name: "surface.level",
         version: 1,
-        summary: "Level a height map: least-squares plane or quadratic surface, or line-by-line offsets",
+        summary:
+            "Level a height map: least-squares plane or quadratic surface, or line-by-line offsets",
         inputs: INPUTS,
         output: Kind::Image,
         references: &[PRESS2007],
@@ -78,15 +81,35 @@ impl TypedStage for Level {
         let rms = (z.iter().map(|v| v * v).sum::<f64>() / z.len() as f64).sqrt();
         let mut out = with_data(img, z.iter().map(|&v| v as f32).collect());
         out.source_bits = 32;
-        out.metadata.insert("levelling".into(), format!("{:?}", o.method).to_lowercase());
-        Ok(Artifact::new(Value::Image(out)).with_results(vec![Record::number("levelled_rms", rms, None, &img.z_axis.unit)]))
+        out.metadata
+            .insert("levelling".into(), format!("{:?}", o.method).to_lowercase());
+        Ok(
+            Artifact::new(Value::Image(out)).with_results(vec![Record::number(
+                "levelled_rms",
+                rms,
+                None,
+                &img.z_axis.unit,
+            )]),
+        )
     }
 }
 
 /// Levels the w×h height map in place.
 pub fn level(z: &mut [f64], w: usize, h: usize, method: Levelling) -> Result<(), StageError> {
-    let xs = |c: usize| if w > 1 { 2.0 * c as f64 / (w - 1) as f64 - 1.0 } else { 0.0 };
-    let ys = |r: usize| if h > 1 { 2.0 * r as f64 / (h - 1) as f64 - 1.0 } else { 0.0 };
+    let xs = |c: usize| {
+        if w > 1 {
+            2.0 * c as f64 / (w - 1) as f64 - 1.0
+        } else {
+            0.0
+        }
+    };
+    let ys = |r: usize| {
+        if h > 1 {
+            2.0 * r as f64 / (h - 1) as f64 - 1.0
+        } else {
+            0.0
+        }
+    };
     match method {
         Levelling::Plane | Levelling::Quadratic => {
             let basis = |x: f64, y: f64| -> Vec<f64> {
@@ -113,7 +136,11 @@ pub fn level(z: &mut [f64], w: usize, h: usize, method: Levelling) -> Result<(),
             }
             let coef = ata
                 .cholesky()
-                .ok_or_else(|| StageError::numeric("the levelling surface is undetermined (too few rows or columns)"))?
+                .ok_or_else(|| {
+                    StageError::numeric(
+                        "the levelling surface is undetermined (too few rows or columns)",
+                    )
+                })?
                 .solve(&atb);
             for r in 0..h {
                 for c in 0..w {
@@ -126,7 +153,11 @@ pub fn level(z: &mut [f64], w: usize, h: usize, method: Levelling) -> Result<(),
             for row in z.chunks_mut(w) {
                 let mut s = row.to_vec();
                 s.sort_by(f64::total_cmp);
-                let med = if s.len() % 2 == 1 { s[s.len() / 2] } else { 0.5 * (s[s.len() / 2 - 1] + s[s.len() / 2]) };
+                let med = if s.len() % 2 == 1 {
+                    s[s.len() / 2]
+                } else {
+                    0.5 * (s[s.len() / 2 - 1] + s[s.len() / 2])
+                };
                 row.iter_mut().for_each(|v| *v -= med);
             }
         }
@@ -136,9 +167,15 @@ pub fn level(z: &mut [f64], w: usize, h: usize, method: Levelling) -> Result<(),
                 let mx = (0..row.len()).map(|c| c as f64).sum::<f64>() / n;
                 let my = row.iter().sum::<f64>() / n;
                 let sxx: f64 = (0..row.len()).map(|c| (c as f64 - mx).powi(2)).sum();
-                let sxy: f64 = row.iter().enumerate().map(|(c, v)| (c as f64 - mx) * (v - my)).sum();
+                let sxy: f64 = row
+                    .iter()
+                    .enumerate()
+                    .map(|(c, v)| (c as f64 - mx) * (v - my))
+                    .sum();
                 let slope = if sxx > 0.0 { sxy / sxx } else { 0.0 };
-                row.iter_mut().enumerate().for_each(|(c, v)| *v -= my + slope * (c as f64 - mx));
+                row.iter_mut()
+                    .enumerate()
+                    .for_each(|(c, v)| *v -= my + slope * (c as f64 - mx));
             }
         }
     }
@@ -152,7 +189,9 @@ mod tests {
     #[test]
     fn plane_and_quadratic_are_removed_exactly() {
         let (w, h) = (20, 15);
-        let mut z: Vec<f64> = (0..w * h).map(|i| 3.0 + 0.2 * (i % w) as f64 - 0.7 * (i / w) as f64).collect();
+        let mut z: Vec<f64> = (0..w * h)
+            .map(|i| 3.0 + 0.2 * (i % w) as f64 - 0.7 * (i / w) as f64)
+            .collect();
         level(&mut z, w, h, Levelling::Plane).unwrap();
         assert!(z.iter().all(|v| v.abs() < 1e-9));
         let mut z: Vec<f64> = (0..w * h)
@@ -163,7 +202,9 @@ mod tests {
             .collect();
         level(&mut z, w, h, Levelling::Quadratic).unwrap();
         assert!(z.iter().all(|v| v.abs() < 1e-9));
-        let mut z: Vec<f64> = (0..w * h).map(|i| (i / w) as f64 * 10.0 + (i % 3) as f64).collect();
+        let mut z: Vec<f64> = (0..w * h)
+            .map(|i| (i / w) as f64 * 10.0 + (i % 3) as f64)
+            .collect();
         level(&mut z, w, h, Levelling::LineMedian).unwrap();
         assert!(z.iter().all(|v| v.abs() <= 1.0 + 1e-12));
     }

@@ -37,7 +37,11 @@ pub struct ProfileOptions {
 
 impl Default for ProfileOptions {
     fn default() -> Self {
-        ProfileOptions { from: [0.0, 0.0], to: [1.0, 0.0], unit: "px".into() }
+        ProfileOptions {
+            from: [0.0, 0.0],
+            to: [1.0, 0.0],
+            unit: "px".into(),
+        }
     }
 }
 
@@ -55,7 +59,10 @@ impl TypedStage for Profile {
     };
     fn check(&self, o: &ProfileOptions) -> Result<(), OptionError> {
         if o.from == o.to || o.from.iter().chain(&o.to).any(|v| !v.is_finite()) {
-            return Err(OptionError::new("to", "from and to must be two different finite points"));
+            return Err(OptionError::new(
+                "to",
+                "from and to must be two different finite points",
+            ));
         }
         Ok(())
     }
@@ -75,13 +82,23 @@ impl TypedStage for Profile {
             } else if o.unit == unit {
                 Ok((p[0] / px, p[1] / py))
             } else {
-                Err(StageError::input(format!("points are in {} but the image's pixel size is in {unit}", o.unit)))
+                Err(StageError::input(format!(
+                    "points are in {} but the image's pixel size is in {unit}",
+                    o.unit
+                )))
             }
         };
         let (a, b) = (to_px(o.from)?, to_px(o.to)?);
         let s = profile(img, a, b)?;
         let len = *s.x.last().unwrap_or(&0.0);
-        Ok(Artifact::new(Value::Spectrum(s)).with_results(vec![Record::number("profile_length", len, None, &unit)]))
+        Ok(
+            Artifact::new(Value::Spectrum(s)).with_results(vec![Record::number(
+                "profile_length",
+                len,
+                None,
+                &unit,
+            )]),
+        )
     }
 }
 
@@ -98,7 +115,10 @@ pub fn bilinear(img: &Image, x: f64, y: f64) -> Option<f64> {
     let (c1, r1) = ((c0 + 1).min(img.width - 1), (r0 + 1).min(img.height - 1));
     let (tx, ty) = (x - c0 as f64, y - r0 as f64);
     let g = |c, r| img.get(c, r) as f64;
-    Some((1.0 - ty) * ((1.0 - tx) * g(c0, r0) + tx * g(c1, r0)) + ty * ((1.0 - tx) * g(c0, r1) + tx * g(c1, r1)))
+    Some(
+        (1.0 - ty) * ((1.0 - tx) * g(c0, r0) + tx * g(c1, r0))
+            + ty * ((1.0 - tx) * g(c0, r1) + tx * g(c1, r1)),
+    )
 }
 
 /// Profile between two points in pixel coordinates.
@@ -122,8 +142,10 @@ pub fn profile(img: &Image, a: (f64, f64), b: (f64, f64)) -> Result<Spectrum, St
         y.push(v);
     }
     let mut s = Spectrum::new(x, y, Axis::new("distance", unit), img.z_axis.clone());
-    s.metadata.insert("profile.from_px".into(), format!("{} {}", a.0, a.1));
-    s.metadata.insert("profile.to_px".into(), format!("{} {}", b.0, b.1));
+    s.metadata
+        .insert("profile.from_px".into(), format!("{} {}", a.0, a.1));
+    s.metadata
+        .insert("profile.to_px".into(), format!("{} {}", b.0, b.1));
     Ok(s)
 }
 
@@ -151,7 +173,11 @@ pub struct StepOptions {
 
 impl Default for StepOptions {
     fn default() -> Self {
-        StepOptions { region_a: [0, 0, 1, 1], region_b: [1, 0, 1, 1], uncertainty: StepUncertainty::StandardError }
+        StepOptions {
+            region_a: [0, 0, 1, 1],
+            region_b: [1, 0, 1, 1],
+            uncertainty: StepUncertainty::StandardError,
+        }
     }
 }
 
@@ -170,15 +196,22 @@ impl TypedStage for StepHeight {
     fn check(&self, o: &StepOptions) -> Result<(), OptionError> {
         for (k, r) in [("region_a", o.region_a), ("region_b", o.region_b)] {
             if r[2] == 0 || r[3] == 0 {
-                return Err(OptionError::new(k, "a region needs a width and height of at least 1 pixel"));
+                return Err(OptionError::new(
+                    k,
+                    "a region needs a width and height of at least 1 pixel",
+                ));
             }
         }
         Ok(())
     }
     fn methods(&self, o: &StepOptions) -> String {
         let u = match o.uncertainty {
-            StepUncertainty::StandardError => "the standard uncertainty of a difference of two means [gum2008]",
-            StepUncertainty::Spread => "the combined standard deviation of the two regions [gum2008]",
+            StepUncertainty::StandardError => {
+                "the standard uncertainty of a difference of two means [gum2008]"
+            }
+            StepUncertainty::Spread => {
+                "the combined standard deviation of the two regions [gum2008]"
+            }
         };
         format!(
             "Step heights were the difference of the mean heights of region B (columns {}–{}, rows {}–{}) and region A (columns {}–{}, rows {}–{}), with {u}.",
@@ -197,7 +230,10 @@ impl TypedStage for StepHeight {
         check_image(img)?;
         let stats = |r: [usize; 4], name: &str| -> Result<(f64, f64, usize), StageError> {
             if r[0] + r[2] > img.width || r[1] + r[3] > img.height {
-                return Err(StageError::input(format!("{name} {:?} does not fit in the {}×{} image", r, img.width, img.height)));
+                return Err(StageError::input(format!(
+                    "{name} {:?} does not fit in the {}×{} image",
+                    r, img.width, img.height
+                )));
             }
             let mut v = Vec::with_capacity(r[2] * r[3]);
             for row in r[1]..r[1] + r[3] {
@@ -207,7 +243,11 @@ impl TypedStage for StepHeight {
             }
             let n = v.len();
             let m = v.iter().sum::<f64>() / n as f64;
-            let s = if n > 1 { (v.iter().map(|x| (x - m).powi(2)).sum::<f64>() / (n - 1) as f64).sqrt() } else { 0.0 };
+            let s = if n > 1 {
+                (v.iter().map(|x| (x - m).powi(2)).sum::<f64>() / (n - 1) as f64).sqrt()
+            } else {
+                0.0
+            };
             Ok((m, s, n))
         };
         let (ma, sa, na) = stats(o.region_a, "region_a")?;

@@ -58,7 +58,8 @@ impl TypedStage for Roughness {
     const INFO: &'static StageInfo = &StageInfo {
         name: "surface.roughness",
         version: 1,
-        summary: "Areal roughness Sa, Sq, Ssk, Sku, Sp, Sv, Sz (ISO 25178-2) and line Ra, Rq (ISO 4287)",
+        summary:
+            "Areal roughness Sa, Sq, Ssk, Sku, Sp, Sv, Sz (ISO 25178-2) and line Ra, Rq (ISO 4287)",
         inputs: INPUTS,
         output: Kind::Summary,
         references: &[ISO25178, ISO4287],
@@ -76,10 +77,17 @@ impl TypedStage for Roughness {
         let img = image_in(inputs, 0)?;
         check_image(img)?;
         let z: Vec<f64> = img.data.iter().map(|&v| v as f64).collect();
-        let s = areal(&z).ok_or_else(|| StageError::input("the height map is flat (Sq = 0): skewness and kurtosis are undefined"))?;
+        let s = areal(&z).ok_or_else(|| {
+            StageError::input(
+                "the height map is flat (Sq = 0): skewness and kurtosis are undefined",
+            )
+        })?;
         let (ra, rq) = match o.row {
             Some(r) if r >= img.height => {
-                return Err(StageError::input(format!("row {r} is outside the {}-row map", img.height)))
+                return Err(StageError::input(format!(
+                    "row {r} is outside the {}-row map",
+                    img.height
+                )))
             }
             Some(r) => line(&z[r * img.width..(r + 1) * img.width]),
             None => {
