@@ -120,29 +120,36 @@ pub fn to_pixels(
     }
 }
 
-/// Applies a 1-D operation to every row, then every column, of a w×h buffer.
-pub fn separable(
-    data: &mut [f64],
-    w: usize,
-    h: usize,
-    mut op: impl FnMut(&[f64], &mut [f64], bool),
-) {
-    let mut line = vec![0.0; w.max(h)];
+/// Transposes a w×h row-major buffer into h×w, in cache-friendly blocks.
+pub fn transpose(src: &[f64], w: usize, h: usize, dst: &mut [f64]) {
+    const B: usize = 32;
+    for r0 in (0..h).step_by(B) {
+        for c0 in (0..w).step_by(B) {
+            for r in r0..(r0 + B).min(h) {
+                for c in c0..(c0 + B).min(w) {
+                    dst[c * h + r] = src[r * w + c];
+                }
+            }
+        }
+    }
+}
+
+/// Applies a 1-D operation to every row, then every column, of a w×h buffer. The flag
+/// tells the operation whether it runs along x (rows) or y (columns).
+pub fn separable(data: &mut [f64], w: usize, h: usize, mut op: impl FnMut(&[f64], &mut [f64], bool)) {
     let mut out = vec![0.0; w.max(h)];
     for r in 0..h {
-        line[..w].copy_from_slice(&data[r * w..(r + 1) * w]);
-        op(&line[..w], &mut out[..w], true);
+        op(&data[r * w..(r + 1) * w], &mut out[..w], true);
         data[r * w..(r + 1) * w].copy_from_slice(&out[..w]);
     }
+    // Columns as rows of the transposed buffer.
+    let mut t = vec![0.0; w * h];
+    transpose(data, w, h, &mut t);
     for c in 0..w {
-        for r in 0..h {
-            line[r] = data[r * w + c];
-        }
-        op(&line[..h], &mut out[..h], false);
-        for r in 0..h {
-            data[r * w + c] = out[r];
-        }
+        op(&t[c * h..(c + 1) * h], &mut out[..h], false);
+        t[c * h..(c + 1) * h].copy_from_slice(&out[..h]);
     }
+    transpose(&t, h, w, data);
 }
 
 /// Normalised Gaussian kernel of standard deviation `sigma` (samples), truncated at 4σ.
@@ -211,16 +218,20 @@ pub fn box_widths(sigma: f64, passes: usize) -> Vec<usize> {
 /// Running-sum box filter of odd width `width` along one line, reflecting at the ends.
 pub fn box_line(line: &[f64], width: usize, out: &mut [f64]) {
     let n = line.len();
-    let r = (width / 2) as isize;
+    let r = width / 2;
+    let ri = r as isize;
     let mut acc = 0.0;
-    for k in -r..=r {
+    for k in -ri..=ri {
         acc += line[reflect(k, n)];
     }
     let inv = 1.0 / width as f64;
     for i in 0..n {
         out[i] = acc * inv;
-        let ii = i as isize;
-        acc += line[reflect(ii + r + 1, n)] - line[reflect(ii - r, n)];
+        // Index arithmetic only near the ends (reflection costs a division).
+        let add = i + r + 1;
+        let a = if add < n { line[add] } else { line[reflect(add as isize, n)] };
+        let s = if i >= r { line[i - r] } else { line[reflect(i as isize - ri, n)] };
+        acc += a - s;
     }
 }
 
@@ -311,23 +322,10 @@ pub fn squared_distance(
         .map(|i| if is_source(i) { 0.0 } else { f64::INFINITY })
         .collect();
     let (mut v, mut z) = (Vec::new(), Vec::new());
-    // Columns first (weight py²), then rows (weight px²); the order does not matter.
-    let mut line = vec![0.0; h.max(w)];
-    let mut out = vec![0.0; h.max(w)];
-    for c in 0..w {
-        for r in 0..h {
-            line[r] = d[r * w + c];
-        }
-        lower_envelope(&line[..h], py * py, &mut out[..h], &mut v, &mut z);
-        for r in 0..h {
-            d[r * w + c] = out[r];
-        }
-    }
-    for r in 0..h {
-        line[..w].copy_from_slice(&d[r * w..(r + 1) * w]);
-        lower_envelope(&line[..w], px * px, &mut out[..w], &mut v, &mut z);
-        d[r * w..(r + 1) * w].copy_from_slice(&out[..w]);
-    }
+    // Rows (weight px²), then columns (weight py²); exact in either order.
+    separable(&mut d, w, h, |l, o, along_x| {
+        lower_envelope(l, if along_x { px * px } else { py * py }, o, &mut v, &mut z)
+    });
     d
 }
 

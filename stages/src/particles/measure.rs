@@ -230,13 +230,6 @@ pub fn measure(l: &Labels, img: Option<&Image>) -> Vec<Particle> {
     let mut cross_diag = vec![0usize; n + 1];
     // Row extents per label: (row, first column, last column), rows increasing.
     let mut rows: Vec<Vec<(usize, usize, usize)>> = vec![Vec::new(); n + 1];
-    let at = |c: isize, r: isize| -> u32 {
-        if c < 0 || r < 0 || c as usize >= w || r as usize >= h {
-            0
-        } else {
-            l.labels[r as usize * w + c as usize]
-        }
-    };
     for r in 0..h {
         for c in 0..w {
             let v = l.labels[r * w + c] as usize;
@@ -256,24 +249,36 @@ pub fn measure(l: &Labels, img: Option<&Image>) -> Vec<Particle> {
         }
     }
     // Boundary crossings: every pixel pair along 0°, 90°, 45°, 135°, including pairs with
-    // one pixel outside the image.
-    for r in -1..h as isize {
-        for c in -1..=w as isize {
-            let a = at(c, r);
-            for (dc, dr, diag) in [(1, 0, false), (0, 1, false), (1, 1, true), (-1, 1, true)] {
-                let b = at(c + dc, r + dr);
-                if a != b {
-                    for v in [a, b] {
-                        let v = v as usize;
-                        if v != 0 && v <= n {
-                            if diag {
-                                cross_diag[v] += 1;
-                            } else {
-                                cross_axis[v] += 1;
-                            }
-                        }
+    // one pixel outside the image (a zero border of one pixel is added around the labels).
+    let pw = w + 2;
+    let mut pad = vec![0u32; pw * (h + 2)];
+    for r in 0..h {
+        pad[(r + 1) * pw + 1..(r + 1) * pw + 1 + w].copy_from_slice(&l.labels[r * w..(r + 1) * w]);
+    }
+    let mut count_pair = |a: u32, b: u32, diag: bool| {
+        if a != b {
+            for v in [a as usize, b as usize] {
+                if v != 0 && v <= n {
+                    if diag {
+                        cross_diag[v] += 1;
+                    } else {
+                        cross_axis[v] += 1;
                     }
                 }
+            }
+        }
+    };
+    for r in 0..h + 1 {
+        for c in 0..pw {
+            let i = r * pw + c;
+            let a = pad[i];
+            if c + 1 < pw {
+                count_pair(a, pad[i + 1], false);
+                count_pair(a, pad[i + pw + 1], true);
+            }
+            count_pair(a, pad[i + pw], false);
+            if c > 0 {
+                count_pair(a, pad[i + pw - 1], true);
             }
         }
     }
