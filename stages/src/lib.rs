@@ -34,6 +34,13 @@ pub mod quant_util;
 pub mod uvvis;
 pub mod xps;
 pub mod xrd;
+// image analysis families
+pub mod ediff;
+pub mod elements;
+pub mod image;
+pub mod lattice;
+pub mod particles;
+pub mod surface;
 
 pub use registry::{find, CATALOG};
 pub use stage::{Stage, StageError, TypedStage};

@@ -41,6 +41,31 @@ pub static CATALOG: &[&dyn Stage] = &[
     &crate::xrd::scherrer::Scherrer,
     &crate::xrd::cubic::CubicLattice,
     &crate::xrd::index::XrdIndex,
+    // image (import and preparation)
+    &crate::image::import::ImportImage,
+    &crate::image::filters::Gaussian,
+    &crate::image::filters::Median,
+    &crate::image::filters::Flatten,
+    &crate::image::filters::Clip,
+    // particles
+    &crate::particles::threshold::Threshold,
+    &crate::particles::threshold::Morphology,
+    &crate::particles::label::Label,
+    &crate::particles::measure::Measure,
+    &crate::particles::distribution::Distribution,
+    // surface (AFM/STM height maps)
+    &crate::surface::level::Level,
+    &crate::surface::roughness::Roughness,
+    &crate::surface::profile::Profile,
+    &crate::surface::profile::StepHeight,
+    // lattice
+    &crate::lattice::fft::LatticeFft,
+    // ediff (electron diffraction)
+    &crate::ediff::rings::RadialProfile,
+    &crate::ediff::rings::Rings,
+    // elements (element maps)
+    &crate::elements::per_particle::ElementsPerParticle,
+    &crate::elements::per_particle::ElementsOverlay,
     // gather
     &crate::gather::table::GatherTable,
     // spectral core: import

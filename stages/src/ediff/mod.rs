@@ -1,0 +1,3 @@
+//! Electron diffraction ring patterns: centre, radial profile, ring radii, d-spacings.
+
+pub mod rings;

@@ -1,0 +1,3 @@
+//! Lattice spacings from the Fourier transform of lattice-resolved micrographs.
+
+pub mod fft;

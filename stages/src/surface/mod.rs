@@ -1,0 +1,5 @@
+//! Surface topography of AFM/STM height maps: levelling, roughness, profiles, step heights.
+
+pub mod level;
+pub mod profile;
+pub mod roughness;
