@@ -27,8 +27,8 @@ pub const BLUE: RGBColor = RGBColor(0x00, 0x72, 0xB2);
 pub const VERMILLION: RGBColor = RGBColor(0xD5, 0x5E, 0x00);
 pub const REDDISH_PURPLE: RGBColor = RGBColor(0xCC, 0x79, 0xA7);
 const GREY: RGBColor = RGBColor(0x88, 0x88, 0x88);
-/// Component colours, in order of use.
-const COMPONENTS: [RGBColor; 5] = [ORANGE, BLUISH_GREEN, REDDISH_PURPLE, BLUE, YELLOW];
+/// Component colours, in order of use (orange last: it is closest to the envelope).
+const COMPONENTS: [RGBColor; 5] = [BLUISH_GREEN, REDDISH_PURPLE, BLUE, ORANGE, YELLOW];
 
 const FONT: &str = "sans-serif";
 const WIDTH: u32 = 640;
@@ -385,8 +385,11 @@ fn histogram_svg(
         chart
             .draw_series(
                 bins.filter(|((a, b), c)| a.is_finite() && b.is_finite() && c.is_finite())
-                    .map(|((a, b), c)| {
-                        Rectangle::new([(*a, 0.0), (*b, *c)], SKY_BLUE.mix(0.8).filled())
+                    .flat_map(|((a, b), c)| {
+                        [
+                            Rectangle::new([(*a, 0.0), (*b, *c)], SKY_BLUE.mix(0.8).filled()),
+                            Rectangle::new([(*a, 0.0), (*b, *c)], BLUE.stroke_width(1)),
+                        ]
                     }),
             )
             .map_err(pe)?;

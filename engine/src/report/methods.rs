@@ -69,7 +69,10 @@ impl Methods {
             .iter()
             .filter_map(|r| cites.get_key_value(r.key.as_str()).map(|(k, _)| *k))
             .collect();
-        number_keys(sentence, &cites, &mut numbers)
+        if sentence.trim().is_empty() {
+            return String::new();
+        }
+        finish_sentence(&number_keys(sentence, &cites, &mut numbers))
     }
 }
 

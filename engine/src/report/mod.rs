@@ -244,12 +244,14 @@ fn write(path: &Path, bytes: &[u8]) -> Result<(), ReportError> {
     })
 }
 
-/// A file-name part: ASCII letters, digits, `-` and `.` kept, runs of anything
-/// else become one `_`; no leading dot; at most 60 characters; never empty.
+/// A file-name part: ASCII letters, digits and `-` kept, `.` kept after a letter
+/// or digit, runs of anything else become one `_`; at most 60 characters; never
+/// empty, never a path.
 pub fn sanitize(s: &str) -> String {
     let mut out = String::new();
     for c in s.chars() {
-        if c.is_ascii_alphanumeric() || c == '-' || (c == '.' && !out.is_empty()) {
+        let after_alnum = out.chars().last().is_some_and(|p| p.is_ascii_alphanumeric());
+        if c.is_ascii_alphanumeric() || c == '-' || (c == '.' && after_alnum) {
             out.push(c);
         } else if !out.ends_with('_') {
             out.push('_');

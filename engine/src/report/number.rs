@@ -5,17 +5,19 @@
 //! decimal place, so `1.23456 ± 0.012345` reads `1.235 ± 0.012` and
 //! `123456 ± 789` reads `123460 ± 790`.
 //!
-//! Fixed notation is used while the rounded value and uncertainty stay between
-//! 10⁻⁴ and 10⁶ in magnitude (at most five decimals); outside that both are
-//! written with one shared power of ten, `(1.235 ± 0.012) × 10⁻⁸`, so the two
-//! digits of the uncertainty are always visible.
+//! Fixed notation is used while the larger of the rounded value and uncertainty
+//! lies between 10⁻³ and 10⁶ in magnitude and at most eight decimals are needed;
+//! otherwise both are written with one shared power of ten,
+//! `(1.235 ± 0.012) × 10⁻⁸`, so the two digits of the uncertainty always show.
 //! A value without an uncertainty (None, zero or not finite) is written with six
 //! significant digits and trailing zeros dropped. The minus sign is ASCII so the
 //! text pastes into spreadsheets. CSV files never use this module: they keep
 //! every digit.
 
 /// Smallest magnitude written in fixed notation.
-const FIXED_MIN: f64 = 1e-4;
+const FIXED_MIN: f64 = 1e-3;
+/// Most decimals written in fixed notation.
+const MAX_DECIMALS: i32 = 8;
 /// Magnitude from which scientific notation is used.
 const FIXED_MAX: f64 = 1e6;
 /// Significant digits of a value that has no uncertainty.
@@ -41,11 +43,11 @@ pub fn format_measurement(value: f64, uncertainty: Option<f64>) -> String {
     let v_r = round_to(value, last);
     let biggest = v_r.abs().max(u_r);
     let decimals = -last;
-    if biggest < FIXED_MAX && u_r >= FIXED_MIN && decimals <= 5 {
+    let e = biggest.log10().floor() as i32;
+    if (FIXED_MIN..FIXED_MAX).contains(&biggest) && (decimals <= MAX_DECIMALS || e == 0) {
         let d = decimals.max(0) as usize;
         format!("{} ± {}", fixed(v_r, d), fixed(u_r, d))
     } else {
-        let e = biggest.log10().floor() as i32;
         let d = (e - last).max(0) as usize;
         let scale = pow10(e);
         format!(
