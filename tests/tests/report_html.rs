@@ -54,13 +54,35 @@ fn html_parses_and_shows_every_step() {
             .unwrap_or_else(|| panic!("no section for step {}", step.id));
         let figs = section.select(&sel("figure svg")).count();
         let tables = section.select(&sel("table")).count();
-        assert!(figs + tables > 0, "step {} shows neither figure nor table", step.id);
+        assert!(
+            figs + tables > 0,
+            "step {} shows neither figure nor table",
+            step.id
+        );
     }
     // Every figure and table is written to disk and named in the page.
-    assert!(summary.figure_errors.is_empty(), "{:?}", summary.figure_errors);
+    assert!(
+        summary.figure_errors.is_empty(),
+        "{:?}",
+        summary.figure_errors
+    );
     assert_eq!(doc.select(&sel("figure svg")).count(), summary.figures);
-    assert_eq!(std::fs::read_dir(dir.path().join("figures")).unwrap().count(), summary.figures);
-    assert_eq!(std::fs::read_dir(dir.path().join("tables")).unwrap().count(), summary.tables);
+    assert_eq!(
+        summary.inlined, summary.figures,
+        "a small report inlines every figure"
+    );
+    assert_eq!(
+        std::fs::read_dir(dir.path().join("figures"))
+            .unwrap()
+            .count(),
+        summary.figures
+    );
+    assert_eq!(
+        std::fs::read_dir(dir.path().join("tables"))
+            .unwrap()
+            .count(),
+        summary.tables
+    );
     for cap in doc.select(&sel("figcaption span, caption span")) {
         let name = cap.text().collect::<String>();
         let name = name.trim_matches(|c| c == '(' || c == ')');
@@ -76,7 +98,11 @@ fn nothing_remote_and_no_script() {
     let (dir, _) = rendered();
     let html = std::fs::read_to_string(dir.path().join("report.html")).unwrap();
     let doc = Html::parse_document(&html);
-    assert_eq!(doc.select(&sel("script")).count(), 0, "a live script element");
+    assert_eq!(
+        doc.select(&sel("script")).count(),
+        0,
+        "a live script element"
+    );
     assert_eq!(doc.select(&sel("link, iframe, object, embed")).count(), 0);
     let csp = doc
         .select(&sel("meta[http-equiv=\"Content-Security-Policy\"]"))
@@ -91,7 +117,9 @@ fn nothing_remote_and_no_script() {
             let lower = value.to_ascii_lowercase();
             if name.ends_with("src") || name.ends_with("href") {
                 assert!(
-                    !lower.contains("http:") && !lower.contains("https:") && !lower.starts_with("//"),
+                    !lower.contains("http:")
+                        && !lower.contains("https:")
+                        && !lower.starts_with("//"),
                     "remote reference {name}={value}"
                 );
             }
@@ -100,7 +128,10 @@ fn nothing_remote_and_no_script() {
     }
     for style in doc.select(&sel("style")) {
         let css = style.text().collect::<String>().to_ascii_lowercase();
-        assert!(!css.contains("url(") && !css.contains("@import"), "CSS loads something");
+        assert!(
+            !css.contains("url(") && !css.contains("@import"),
+            "CSS loads something"
+        );
     }
     // The markup sample name is shown as text, never as markup.
     assert!(doc.root_element().text().collect::<String>().contains(EVIL));
@@ -119,7 +150,10 @@ fn failed_checks_and_failures_are_impossible_to_miss() {
     assert_eq!(summary.failed_checks, 1);
     let html = std::fs::read_to_string(dir.path().join("report.html")).unwrap();
     let doc = Html::parse_document(&html);
-    let banner = doc.select(&sel("section.alarm#failed-checks")).next().expect("banner");
+    let banner = doc
+        .select(&sel("section.alarm#failed-checks"))
+        .next()
+        .expect("banner");
     let text = banner.text().collect::<String>();
     assert!(text.contains("1 of 2 checks failed") && text.contains("tauc.band_gap"));
     // The banner comes before everything but the header.
@@ -131,7 +165,10 @@ fn failed_checks_and_failures_are_impossible_to_miss() {
     assert!(page.contains("not run: onset failed for film_c"));
 
     let md = std::fs::read_to_string(dir.path().join("report.md")).unwrap();
-    let banner = md.find("check FAILED").or_else(|| md.find("checks FAILED")).expect("md banner");
+    let banner = md
+        .find("check FAILED")
+        .or_else(|| md.find("checks FAILED"))
+        .expect("md banner");
     assert!(banner < md.find("## Checks").unwrap());
     assert!(md.contains("not run: onset failed for film\\_c"));
 }
@@ -147,19 +184,26 @@ fn markdown_links_resolve_and_markup_is_escaped() {
         let close = rest.find("](").expect("image link");
         let end = rest[close..].find(')').unwrap() + close;
         let target = &rest[close + 2..end];
-        assert!(target.starts_with("figures/") && target.ends_with(".svg"), "{target}");
+        assert!(
+            target.starts_with("figures/") && target.ends_with(".svg"),
+            "{target}"
+        );
         assert!(dir.path().join(target).is_file(), "{target} missing");
         images += 1;
         rest = &rest[end..];
     }
-    assert_eq!(images, std::fs::read_dir(dir.path().join("figures")).unwrap().count());
+    assert_eq!(
+        images,
+        std::fs::read_dir(dir.path().join("figures"))
+            .unwrap()
+            .count()
+    );
     // Outside fenced recipe sources, no raw markup from data.
-    let outside_fences: String = md
-        .split("```")
-        .step_by(2)
-        .collect::<Vec<_>>()
-        .join("");
-    assert!(!outside_fences.contains("<script"), "raw markup in report.md");
+    let outside_fences: String = md.split("```").step_by(2).collect::<Vec<_>>().join("");
+    assert!(
+        !outside_fences.contains("<script"),
+        "raw markup in report.md"
+    );
     assert!(md.contains("&lt;script&gt;alert(1)&lt;/script&gt;"));
     // Pipe tables: every row of a table has as many cells as its header.
     let lines: Vec<&str> = md.lines().collect();
@@ -180,7 +224,10 @@ fn rendering_is_deterministic() {
     let (a, _) = rendered();
     let (b, _) = rendered();
     for sub in ["figures", "tables"] {
-        let mut names: Vec<_> = std::fs::read_dir(a.path().join(sub)).unwrap().map(|e| e.unwrap().file_name()).collect();
+        let mut names: Vec<_> = std::fs::read_dir(a.path().join(sub))
+            .unwrap()
+            .map(|e| e.unwrap().file_name())
+            .collect();
         names.sort();
         for n in names {
             let x = std::fs::read(a.path().join(sub).join(&n)).unwrap();
@@ -189,7 +236,10 @@ fn rendering_is_deterministic() {
         }
     }
     for f in ["report.md", "report.html"] {
-        assert!(std::fs::read(a.path().join(f)).unwrap() == std::fs::read(b.path().join(f)).unwrap(), "{f} differs");
+        assert!(
+            std::fs::read(a.path().join(f)).unwrap() == std::fs::read(b.path().join(f)).unwrap(),
+            "{f} differs"
+        );
     }
 }
 
@@ -203,14 +253,19 @@ fn figures_follow_the_trade_and_stay_small() {
     assert!(big.contains("binding energy (eV)"));
     // Binding energy drawn high-to-low: the tick label 295 lies left of 280.
     let pos = |s: &str, label: &str| {
-        let i = s.find(&format!(">\n{label}\n</text>")).unwrap_or_else(|| panic!("tick {label}"));
+        let i = s
+            .find(&format!(">\n{label}\n</text>"))
+            .unwrap_or_else(|| panic!("tick {label}"));
         let tag = &s[s[..i].rfind("<text").unwrap()..i];
         let x = tag.split("x=\"").nth(1).unwrap().split('"').next().unwrap();
         x.parse::<f64>().unwrap()
     };
     assert!(pos(&big, "295") < pos(&big, "280"));
     let uv = fig("uv__film_a.svg");
-    assert!(pos(&uv, "2.5") < pos(&uv, "4"), "photon energy drawn low-to-high");
+    assert!(
+        pos(&uv, "2.5") < pos(&uv, "4"),
+        "photon energy drawn low-to-high"
+    );
     // A fit has its residual panel; the Tauc plot marks its intercept.
     assert!(fig("envelope__film_a.svg").contains("residual"));
     assert!(fig("tauc__film_a.svg").contains("intercept 3.2 eV"));
@@ -218,7 +273,10 @@ fn figures_follow_the_trade_and_stay_small() {
     let m = fig("labels__grid_01.svg");
     assert!(m.contains("href=\"data:image/png;base64,") && m.contains("100 nm"));
     // The sanitised markup name.
-    assert!(dir.path().join("figures/raw__script_alert_1_script.svg").is_file());
+    assert!(dir
+        .path()
+        .join("figures/raw__script_alert_1_script.svg")
+        .is_file());
 }
 
 #[test]
@@ -230,10 +288,18 @@ fn methods_paragraph_matches_snapshot() {
         std::fs::create_dir_all(path.parent().unwrap()).unwrap();
         std::fs::write(&path, &text).unwrap();
     }
-    let want = std::fs::read_to_string(&path).expect("snapshot (run with RETORT_BLESS=1 to write it)");
-    assert_eq!(text, want, "methods paragraph changed; review and rerun with RETORT_BLESS=1");
+    let want =
+        std::fs::read_to_string(&path).expect("snapshot (run with RETORT_BLESS=1 to write it)");
+    assert_eq!(
+        text, want,
+        "methods paragraph changed; review and rerun with RETORT_BLESS=1"
+    );
     // Identical sentences are said once; every key became a number.
-    assert_eq!(text.matches("Results were collected into one table").count(), 1);
+    assert_eq!(
+        text.matches("Results were collected into one table")
+            .count(),
+        1
+    );
     assert!(!text.contains("[shirley1972]") && text.contains("[1]"));
     assert!(text.contains("retort 0.1.0"));
 }
@@ -251,5 +317,7 @@ fn template_folder_overrides_the_markdown() {
         "custom: Chapter 3: annealed coatings\n"
     );
     // The HTML template was not overridden.
-    assert!(std::fs::read_to_string(dir.path().join("report.html")).unwrap().contains("<h2>Methods</h2>"));
+    assert!(std::fs::read_to_string(dir.path().join("report.html"))
+        .unwrap()
+        .contains("<h2>Methods</h2>"));
 }

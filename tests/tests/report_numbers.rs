@@ -38,9 +38,13 @@ fn value_and_uncertainty_rounded_after_gum_7_2_6() {
         // Very small.
         (1.23456e-8, Some(1.2345e-10), "(1.235 ± 0.012) × 10⁻⁸"),
         // Small uncertainty on a moderate value: fixed up to eight decimals...
-        (3.14159265, Some(0.0000012), "3.1415927 ± 0.0000012"),
+        (4.12345678, Some(0.0000012), "4.1234568 ± 0.0000012"),
         // ...and never "× 10⁰".
-        (3.14159265358, Some(1.2e-10), "3.14159265358 ± 0.00000000012"),
+        (
+            4.12345678912,
+            Some(1.2e-10),
+            "4.12345678912 ± 0.00000000012",
+        ),
         (0.00012345, Some(0.0000012), "(1.235 ± 0.012) × 10⁻⁴"),
         // No usable uncertainty: six significant digits, zeros trimmed.
         (1.23456789, None, "1.23457"),
@@ -99,7 +103,13 @@ fn decimation_keeps_gaps_of_curves() {
     let x: Vec<f64> = (0..3000).map(f64::from).collect();
     let y: Vec<f64> = x
         .iter()
-        .map(|v| if (100.0..1000.0).contains(v) || *v >= 2000.0 { *v } else { f64::NAN })
+        .map(|v| {
+            if (100.0..1000.0).contains(v) || *v >= 2000.0 {
+                *v
+            } else {
+                f64::NAN
+            }
+        })
         .collect();
     let runs = decimate_runs(&x, &y, 300);
     assert_eq!(runs.len(), 2);
@@ -111,10 +121,16 @@ fn decimation_keeps_gaps_of_curves() {
 
 #[test]
 fn file_names_and_markdown_text_are_safe() {
-    assert_eq!(sanitize("<script>alert(1)</script>"), "script_alert_1_script");
+    assert_eq!(
+        sanitize("<script>alert(1)</script>"),
+        "script_alert_1_script"
+    );
     assert_eq!(sanitize("../../etc/passwd"), "etc_passwd");
     assert_eq!(sanitize("film A (annealed).csv"), "film_A_annealed_csv");
     assert_eq!(sanitize("run.2"), "run.2");
     assert_eq!(sanitize(""), "x");
-    assert_eq!(markdown_escape("a|b <i>*x*</i>"), "a\\|b &lt;i&gt;\\*x\\*&lt;/i&gt;");
+    assert_eq!(
+        markdown_escape("a|b <i>*x*</i>"),
+        "a\\|b &lt;i&gt;\\*x\\*&lt;/i&gt;"
+    );
 }

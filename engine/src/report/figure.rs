@@ -34,7 +34,7 @@ const FONT: &str = "sans-serif";
 const WIDTH: u32 = 640;
 const HEIGHT: u32 = 400;
 const LOWER_PANEL: u32 = 130;
-/// Data drawn as markers up to this many (decimated) points, as a line beyond.
+/// Data drawn as markers up to this many points, as a line beyond.
 const MARKER_LIMIT: usize = 150;
 /// Largest side of a micrograph thumbnail, in image pixels.
 pub const THUMB_MAX: usize = 240;
@@ -91,7 +91,10 @@ fn style_of(role: CurveRole, component: usize) -> (ShapeStyle, bool) {
     // (style, drawn in the lower panel)
     match role {
         CurveRole::Background => (SKY_BLUE.stroke_width(2), false),
-        CurveRole::Component => (COMPONENTS[component % COMPONENTS.len()].stroke_width(2), false),
+        CurveRole::Component => (
+            COMPONENTS[component % COMPONENTS.len()].stroke_width(2),
+            false,
+        ),
         CurveRole::Envelope => (VERMILLION.stroke_width(2), false),
         CurveRole::Residual => (BLACK_.stroke_width(1), true),
         CurveRole::Smoothed => (BLUE.stroke_width(2), false),
@@ -122,11 +125,8 @@ pub fn guide_intercept(x: &[f64], guide: &[f64]) -> Option<f64> {
 /// smoothed and reference copies, guide lines with their x intercept marked, and a
 /// lower panel for residuals or derivatives. `points` is the per-curve budget.
 pub fn spectrum_svg(s: &Spectrum, points: usize) -> Fig<String> {
-    let upper_curves: Vec<&stages::Curve> = s
-        .curves
-        .iter()
-        .filter(|c| !style_of(c.role, 0).1)
-        .collect();
+    let upper_curves: Vec<&stages::Curve> =
+        s.curves.iter().filter(|c| !style_of(c.role, 0).1).collect();
     let lower_curves: Vec<&stages::Curve> =
         s.curves.iter().filter(|c| style_of(c.role, 0).1).collect();
     let guide = s.curve(CurveRole::Guide);
@@ -180,8 +180,9 @@ pub fn spectrum_svg(s: &Spectrum, points: usize) -> Fig<String> {
             .map_err(pe)?;
 
         // Data first, so fitted curves lie on top.
+        let markers = s.len() <= MARKER_LIMIT;
         for run in decimate_runs(&s.x, &s.y, points) {
-            if run.len() <= MARKER_LIMIT {
+            if markers {
                 chart
                     .draw_series(
                         run.iter()
@@ -203,9 +204,7 @@ pub fn spectrum_svg(s: &Spectrum, points: usize) -> Fig<String> {
             }
             let mut first = true;
             for run in decimate_runs(&s.x, &c.y, points) {
-                let series = chart
-                    .draw_series(LineSeries::new(run, style))
-                    .map_err(pe)?;
+                let series = chart.draw_series(LineSeries::new(run, style)).map_err(pe)?;
                 if first {
                     series
                         .label(c.name.clone())
@@ -349,7 +348,10 @@ fn histogram_svg(
         tops.push(m.1);
     }
     let (_, ytop) = extent(tops).unwrap_or((0.0, 1.0));
-    let quantity = lo.0.name.trim_end_matches("_low").trim_end_matches("_start");
+    let quantity =
+        lo.0.name
+            .trim_end_matches("_low")
+            .trim_end_matches("_start");
     let quantity = if quantity.is_empty() || quantity == "bin" || quantity == "lower" {
         if t.title.is_empty() {
             "value"
@@ -504,14 +506,17 @@ fn calibration_svg(t: &Table, results: &[Record]) -> Fig<Option<String>> {
         let finite = |i: &usize| xc.1[*i].is_finite() && yc.1[*i].is_finite();
         if let Some(u) = y_unc {
             chart
-                .draw_series((0..rows).filter(finite).filter(|i| u[*i].is_finite()).map(
-                    |i| {
-                        PathElement::new(
-                            vec![(xc.1[i], yc.1[i] - u[i]), (xc.1[i], yc.1[i] + u[i])],
-                            BLACK_.stroke_width(1),
-                        )
-                    },
-                ))
+                .draw_series(
+                    (0..rows)
+                        .filter(finite)
+                        .filter(|i| u[*i].is_finite())
+                        .map(|i| {
+                            PathElement::new(
+                                vec![(xc.1[i], yc.1[i] - u[i]), (xc.1[i], yc.1[i] + u[i])],
+                                BLACK_.stroke_width(1),
+                            )
+                        }),
+                )
                 .map_err(pe)?;
         }
         chart
@@ -603,7 +608,10 @@ pub fn outline_overlay(labels: &Labels, tw: usize, th: usize) -> Vec<u8> {
         let y = ((ty as f64 + 0.5) * labels.height as f64 / th as f64) as usize;
         labels
             .labels
-            .get(y.min(labels.height.saturating_sub(1)) * labels.width + x.min(labels.width.saturating_sub(1)))
+            .get(
+                y.min(labels.height.saturating_sub(1)) * labels.width
+                    + x.min(labels.width.saturating_sub(1)),
+            )
             .copied()
             .unwrap_or(0)
     };
@@ -654,7 +662,11 @@ pub fn base64(bytes: &[u8]) -> String {
     const ABC: &[u8; 64] = b"ABCDEFGHIJKLMNOPQRSTUVWXYZabcdefghijklmnopqrstuvwxyz0123456789+/";
     let mut s = String::with_capacity(bytes.len().div_ceil(3) * 4);
     for chunk in bytes.chunks(3) {
-        let b = [chunk[0], *chunk.get(1).unwrap_or(&0), *chunk.get(2).unwrap_or(&0)];
+        let b = [
+            chunk[0],
+            *chunk.get(1).unwrap_or(&0),
+            *chunk.get(2).unwrap_or(&0),
+        ];
         let n = (u32::from(b[0]) << 16) | (u32::from(b[1]) << 8) | u32::from(b[2]);
         for i in 0..4 {
             if i <= chunk.len() {
@@ -725,7 +737,13 @@ pub fn micrograph_svg(image: Option<&Image>, labels: Option<&Labels>) -> Fig<Str
     {
         let root = SVGBackend::with_string(&mut buf, (width, height)).into_drawing_area();
         root.fill(&WHITE).map_err(pe)?;
-        draw_scale_bar(&root, margin, margin + dh, bar_drawn, &format!("{} {unit}", format_plain(bar)))?;
+        draw_scale_bar(
+            &root,
+            margin,
+            margin + dh,
+            bar_drawn,
+            &format!("{} {unit}", format_plain(bar)),
+        )?;
         root.present().map_err(pe)?;
     }
     // Glue: the thumbnail layers go first, under the scale bar.
@@ -756,8 +774,11 @@ fn draw_scale_bar(
 ) -> Fig<()> {
     let (x0, y0) = (x.round() as i32, (y + 10.0).round() as i32);
     let x1 = (x + length).round() as i32;
-    root.draw(&Rectangle::new([(x0, y0), (x1.max(x0 + 1), y0 + 5)], BLACK_.filled()))
-        .map_err(pe)?;
+    root.draw(&Rectangle::new(
+        [(x0, y0), (x1.max(x0 + 1), y0 + 5)],
+        BLACK_.filled(),
+    ))
+    .map_err(pe)?;
     root.draw(&Text::new(
         label.to_string(),
         (x1 + 8, y0 - 4),

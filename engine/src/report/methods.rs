@@ -54,7 +54,9 @@ fn citations(record: &RunRecord) -> BTreeMap<&str, &str> {
     let mut citations: BTreeMap<&str, &str> = BTreeMap::new();
     for step in &record.steps {
         for r in &step.references {
-            citations.entry(r.key.as_str()).or_insert(r.citation.as_str());
+            citations
+                .entry(r.key.as_str())
+                .or_insert(r.citation.as_str());
         }
     }
     citations
@@ -185,7 +187,8 @@ pub fn number_keys<'a>(
                     .map(|n| n.to_string())
                     .collect::<Vec<_>>()
                     .join(", ");
-                if out.ends_with(']') && out.rfind('[').is_some_and(|o| is_number_group(&out[o..])) {
+                if out.ends_with(']') && out.rfind('[').is_some_and(|o| is_number_group(&out[o..]))
+                {
                     out.pop();
                     out.push_str(", ");
                     out.push_str(&list);
@@ -233,8 +236,9 @@ mod tests {
 
     #[test]
     fn keys_become_numbers_in_order_of_first_use() {
-        let cites: BTreeMap<&str, &str> =
-            [("a", "A."), ("b", "B."), ("c", "C.")].into_iter().collect();
+        let cites: BTreeMap<&str, &str> = [("a", "A."), ("b", "B."), ("c", "C.")]
+            .into_iter()
+            .collect();
         let mut nums = Vec::new();
         assert_eq!(
             number_keys("x [b] and y [a; b][c] but [not a key]", &cites, &mut nums),

@@ -46,6 +46,8 @@ pub enum ReportError {
 #[derive(Debug, Default)]
 pub struct RenderSummary {
     pub figures: usize,
+    /// Figures inlined in report.html (the rest are linked to their files).
+    pub inlined: usize,
     pub tables: usize,
     /// Figures that could not be drawn (node, reason); the report says so too.
     pub figure_errors: Vec<String>,
@@ -62,6 +64,11 @@ const MD_TEMPLATE: &str = include_str!("../../templates/report.md");
 const POINT_BUDGET: usize = 300_000;
 const MIN_CURVE_POINTS: usize = 150;
 const MAX_CURVE_POINTS: usize = 1000;
+/// SVG bytes inlined in report.html, shared equally by the steps that draw; a
+/// step's figures beyond its share are linked to their files instead (the
+/// Markdown links every figure), so a run over thousands of spectra stays a page
+/// a browser opens. Smaller runs inline everything.
+const INLINE_SVG_BYTES: usize = 12_000_000;
 
 /// The cautions printed in every report footer (see the product brief).
 pub const CAUTIONS: [&str; 3] = [
@@ -161,6 +168,8 @@ struct StepView {
     methods: String,
     items: usize,
     figures: Vec<FigureView>,
+    /// Figures written to files but not inlined (over the step's share).
+    linked: Vec<FigureView>,
     tables: Vec<TableView>,
     notes: Vec<NoteView>,
     failures: Vec<ProblemView>,
@@ -250,7 +259,10 @@ fn write(path: &Path, bytes: &[u8]) -> Result<(), ReportError> {
 pub fn sanitize(s: &str) -> String {
     let mut out = String::new();
     for c in s.chars() {
-        let after_alnum = out.chars().last().is_some_and(|p| p.is_ascii_alphanumeric());
+        let after_alnum = out
+            .chars()
+            .last()
+            .is_some_and(|p| p.is_ascii_alphanumeric());
         if c.is_ascii_alphanumeric() || c == '-' || (c == '.' && after_alnum) {
             out.push(c);
         } else if !out.ends_with('_') {
@@ -323,10 +335,7 @@ fn fence_for(s: &str) -> String {
     "`".repeat((longest + 1).max(3))
 }
 
-fn md_filter(
-    v: &tera::Value,
-    _args: &HashMap<String, tera::Value>,
-) -> tera::Result<tera::Value> {
+fn md_filter(v: &tera::Value, _args: &HashMap<String, tera::Value>) -> tera::Result<tera::Value> {
     let s = match v {
         tera::Value::String(s) => s.clone(),
         tera::Value::Null => String::new(),
@@ -472,8 +481,7 @@ pub fn render(
         .filter_map(|a| a.spectrum())
         .map(|s| 1 + s.curves.len())
         .sum();
-    let points =
-        (POINT_BUDGET / curves.max(1)).clamp(MIN_CURVE_POINTS, MAX_CURVE_POINTS);
+    let points = (POINT_BUDGET / curves.max(1)).clamp(MIN_CURVE_POINTS, MAX_CURVE_POINTS);
 
     // Step file-name stems: the step id, or recipe__step where ids repeat.
     let mut id_count: HashMap<&str, usize> = HashMap::new();
@@ -499,6 +507,7 @@ pub fn render(
     let methods = methods::assemble(record);
     let mut problems = Vec::new();
     let mut step_views: Vec<(String, StepView)> = Vec::new();
+    let mut step_svg: Vec<Vec<usize>> = Vec::new();
     let mut provenance = Vec::new();
 
     for step in &record.steps {
@@ -519,6 +528,7 @@ pub fn render(
             methods: methods.numbered(record, &step.methods),
             items: nodes.len(),
             figures: Vec::new(),
+            linked: Vec::new(),
             tables: Vec::new(),
             notes: Vec::new(),
             failures: Vec::new(),
@@ -626,7 +636,9 @@ pub fn render(
                     });
                 }
                 Some(Err(e)) => {
-                    summary.figure_errors.push(format!("{} {label}: {e}", step.id));
+                    summary
+                        .figure_errors
+                        .push(format!("{} {label}: {e}", step.id));
                     view.notes.push(NoteView {
                         item: label.clone(),
                         warning: true,
@@ -709,7 +721,11 @@ pub fn render(
                         ]);
                     }
                 }
-                Value::Table(t) => value_tables.push((parts.iter().map(|s| s.to_string()).collect::<Vec<_>>(), label.clone(), t.clone())),
+                Value::Table(t) => value_tables.push((
+                    parts.iter().map(|s| s.to_string()).collect::<Vec<_>>(),
+                    label.clone(),
+                    t.clone(),
+                )),
                 _ => {}
             }
         }
@@ -879,8 +895,7 @@ pub fn render(
                 ["item", "peak", "shape", "centre", "FWHM", "height", "area"]
                     .map(String::from)
                     .to_vec();
-            let mut csv_header: Vec<String> =
-                ["item", "peak", "shape"].map(String::from).to_vec();
+            let mut csv_header: Vec<String> = ["item", "peak", "shape"].map(String::from).to_vec();
             for q in ["center", "fwhm", "height", "area"] {
                 csv_header.push(q.to_string());
                 csv_header.push(format!("u({q})"));
@@ -910,6 +925,7 @@ pub fn render(
             });
         }
         counts.figures += view.figures.len();
+        step_svg.push(view.figures.iter().map(|f| f.svg.len()).collect::<Vec<_>>());
         counts.tables += view.tables.len();
 
         let mut outputs: Vec<String> = view.figures.iter().map(|f| f.file.clone()).collect();
@@ -949,6 +965,27 @@ pub fn render(
         step_views.push((step.recipe.clone(), view));
     }
 
+    // Inline figures up to each step's share of the budget; link the rest.
+    let drawing = step_svg.iter().filter(|v| !v.is_empty()).count().max(1);
+    let share = INLINE_SVG_BYTES / drawing;
+    for ((_, view), sizes) in step_views.iter_mut().zip(&step_svg) {
+        let mut used = 0;
+        let keep = sizes
+            .iter()
+            .take_while(|b| {
+                used += **b;
+                used <= share
+            })
+            .count()
+            .max(1)
+            .min(sizes.len());
+        view.linked = view.figures.split_off(keep);
+        summary.inlined += view.figures.len();
+        for f in &mut view.linked {
+            f.svg.clear();
+        }
+    }
+
     // Checks.
     let checks: Vec<CheckView> = record
         .checks
@@ -982,7 +1019,7 @@ pub fn render(
         let steps: Vec<StepView> = step_views
             .iter_mut()
             .filter(|(rid, _)| rid == &r.id)
-            .map(|(_, v)| std::mem::replace(v, StepView::default()))
+            .map(|(_, v)| std::mem::take(v))
             .collect();
         let anchor_id = anchor(&[&r.id]);
         let rnodes: Vec<&NodeRecord> = record.nodes.iter().filter(|n| n.recipe == r.id).collect();
@@ -1016,7 +1053,9 @@ pub fn render(
 
     let top = record.recipes.first();
     let view = View {
-        title: top.map(|r| r.title.clone()).unwrap_or_else(|| "Report".into()),
+        title: top
+            .map(|r| r.title.clone())
+            .unwrap_or_else(|| "Report".into()),
         description: top.map(|r| r.description.clone()).unwrap_or_default(),
         author: top.map(|r| r.author.clone()).unwrap_or_default(),
         engine_version: record.engine_version.clone(),
@@ -1081,7 +1120,9 @@ pub fn render(
     }
     let ctx = tera::Context::from_serialize(&view).map_err(|e| template_error("context", &e))?;
     for name in ["report.html", "report.md"] {
-        let text = tera.render(name, &ctx).map_err(|e| template_error(name, &e))?;
+        let text = tera
+            .render(name, &ctx)
+            .map_err(|e| template_error(name, &e))?;
         write(&out.join(name), text.as_bytes())?;
     }
     Ok(summary)
@@ -1133,4 +1174,3 @@ fn figure_caption(step: &StepRecord, label: &str, value: &Value) -> String {
         format!("{}, {label}: {what}", step.id)
     }
 }
-
