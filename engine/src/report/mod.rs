@@ -188,6 +188,36 @@ struct TableView {
     file: String,
     headers: Vec<String>,
     rows: Vec<Vec<String>>,
+    /// Per column: every non-empty cell is a number (drawn right-aligned).
+    numeric: Vec<bool>,
+}
+
+impl TableView {
+    fn new(title: String, file: String, headers: Vec<String>, rows: Vec<Vec<String>>) -> Self {
+        // "1.5", "4.2 eV", "(1.235 ± 0.012) eV", "(1.2 ± 0.1) × 10⁻⁸": a number first,
+        // then at most a unit, or "±".
+        let looks_numeric = |c: &str| {
+            let tokens: Vec<&str> = c.split_whitespace().collect();
+            c.is_empty()
+                || (tokens[0].trim_start_matches('(').parse::<f64>().is_ok()
+                    && (tokens.len() <= 2 || tokens[1] == "±"))
+        };
+        let numeric = (0..headers.len())
+            .map(|j| {
+                rows.iter().any(|r| r.get(j).is_some_and(|c| !c.is_empty()))
+                    && rows
+                        .iter()
+                        .all(|r| r.get(j).is_none_or(|c| looks_numeric(c)))
+            })
+            .collect();
+        TableView {
+            title,
+            file,
+            headers,
+            rows,
+            numeric,
+        }
+    }
 }
 
 #[derive(Serialize)]
@@ -786,12 +816,7 @@ pub fn render(
             } else {
                 t.title.clone()
             };
-            view.tables.push(TableView {
-                title,
-                file,
-                headers: header,
-                rows,
-            });
+            view.tables.push(TableView::new(title, file, header, rows));
         }
         if !columns.is_empty() {
             let mut headers = vec!["item".to_string()];
@@ -846,12 +871,7 @@ pub fn render(
                 csv_rows.push(crow);
             }
             let file = tables.csv(&with_part(&stem, "results"), &csv_header, &csv_rows)?;
-            view.tables.push(TableView {
-                title: "Results".into(),
-                file,
-                headers,
-                rows,
-            });
+            view.tables.push(TableView::new("Results".into(), file, headers, rows));
         }
         if !fit_rows.is_empty() {
             let headers: Vec<String> = [
@@ -883,12 +903,7 @@ pub fn render(
             .map(String::from)
             .to_vec();
             let file = tables.csv(&with_part(&stem, "fit"), &csv_header, &fit_csv)?;
-            view.tables.push(TableView {
-                title: "Fit statistics".into(),
-                file,
-                headers,
-                rows: fit_rows,
-            });
+            view.tables.push(TableView::new("Fit statistics".into(), file, headers, fit_rows));
         }
         if !peak_rows.is_empty() {
             let headers: Vec<String> =
@@ -902,12 +917,7 @@ pub fn render(
                 csv_header.push(format!("unit({q})"));
             }
             let file = tables.csv(&with_part(&stem, "peaks"), &csv_header, &peak_csv)?;
-            view.tables.push(TableView {
-                title: "Fitted peaks".into(),
-                file,
-                headers,
-                rows: peak_rows,
-            });
+            view.tables.push(TableView::new("Fitted peaks".into(), file, headers, peak_rows));
         }
         if !found_rows.is_empty() {
             let headers: Vec<String> = ["item", "position", "height", "prominence", "FWHM"]
@@ -917,12 +927,7 @@ pub fn render(
                 .map(String::from)
                 .to_vec();
             let file = tables.csv(&with_part(&stem, "located"), &csv_header, &found_csv)?;
-            view.tables.push(TableView {
-                title: "Located peaks".into(),
-                file,
-                headers,
-                rows: found_rows,
-            });
+            view.tables.push(TableView::new("Located peaks".into(), file, headers, found_rows));
         }
         counts.figures += view.figures.len();
         step_svg.push(view.figures.iter().map(|f| f.svg.len()).collect::<Vec<_>>());
