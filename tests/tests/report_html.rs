@@ -321,3 +321,40 @@ fn template_folder_overrides_the_markdown() {
         .unwrap()
         .contains("<h2>Methods</h2>"));
 }
+
+#[test]
+fn markup_in_svg_text_is_escaped() {
+    // Axis quantities and curve names come from data; the SVG must carry them as text.
+    let mut s = stages::Spectrum::new(
+        vec![1.0, 2.0, 3.0],
+        vec![1.0, 4.0, 2.0],
+        stages::Axis::new(EVIL, "<b>eV</b>"),
+        stages::Axis::new("counts & \"more\"", ""),
+    );
+    s.curves.push(stages::Curve {
+        name: EVIL.into(),
+        role: stages::CurveRole::Component,
+        y: vec![0.5, 3.0, 1.0],
+    });
+    let svg = report::figure::spectrum_svg(&s, 1000).unwrap();
+    assert!(!svg.contains("<script") && !svg.contains("<b>"));
+    assert!(svg.contains("&lt;script&gt;alert(1)&lt;/script&gt;"));
+    assert!(svg.contains("counts &amp; &quot;more&quot;"));
+}
+
+#[test]
+fn provenance_lists_the_input_files_behind_each_result() {
+    let (dir, _) = rendered();
+    let html = std::fs::read_to_string(dir.path().join("report.html")).unwrap();
+    let doc = Html::parse_document(&html);
+    // The gathered photoelectron table depends on the three imported files.
+    let prov = doc
+        .select(&sel("details.prov"))
+        .find(|d| d.text().collect::<String>().contains("c1s-fits__table.csv"))
+        .expect("provenance of the gathered table");
+    let text = prov.text().collect::<String>();
+    for f in ["data/film_a.csv", "data/film_b.csv"] {
+        assert!(text.contains(f), "{f} missing from the table's provenance");
+    }
+    assert!(text.contains("gather.table v1"));
+}

@@ -418,6 +418,36 @@ fn upstream_image(
     None
 }
 
+/// The input files a node depends on: its own and, transitively, its upstream
+/// nodes', each once, in the order found.
+fn input_files<'a>(
+    start: usize,
+    record: &'a RunRecord,
+    by_key: &HashMap<&str, usize>,
+) -> Vec<&'a crate::record::FileRecord> {
+    let mut seen = BTreeSet::new();
+    let mut files: Vec<&crate::record::FileRecord> = Vec::new();
+    let mut stack = vec![start];
+    while let Some(i) = stack.pop() {
+        if !seen.insert(i) {
+            continue;
+        }
+        let node = &record.nodes[i];
+        for f in &node.files {
+            if !files.iter().any(|g| g.path == f.path && g.hash == f.hash) {
+                files.push(f);
+            }
+        }
+        stack.extend(
+            node.upstream
+                .iter()
+                .rev()
+                .filter_map(|k| by_key.get(k.as_str()).copied()),
+        );
+    }
+    files
+}
+
 /// Column key of a published record in a step's results table.
 fn record_header(name: &str, unit: &str) -> String {
     if unit.is_empty() {
@@ -871,7 +901,8 @@ pub fn render(
                 csv_rows.push(crow);
             }
             let file = tables.csv(&with_part(&stem, "results"), &csv_header, &csv_rows)?;
-            view.tables.push(TableView::new("Results".into(), file, headers, rows));
+            view.tables
+                .push(TableView::new("Results".into(), file, headers, rows));
         }
         if !fit_rows.is_empty() {
             let headers: Vec<String> = [
@@ -903,7 +934,12 @@ pub fn render(
             .map(String::from)
             .to_vec();
             let file = tables.csv(&with_part(&stem, "fit"), &csv_header, &fit_csv)?;
-            view.tables.push(TableView::new("Fit statistics".into(), file, headers, fit_rows));
+            view.tables.push(TableView::new(
+                "Fit statistics".into(),
+                file,
+                headers,
+                fit_rows,
+            ));
         }
         if !peak_rows.is_empty() {
             let headers: Vec<String> =
@@ -917,7 +953,12 @@ pub fn render(
                 csv_header.push(format!("unit({q})"));
             }
             let file = tables.csv(&with_part(&stem, "peaks"), &csv_header, &peak_csv)?;
-            view.tables.push(TableView::new("Fitted peaks".into(), file, headers, peak_rows));
+            view.tables.push(TableView::new(
+                "Fitted peaks".into(),
+                file,
+                headers,
+                peak_rows,
+            ));
         }
         if !found_rows.is_empty() {
             let headers: Vec<String> = ["item", "position", "height", "prominence", "FWHM"]
@@ -927,7 +968,12 @@ pub fn render(
                 .map(String::from)
                 .to_vec();
             let file = tables.csv(&with_part(&stem, "located"), &csv_header, &found_csv)?;
-            view.tables.push(TableView::new("Located peaks".into(), file, headers, found_rows));
+            view.tables.push(TableView::new(
+                "Located peaks".into(),
+                file,
+                headers,
+                found_rows,
+            ));
         }
         counts.figures += view.figures.len();
         step_svg.push(view.figures.iter().map(|f| f.svg.len()).collect::<Vec<_>>());
@@ -954,9 +1000,8 @@ pub fn render(
                         status: status_word(&n.status).to_string(),
                         key: n.key.clone(),
                         duration_ms: format!("{:.0}", n.duration_ms),
-                        files: n
-                            .files
-                            .iter()
+                        files: input_files(i, record, &by_key)
+                            .into_iter()
                             .map(|f| FileView {
                                 path: f.path.clone(),
                                 hash: f.hash.clone(),
