@@ -358,3 +358,16 @@ fn provenance_lists_the_input_files_behind_each_result() {
     }
     assert!(text.contains("gather.table v1"));
 }
+
+#[test]
+fn a_step_over_forty_files_is_one_sentence() {
+    let f = report_fixture::many(40);
+    let m = methods::assemble(&f.record);
+    assert_eq!(m.paragraphs.len(), 1, "one recipe, one paragraph");
+    let text = &m.paragraphs[0].text;
+    assert_eq!(text.matches("A Shirley background").count(), 1);
+    assert!(text.ends_with(
+        "from a recipe that records every setting and the content hash of each input file."
+    ));
+    assert_eq!(m.references.len(), 3);
+}

@@ -32,7 +32,7 @@ impl Methods {
     pub fn plain_text(&self) -> String {
         let mut s = String::new();
         for p in &self.paragraphs {
-            if self.paragraphs.len() > 1 {
+            if self.paragraphs.len() > 1 && !p.title.is_empty() {
                 s.push_str(&p.title);
                 s.push_str("\n\n");
             }
@@ -117,12 +117,14 @@ pub fn assemble(record: &RunRecord) -> Methods {
         },
         if recipes_used == 1 { "s" } else { "" }
     );
+    // One recipe: the closing sentence ends its paragraph; several: it stands alone,
+    // so it does not read as part of the last recipe's methods.
     match paragraphs.last_mut() {
-        Some(p) => {
+        Some(p) if recipes_used == 1 => {
             p.text.push(' ');
             p.text.push_str(&closing);
         }
-        None => paragraphs.push(Paragraph {
+        _ => paragraphs.push(Paragraph {
             recipe: String::new(),
             title: String::new(),
             text: closing,
