@@ -4,9 +4,31 @@
 //! **Invariant:** the report reads only the run record and artifacts; it knows
 //! nothing of recipes, the graph, the scheduler or the cache layout. Rendering is
 //! deterministic: the same record and artifacts give the same bytes (timestamps
-//! appear only in the provenance appendix).
+//! appear only in the provenance appendix of the HTML and Markdown).
+//!
+//! What is drawn: every node whose value carries a spectrum (spectra, fits, peak
+//! lists) gets a figure with all its curves; micrographs and label images get a
+//! thumbnail with outlines and a scale bar; tables get a figure when they look like
+//! a histogram or a calibration curve (see [`figure::table_svg`]). What is tabled:
+//! per step, the published records (one row per item, one column per result and
+//! unit), fit statistics and fitted peaks, located peaks, and every Table value.
+//! Every table shown is also written as CSV with full precision.
+//!
+//! Templates are tera templates embedded from `engine/templates/`; a folder given
+//! as `templates` replaces `report.html` and/or `report.md` when it holds them.
+//! `report.html` is autoescaped by tera (its name ends in `.html`); only SVG made
+//! by [`figure`] is inserted unescaped. `report.md` uses the `md` filter, which
+//! escapes Markdown and HTML syntax in data-derived text.
 
-use crate::record::{ArtifactSource, RunRecord};
+pub mod figure;
+pub mod lttb;
+pub mod methods;
+pub mod number;
+
+use crate::record::{ArtifactSource, NodeRecord, NodeStatus, RunRecord, StepRecord};
+use serde::Serialize;
+use stages::{Artifact, ColumnData, Image, NoteLevel, Scalar, Value};
+use std::collections::{BTreeSet, HashMap};
 use std::path::Path;
 
 #[derive(Debug, thiserror::Error)]
@@ -24,44 +46,1181 @@ pub enum ReportError {
 #[derive(Debug, Default)]
 pub struct RenderSummary {
     pub figures: usize,
+    /// Figures inlined in report.html (the rest are linked to their files).
+    pub inlined: usize,
     pub tables: usize,
+    /// Figures that could not be drawn (node, reason); the report says so too.
+    pub figure_errors: Vec<String>,
+    /// Checks that failed.
+    pub failed_checks: usize,
+}
+
+const HTML_TEMPLATE: &str = include_str!("../../templates/report.html");
+const MD_TEMPLATE: &str = include_str!("../../templates/report.md");
+
+/// Total points drawn over all spectrum curves of a report; each curve gets an equal
+/// share, between [`MIN_CURVE_POINTS`] and [`MAX_CURVE_POINTS`], so a report of a
+/// thousand spectra stays a few megabytes.
+const POINT_BUDGET: usize = 300_000;
+const MIN_CURVE_POINTS: usize = 150;
+const MAX_CURVE_POINTS: usize = 1000;
+/// SVG bytes inlined in report.html, shared equally by the steps that draw; a
+/// step's figures beyond its share are linked to their files instead (the
+/// Markdown links every figure), so a run over thousands of spectra stays a page
+/// a browser opens. Smaller runs inline everything.
+const INLINE_SVG_BYTES: usize = 12_000_000;
+
+/// The cautions printed in every report footer (see the product brief).
+pub const CAUTIONS: [&str; 3] = [
+    "Results support, and do not replace, a qualified analyst.",
+    "Not validated for clinical diagnosis or regulated release testing without local validation.",
+    "Instrument and sample safety (X-rays, strong magnetic fields, lasers, cryogens, \
+     nanoparticle handling) follow local rules and licensed practice.",
+];
+
+#[derive(Serialize)]
+struct View {
+    title: String,
+    description: String,
+    author: String,
+    engine_version: String,
+    started: String,
+    finished: String,
+    host: String,
+    counts: Counts,
+    failed_checks: Vec<CheckView>,
+    checks: Vec<CheckView>,
+    problems: Vec<ProblemView>,
+    chapter: bool,
+    summary: Vec<SummaryView>,
+    recipes: Vec<RecipeView>,
+    methods: methods::Methods,
+    parameters: Vec<ParameterView>,
+    provenance: Vec<ProvenanceView>,
+    sources: Vec<SourceView>,
+    cautions: Vec<&'static str>,
+}
+
+#[derive(Serialize, Default)]
+struct Counts {
+    recipes: usize,
+    steps: usize,
+    nodes: usize,
+    ran: usize,
+    cached: usize,
+    failed: usize,
+    skipped: usize,
+    checks: usize,
+    checks_failed: usize,
+    figures: usize,
+    tables: usize,
+}
+
+#[derive(Serialize, Clone)]
+struct CheckView {
+    recipe: String,
+    result: String,
+    item: String,
+    expected: String,
+    found: String,
+    passed: bool,
+    message: String,
+}
+
+#[derive(Serialize, Clone)]
+struct ProblemView {
+    step: String,
+    anchor: String,
+    item: String,
+    failed: bool,
+    message: String,
+}
+
+#[derive(Serialize)]
+struct SummaryView {
+    title: String,
+    anchor: String,
+    steps: usize,
+    nodes: usize,
+    failed: usize,
+    skipped: usize,
+    checks: usize,
+    checks_failed: usize,
+}
+
+#[derive(Serialize)]
+struct RecipeView {
+    id: String,
+    anchor: String,
+    title: String,
+    description: String,
+    author: String,
+    path: String,
+    steps: Vec<StepView>,
+}
+
+#[derive(Serialize, Default)]
+struct StepView {
+    id: String,
+    anchor: String,
+    stage: String,
+    version: u32,
+    methods: String,
+    items: usize,
+    figures: Vec<FigureView>,
+    /// Figures written to files but not inlined (over the step's share).
+    linked: Vec<FigureView>,
+    tables: Vec<TableView>,
+    notes: Vec<NoteView>,
+    failures: Vec<ProblemView>,
+}
+
+#[derive(Serialize)]
+struct FigureView {
+    file: String,
+    svg: String,
+    caption: String,
+}
+
+#[derive(Serialize, Clone)]
+struct TableView {
+    title: String,
+    file: String,
+    headers: Vec<String>,
+    rows: Vec<Vec<String>>,
+    /// Per column: every non-empty cell is a number (drawn right-aligned).
+    numeric: Vec<bool>,
+}
+
+impl TableView {
+    fn new(title: String, file: String, headers: Vec<String>, rows: Vec<Vec<String>>) -> Self {
+        // "1.5", "4.2 eV", "(1.235 ± 0.012) eV", "(1.2 ± 0.1) × 10⁻⁸": a number first,
+        // then at most a unit, or "±".
+        let looks_numeric = |c: &str| {
+            let tokens: Vec<&str> = c.split_whitespace().collect();
+            c.is_empty()
+                || (tokens[0].trim_start_matches('(').parse::<f64>().is_ok()
+                    && (tokens.len() <= 2 || tokens[1] == "±"))
+        };
+        let numeric = (0..headers.len())
+            .map(|j| {
+                rows.iter().any(|r| r.get(j).is_some_and(|c| !c.is_empty()))
+                    && rows
+                        .iter()
+                        .all(|r| r.get(j).is_none_or(|c| looks_numeric(c)))
+            })
+            .collect();
+        TableView {
+            title,
+            file,
+            headers,
+            rows,
+            numeric,
+        }
+    }
+}
+
+#[derive(Serialize)]
+struct NoteView {
+    item: String,
+    warning: bool,
+    text: String,
+}
+
+#[derive(Serialize)]
+struct ParameterView {
+    recipe: String,
+    name: String,
+    value: String,
+    unit: String,
+    about: String,
+    overridden: bool,
+}
+
+#[derive(Serialize)]
+struct ProvenanceView {
+    step: String,
+    anchor: String,
+    recipe: String,
+    stage: String,
+    version: u32,
+    options: String,
+    inputs: String,
+    outputs: Vec<String>,
+    references: Vec<String>,
+    nodes: Vec<NodeView>,
+}
+
+#[derive(Serialize)]
+struct NodeView {
+    item: String,
+    status: String,
+    key: String,
+    duration_ms: String,
+    files: Vec<FileView>,
+}
+
+#[derive(Serialize)]
+struct FileView {
+    path: String,
+    hash: String,
+    bytes: u64,
+}
+
+#[derive(Serialize)]
+struct SourceView {
+    id: String,
+    path: String,
+    hash: String,
+    source: String,
+    fence: String,
+}
+
+fn write(path: &Path, bytes: &[u8]) -> Result<(), ReportError> {
+    std::fs::write(path, bytes).map_err(|source| ReportError::Write {
+        path: path.display().to_string(),
+        source,
+    })
+}
+
+/// A file-name part: ASCII letters, digits and `-` kept, `.` kept after a letter
+/// or digit, runs of anything else become one `_`; at most 60 characters; never
+/// empty, never a path.
+pub fn sanitize(s: &str) -> String {
+    let mut out = String::new();
+    for c in s.chars() {
+        let after_alnum = out
+            .chars()
+            .last()
+            .is_some_and(|p| p.is_ascii_alphanumeric());
+        if c.is_ascii_alphanumeric() || c == '-' || (c == '.' && after_alnum) {
+            out.push(c);
+        } else if !out.ends_with('_') {
+            out.push('_');
+        }
+    }
+    let out: String = out.trim_matches('_').chars().take(60).collect();
+    let out = out.trim_end_matches(['_', '.']).to_string();
+    if out.is_empty() {
+        "x".to_string()
+    } else {
+        out
+    }
+}
+
+/// Hands out unique file names within one folder.
+#[derive(Default)]
+struct Names(BTreeSet<String>);
+
+impl Names {
+    fn take(&mut self, parts: &[&str], ext: &str) -> String {
+        let stem = parts
+            .iter()
+            .map(|p| sanitize(p))
+            .collect::<Vec<_>>()
+            .join("__");
+        let mut name = format!("{stem}.{ext}");
+        let mut n = 2;
+        while self.0.contains(&name.to_ascii_lowercase()) {
+            name = format!("{stem}-{n}.{ext}");
+            n += 1;
+        }
+        self.0.insert(name.to_ascii_lowercase());
+        name
+    }
+}
+
+/// Escapes text for Markdown: HTML specials become entities, Markdown punctuation
+/// gets a backslash, `|` is escaped for table cells and newlines become spaces.
+pub fn markdown_escape(s: &str) -> String {
+    let mut out = String::with_capacity(s.len());
+    for c in s.chars() {
+        match c {
+            '&' => out.push_str("&amp;"),
+            '<' => out.push_str("&lt;"),
+            '>' => out.push_str("&gt;"),
+            '\n' | '\r' => out.push(' '),
+            '\\' | '`' | '*' | '_' | '[' | ']' | '|' | '#' | '!' | '{' | '}' => {
+                out.push('\\');
+                out.push(c);
+            }
+            c => out.push(c),
+        }
+    }
+    out
+}
+
+/// A code fence longer than any run of backticks in `s`.
+fn fence_for(s: &str) -> String {
+    let mut longest = 0;
+    let mut run = 0;
+    for c in s.chars() {
+        if c == '`' {
+            run += 1;
+            longest = longest.max(run);
+        } else {
+            run = 0;
+        }
+    }
+    "`".repeat((longest + 1).max(3))
+}
+
+fn md_filter(v: &tera::Value, _args: &HashMap<String, tera::Value>) -> tera::Result<tera::Value> {
+    let s = match v {
+        tera::Value::String(s) => s.clone(),
+        tera::Value::Null => String::new(),
+        other => other.to_string(),
+    };
+    Ok(tera::Value::String(markdown_escape(&s)))
+}
+
+fn anchor(parts: &[&str]) -> String {
+    let s = parts
+        .iter()
+        .map(|p| sanitize(p))
+        .collect::<Vec<_>>()
+        .join("-");
+    format!("s-{}", s.to_ascii_lowercase())
+}
+
+fn status_word(s: &NodeStatus) -> &'static str {
+    match s {
+        NodeStatus::Ran => "ran",
+        NodeStatus::Cached => "cached",
+        NodeStatus::Failed { .. } => "failed",
+        NodeStatus::Skipped { .. } => "not run",
+    }
+}
+
+/// Finds an image for a label node: its own upstream, then theirs (a few levels).
+fn upstream_image(
+    node: &NodeRecord,
+    by_key: &HashMap<&str, usize>,
+    record: &RunRecord,
+    loaded: &[Option<Artifact>],
+) -> Option<Image> {
+    let mut frontier: Vec<&str> = node.upstream.iter().map(String::as_str).collect();
+    for _ in 0..4 {
+        let mut next = Vec::new();
+        for k in frontier {
+            let Some(&i) = by_key.get(k) else { continue };
+            if let Some(Artifact {
+                value: Value::Image(img),
+                ..
+            }) = &loaded[i]
+            {
+                return Some(img.clone());
+            }
+            next.extend(record.nodes[i].upstream.iter().map(String::as_str));
+        }
+        frontier = next;
+    }
+    None
+}
+
+/// The input files a node depends on: its own and, transitively, its upstream
+/// nodes', each once, in the order found.
+fn input_files<'a>(
+    start: usize,
+    record: &'a RunRecord,
+    by_key: &HashMap<&str, usize>,
+) -> Vec<&'a crate::record::FileRecord> {
+    let mut seen = BTreeSet::new();
+    let mut files: Vec<&crate::record::FileRecord> = Vec::new();
+    let mut stack = vec![start];
+    while let Some(i) = stack.pop() {
+        if !seen.insert(i) {
+            continue;
+        }
+        let node = &record.nodes[i];
+        for f in &node.files {
+            if !files.iter().any(|g| g.path == f.path && g.hash == f.hash) {
+                files.push(f);
+            }
+        }
+        stack.extend(
+            node.upstream
+                .iter()
+                .rev()
+                .filter_map(|k| by_key.get(k.as_str()).copied()),
+        );
+    }
+    files
+}
+
+/// Column key of a published record in a step's results table.
+fn record_header(name: &str, unit: &str) -> String {
+    if unit.is_empty() {
+        name.to_string()
+    } else {
+        format!("{name} ({unit})")
+    }
+}
+
+struct Tables<'a> {
+    names: &'a mut Names,
+    out: &'a Path,
+}
+
+impl Tables<'_> {
+    /// Writes `rows` (full precision) as CSV and returns the file name under tables/.
+    fn csv(
+        &mut self,
+        parts: &[&str],
+        header: &[String],
+        rows: &[Vec<String>],
+    ) -> Result<String, ReportError> {
+        let name = self.names.take(parts, "csv");
+        let path = self.out.join("tables").join(&name);
+        let mut w = csv::Writer::from_writer(Vec::new());
+        let err = |e: csv::Error| ReportError::Write {
+            path: path.display().to_string(),
+            source: std::io::Error::other(e.to_string()),
+        };
+        w.write_record(header).map_err(err)?;
+        for r in rows {
+            w.write_record(r).map_err(err)?;
+        }
+        let bytes = w.into_inner().map_err(|e| ReportError::Write {
+            path: path.display().to_string(),
+            source: std::io::Error::other(e.to_string()),
+        })?;
+        write(&path, &bytes)?;
+        Ok(format!("tables/{name}"))
+    }
+}
+
+/// Full-precision text of a number for CSV (shortest round-trip form).
+fn csv_number(v: f64) -> String {
+    if v.is_finite() {
+        format!("{v}")
+    } else {
+        String::new()
+    }
+}
+
+fn item_of(node: &NodeRecord) -> String {
+    node.item.clone().unwrap_or_default()
 }
 
 /// Renders the report into `out` (a folder that exists; the engine moves it into
 /// place afterwards). `templates` overrides the embedded templates when given.
-///
-/// Interim version: a plain Markdown list of steps and results. The full report
-/// (HTML, figures, methods paragraph) replaces it.
 pub fn render(
     record: &RunRecord,
     artifacts: &dyn ArtifactSource,
     out: &Path,
-    _templates: Option<&Path>,
+    templates: Option<&Path>,
 ) -> Result<RenderSummary, ReportError> {
-    let mut md = String::new();
-    let title = record
-        .recipes
-        .first()
-        .map(|r| r.title.as_str())
-        .unwrap_or("");
-    md.push_str(&format!("# {title}\n\n"));
-    for node in &record.nodes {
-        md.push_str(&format!(
-            "- {} {}: {:?}\n",
-            node.step,
-            node.item.as_deref().unwrap_or(""),
-            node.status
-        ));
-        if let Some(a) = artifacts.load(&node.key) {
-            for r in &a.results {
-                md.push_str(&format!("  - {} = {:?} {}\n", r.name, r.value, r.unit));
+    for sub in ["figures", "tables"] {
+        let dir = out.join(sub);
+        std::fs::create_dir_all(&dir).map_err(|source| ReportError::Write {
+            path: dir.display().to_string(),
+            source,
+        })?;
+    }
+    let mut summary = RenderSummary::default();
+    let loaded: Vec<Option<Artifact>> = record
+        .nodes
+        .iter()
+        .map(|n| match n.status {
+            NodeStatus::Ran | NodeStatus::Cached => artifacts.load(&n.key),
+            _ => None,
+        })
+        .collect();
+    let by_key: HashMap<&str, usize> = record
+        .nodes
+        .iter()
+        .enumerate()
+        .map(|(i, n)| (n.key.as_str(), i))
+        .collect();
+
+    // Share of points for each spectrum curve.
+    let curves: usize = loaded
+        .iter()
+        .flatten()
+        .filter_map(|a| a.spectrum())
+        .map(|s| 1 + s.curves.len())
+        .sum();
+    let points = (POINT_BUDGET / curves.max(1)).clamp(MIN_CURVE_POINTS, MAX_CURVE_POINTS);
+
+    // Step file-name stems: the step id, or recipe__step where ids repeat.
+    let mut id_count: HashMap<&str, usize> = HashMap::new();
+    for s in &record.steps {
+        *id_count.entry(s.id.as_str()).or_default() += 1;
+    }
+    let stem = |s: &StepRecord| -> Vec<String> {
+        if id_count.get(s.id.as_str()).copied().unwrap_or(0) > 1 {
+            vec![s.recipe.clone(), s.id.clone()]
+        } else {
+            vec![s.id.clone()]
+        }
+    };
+
+    let mut fig_names = Names::default();
+    let mut table_names = Names::default();
+    let mut counts = Counts {
+        recipes: record.recipes.len(),
+        steps: record.steps.len(),
+        nodes: record.nodes.len(),
+        ..Counts::default()
+    };
+    let methods = methods::assemble(record);
+    let mut problems = Vec::new();
+    let mut step_views: Vec<(String, StepView)> = Vec::new();
+    let mut step_svg: Vec<Vec<usize>> = Vec::new();
+    let mut provenance = Vec::new();
+
+    for step in &record.steps {
+        let stem = stem(step);
+        let anchor_id = anchor(&[&step.recipe, &step.id]);
+        let nodes: Vec<usize> = record
+            .nodes
+            .iter()
+            .enumerate()
+            .filter(|(_, n)| n.step == step.id && n.recipe == step.recipe)
+            .map(|(i, _)| i)
+            .collect();
+        let mut view = StepView {
+            id: step.id.clone(),
+            anchor: anchor_id.clone(),
+            stage: step.stage.clone(),
+            version: step.stage_version,
+            methods: methods.numbered(record, &step.methods),
+            items: nodes.len(),
+            figures: Vec::new(),
+            linked: Vec::new(),
+            tables: Vec::new(),
+            notes: Vec::new(),
+            failures: Vec::new(),
+        };
+        // Results: one row per item, one column per (name, unit) in order of first use.
+        let mut columns: Vec<(String, String)> = Vec::new();
+        let mut fit_rows = Vec::new();
+        let mut fit_csv = Vec::new();
+        let mut peak_rows = Vec::new();
+        let mut peak_csv = Vec::new();
+        let mut found_rows = Vec::new();
+        let mut found_csv = Vec::new();
+        let mut value_tables = Vec::new();
+        for &i in &nodes {
+            let node = &record.nodes[i];
+            let item = item_of(node);
+            let label = if item.is_empty() {
+                step.id.clone()
+            } else {
+                item.clone()
+            };
+            match &node.status {
+                NodeStatus::Ran => counts.ran += 1,
+                NodeStatus::Cached => counts.cached += 1,
+                NodeStatus::Failed { error } => {
+                    counts.failed += 1;
+                    let p = ProblemView {
+                        step: step.id.clone(),
+                        anchor: anchor_id.clone(),
+                        item: label.clone(),
+                        failed: true,
+                        message: error.clone(),
+                    };
+                    view.failures.push(p.clone());
+                    problems.push(p);
+                    continue;
+                }
+                NodeStatus::Skipped { because } => {
+                    counts.skipped += 1;
+                    let p = ProblemView {
+                        step: step.id.clone(),
+                        anchor: anchor_id.clone(),
+                        item: label.clone(),
+                        failed: false,
+                        message: because.clone(),
+                    };
+                    view.failures.push(p.clone());
+                    problems.push(p);
+                    continue;
+                }
+            }
+            let Some(art) = &loaded[i] else {
+                let p = ProblemView {
+                    step: step.id.clone(),
+                    anchor: anchor_id.clone(),
+                    item: label.clone(),
+                    failed: true,
+                    message: format!(
+                        "its stored result (cache key {}) could not be read",
+                        node.key
+                    ),
+                };
+                view.failures.push(p.clone());
+                problems.push(p);
+                continue;
+            };
+            for r in &art.results {
+                let key = (r.name.clone(), r.unit.clone());
+                if !columns.contains(&key) {
+                    columns.push(key);
+                }
+            }
+            for n in &art.notes {
+                view.notes.push(NoteView {
+                    item: label.clone(),
+                    warning: n.level == NoteLevel::Warning,
+                    text: n.text.clone(),
+                });
+            }
+            let mut parts: Vec<&str> = stem.iter().map(String::as_str).collect();
+            if !item.is_empty() {
+                parts.push(&item);
+            }
+            // Figures.
+            let drawn = match &art.value {
+                Value::Spectrum(_) | Value::Fit(_) | Value::Peaks(_) => art
+                    .spectrum()
+                    .map(|s| figure::spectrum_svg(s, points).map(Some)),
+                Value::Image(img) => Some(figure::micrograph_svg(Some(img), None).map(Some)),
+                Value::Labels(l) => {
+                    let img = upstream_image(node, &by_key, record, &loaded);
+                    Some(figure::micrograph_svg(img.as_ref(), Some(l)).map(Some))
+                }
+                Value::Table(t) => Some(figure::table_svg(t, &art.results)),
+                Value::File(_) | Value::Summary => None,
+            };
+            match drawn {
+                Some(Ok(Some(svg))) => {
+                    let name = fig_names.take(&parts, "svg");
+                    write(&out.join("figures").join(&name), svg.as_bytes())?;
+                    view.figures.push(FigureView {
+                        file: format!("figures/{name}"),
+                        svg,
+                        caption: figure_caption(step, &label, &art.value),
+                    });
+                }
+                Some(Err(e)) => {
+                    summary
+                        .figure_errors
+                        .push(format!("{} {label}: {e}", step.id));
+                    view.notes.push(NoteView {
+                        item: label.clone(),
+                        warning: true,
+                        text: format!("no figure: {e}"),
+                    });
+                }
+                _ => {}
+            }
+            // Value-specific tables.
+            match &art.value {
+                Value::Fit(f) => {
+                    let s = &f.statistics;
+                    fit_rows.push(vec![
+                        label.clone(),
+                        f.model.clone(),
+                        number::format_significant(s.chi_square, 4),
+                        number::format_significant(s.reduced_chi_square, 4),
+                        number::format_significant(s.r_squared, 5),
+                        s.points.to_string(),
+                        s.free_parameters.to_string(),
+                        s.iterations.to_string(),
+                        if s.converged { "yes" } else { "no" }.to_string(),
+                        s.reason.clone(),
+                    ]);
+                    fit_csv.push(vec![
+                        item.clone(),
+                        f.model.clone(),
+                        csv_number(s.chi_square),
+                        csv_number(s.reduced_chi_square),
+                        csv_number(s.r_squared),
+                        s.points.to_string(),
+                        s.free_parameters.to_string(),
+                        s.iterations.to_string(),
+                        s.converged.to_string(),
+                        s.reason.clone(),
+                    ]);
+                    for p in &f.peaks {
+                        let m = |m: &stages::Measurement| {
+                            with_unit(number::format_measurement(m.value, m.uncertainty), &m.unit)
+                        };
+                        peak_rows.push(vec![
+                            label.clone(),
+                            p.name.clone(),
+                            p.shape.clone(),
+                            m(&p.center),
+                            m(&p.fwhm),
+                            m(&p.height),
+                            m(&p.area),
+                        ]);
+                        let c = |m: &stages::Measurement| {
+                            [
+                                csv_number(m.value),
+                                m.uncertainty.map(csv_number).unwrap_or_default(),
+                                m.unit.clone(),
+                            ]
+                        };
+                        let mut row = vec![item.clone(), p.name.clone(), p.shape.clone()];
+                        for q in [&p.center, &p.fwhm, &p.height, &p.area] {
+                            row.extend(c(q));
+                        }
+                        peak_csv.push(row);
+                    }
+                }
+                Value::Peaks(pl) => {
+                    let unit = &pl.spectrum.x_axis.unit;
+                    for p in &pl.peaks {
+                        found_rows.push(vec![
+                            label.clone(),
+                            with_unit(number::format_plain(p.position), unit),
+                            number::format_plain(p.height),
+                            number::format_plain(p.prominence),
+                            with_unit(number::format_plain(p.fwhm), unit),
+                        ]);
+                        found_csv.push(vec![
+                            item.clone(),
+                            csv_number(p.position),
+                            csv_number(p.height),
+                            csv_number(p.prominence),
+                            csv_number(p.fwhm),
+                        ]);
+                    }
+                }
+                Value::Table(t) => value_tables.push((
+                    parts.iter().map(|s| s.to_string()).collect::<Vec<_>>(),
+                    label.clone(),
+                    t.clone(),
+                )),
+                _ => {}
             }
         }
+
+        let mut tables = Tables {
+            names: &mut table_names,
+            out,
+        };
+        // Table values first: they are what a gathering step is for.
+        for (parts, label, t) in &value_tables {
+            let p: Vec<&str> = parts.iter().map(String::as_str).collect();
+            let header: Vec<String> = t
+                .columns
+                .iter()
+                .map(|c| record_header(&c.name, &c.unit))
+                .collect();
+            let mut csv_header = Vec::new();
+            for c in &t.columns {
+                csv_header.push(record_header(&c.name, &c.unit));
+                if let ColumnData::Number {
+                    uncertainty: Some(_),
+                    ..
+                } = &c.data
+                {
+                    csv_header.push(format!("u({})", c.name));
+                }
+            }
+            let (mut rows, mut csv_rows) = (Vec::new(), Vec::new());
+            for r in 0..t.rows() {
+                let (mut row, mut crow) = (Vec::new(), Vec::new());
+                for c in &t.columns {
+                    match &c.data {
+                        ColumnData::Text(v) => {
+                            let s = v.get(r).cloned().unwrap_or_default();
+                            row.push(s.clone());
+                            crow.push(s);
+                        }
+                        ColumnData::Number {
+                            values,
+                            uncertainty,
+                        } => {
+                            let v = values.get(r).copied().unwrap_or(f64::NAN);
+                            let u = uncertainty.as_ref().and_then(|u| u.get(r).copied());
+                            row.push(number::format_measurement(v, u));
+                            crow.push(csv_number(v));
+                            if uncertainty.is_some() {
+                                crow.push(u.map(csv_number).unwrap_or_default());
+                            }
+                        }
+                    }
+                }
+                rows.push(row);
+                csv_rows.push(crow);
+            }
+            let file = tables.csv(&p, &csv_header, &csv_rows)?;
+            let title = if t.title.is_empty() {
+                label.clone()
+            } else {
+                t.title.clone()
+            };
+            view.tables.push(TableView::new(title, file, header, rows));
+        }
+        if !columns.is_empty() {
+            let mut headers = vec!["item".to_string()];
+            headers.extend(columns.iter().map(|(n, u)| record_header(n, u)));
+            // A column is numeric when its first record is a number; only those get u().
+            let numeric: Vec<bool> = columns
+                .iter()
+                .map(|(n, u)| {
+                    nodes
+                        .iter()
+                        .filter_map(|&i| loaded[i].as_ref())
+                        .find_map(|a| a.results.iter().find(|r| &r.name == n && &r.unit == u))
+                        .is_some_and(|r| matches!(r.value, Scalar::Number(_)))
+                })
+                .collect();
+            let mut csv_header = vec!["item".to_string()];
+            for ((n, u), num) in columns.iter().zip(&numeric) {
+                csv_header.push(record_header(n, u));
+                if *num {
+                    csv_header.push(format!("u({n})"));
+                }
+            }
+            let (mut rows, mut csv_rows) = (Vec::new(), Vec::new());
+            for &i in &nodes {
+                let Some(art) = &loaded[i] else { continue };
+                let node = &record.nodes[i];
+                let item = item_of(node);
+                let mut row = vec![if item.is_empty() {
+                    step.id.clone()
+                } else {
+                    item.clone()
+                }];
+                let mut crow = vec![item];
+                for ((n, u), num) in columns.iter().zip(&numeric) {
+                    let r = art.results.iter().find(|r| &r.name == n && &r.unit == u);
+                    let (shown, value, unc) = match r.map(|r| (&r.value, r.uncertainty)) {
+                        Some((Scalar::Number(v), unc)) => (
+                            number::format_measurement(*v, unc),
+                            csv_number(*v),
+                            unc.map(csv_number).unwrap_or_default(),
+                        ),
+                        Some((Scalar::Text(t), _)) => (t.clone(), t.clone(), String::new()),
+                        None => Default::default(),
+                    };
+                    row.push(shown);
+                    crow.push(value);
+                    if *num {
+                        crow.push(unc);
+                    }
+                }
+                rows.push(row);
+                csv_rows.push(crow);
+            }
+            let file = tables.csv(&with_part(&stem, "results"), &csv_header, &csv_rows)?;
+            view.tables
+                .push(TableView::new("Results".into(), file, headers, rows));
+        }
+        if !fit_rows.is_empty() {
+            let headers: Vec<String> = [
+                "item",
+                "model",
+                "χ²",
+                "reduced χ²",
+                "R²",
+                "points",
+                "free parameters",
+                "iterations",
+                "converged",
+                "stop reason",
+            ]
+            .map(String::from)
+            .to_vec();
+            let csv_header: Vec<String> = [
+                "item",
+                "model",
+                "chi_square",
+                "reduced_chi_square",
+                "r_squared",
+                "points",
+                "free_parameters",
+                "iterations",
+                "converged",
+                "reason",
+            ]
+            .map(String::from)
+            .to_vec();
+            let file = tables.csv(&with_part(&stem, "fit"), &csv_header, &fit_csv)?;
+            view.tables.push(TableView::new(
+                "Fit statistics".into(),
+                file,
+                headers,
+                fit_rows,
+            ));
+        }
+        if !peak_rows.is_empty() {
+            let headers: Vec<String> =
+                ["item", "peak", "shape", "centre", "FWHM", "height", "area"]
+                    .map(String::from)
+                    .to_vec();
+            let mut csv_header: Vec<String> = ["item", "peak", "shape"].map(String::from).to_vec();
+            for q in ["center", "fwhm", "height", "area"] {
+                csv_header.push(q.to_string());
+                csv_header.push(format!("u({q})"));
+                csv_header.push(format!("unit({q})"));
+            }
+            let file = tables.csv(&with_part(&stem, "peaks"), &csv_header, &peak_csv)?;
+            view.tables.push(TableView::new(
+                "Fitted peaks".into(),
+                file,
+                headers,
+                peak_rows,
+            ));
+        }
+        if !found_rows.is_empty() {
+            let headers: Vec<String> = ["item", "position", "height", "prominence", "FWHM"]
+                .map(String::from)
+                .to_vec();
+            let csv_header: Vec<String> = ["item", "position", "height", "prominence", "fwhm"]
+                .map(String::from)
+                .to_vec();
+            let file = tables.csv(&with_part(&stem, "located"), &csv_header, &found_csv)?;
+            view.tables.push(TableView::new(
+                "Located peaks".into(),
+                file,
+                headers,
+                found_rows,
+            ));
+        }
+        counts.figures += view.figures.len();
+        step_svg.push(view.figures.iter().map(|f| f.svg.len()).collect::<Vec<_>>());
+        counts.tables += view.tables.len();
+
+        let mut outputs: Vec<String> = view.figures.iter().map(|f| f.file.clone()).collect();
+        outputs.extend(view.tables.iter().map(|t| t.file.clone()));
+        provenance.push(ProvenanceView {
+            step: step.id.clone(),
+            anchor: anchor_id.clone(),
+            recipe: step.recipe.clone(),
+            stage: step.stage.clone(),
+            version: step.stage_version,
+            options: serde_json::to_string(&step.options).unwrap_or_default(),
+            inputs: step.inputs.join(", "),
+            outputs,
+            references: step.references.iter().map(|r| r.citation.clone()).collect(),
+            nodes: nodes
+                .iter()
+                .map(|&i| {
+                    let n = &record.nodes[i];
+                    NodeView {
+                        item: item_of(n),
+                        status: status_word(&n.status).to_string(),
+                        key: n.key.clone(),
+                        duration_ms: format!("{:.0}", n.duration_ms),
+                        files: input_files(i, record, &by_key)
+                            .into_iter()
+                            .map(|f| FileView {
+                                path: f.path.clone(),
+                                hash: f.hash.clone(),
+                                bytes: f.bytes,
+                            })
+                            .collect(),
+                    }
+                })
+                .collect(),
+        });
+        step_views.push((step.recipe.clone(), view));
     }
-    let path = out.join("report.md");
-    std::fs::write(&path, md).map_err(|source| ReportError::Write {
-        path: path.display().to_string(),
-        source,
-    })?;
-    Ok(RenderSummary::default())
+
+    // Inline figures up to each step's share of the budget; link the rest.
+    let drawing = step_svg.iter().filter(|v| !v.is_empty()).count().max(1);
+    let share = INLINE_SVG_BYTES / drawing;
+    for ((_, view), sizes) in step_views.iter_mut().zip(&step_svg) {
+        let mut used = 0;
+        let keep = sizes
+            .iter()
+            .take_while(|b| {
+                used += **b;
+                used <= share
+            })
+            .count()
+            .max(1)
+            .min(sizes.len());
+        view.linked = view.figures.split_off(keep);
+        summary.inlined += view.figures.len();
+        for f in &mut view.linked {
+            f.svg.clear();
+        }
+    }
+
+    // Checks.
+    let checks: Vec<CheckView> = record
+        .checks
+        .iter()
+        .map(|c| CheckView {
+            recipe: c.recipe.clone(),
+            result: c.result.clone(),
+            item: c.item.clone().unwrap_or_default(),
+            expected: with_unit(c.expected.clone(), &c.unit),
+            found: c
+                .found
+                .map(|v| with_unit(number::format_plain(v), &c.unit))
+                .unwrap_or_else(|| "none".into()),
+            passed: c.passed,
+            message: c.message.clone(),
+        })
+        .collect();
+    counts.checks = checks.len();
+    counts.checks_failed = checks.iter().filter(|c| !c.passed).count();
+    summary.failed_checks = counts.checks_failed;
+    let failed_checks: Vec<CheckView> = checks
+        .iter()
+        .filter(|c| !c.passed)
+        .map(CheckView::clone)
+        .collect();
+
+    // Recipes, each with its steps; a chapter gets a summary.
+    let mut recipes = Vec::new();
+    let mut summaries = Vec::new();
+    for r in &record.recipes {
+        let steps: Vec<StepView> = step_views
+            .iter_mut()
+            .filter(|(rid, _)| rid == &r.id)
+            .map(|(_, v)| std::mem::take(v))
+            .collect();
+        let anchor_id = anchor(&[&r.id]);
+        let rnodes: Vec<&NodeRecord> = record.nodes.iter().filter(|n| n.recipe == r.id).collect();
+        let rchecks: Vec<_> = record.checks.iter().filter(|c| c.recipe == r.id).collect();
+        summaries.push(SummaryView {
+            title: r.title.clone(),
+            anchor: anchor_id.clone(),
+            steps: steps.len(),
+            nodes: rnodes.len(),
+            failed: rnodes
+                .iter()
+                .filter(|n| matches!(n.status, NodeStatus::Failed { .. }))
+                .count(),
+            skipped: rnodes
+                .iter()
+                .filter(|n| matches!(n.status, NodeStatus::Skipped { .. }))
+                .count(),
+            checks: rchecks.len(),
+            checks_failed: rchecks.iter().filter(|c| !c.passed).count(),
+        });
+        recipes.push(RecipeView {
+            id: r.id.clone(),
+            anchor: anchor_id,
+            title: r.title.clone(),
+            description: r.description.clone(),
+            author: r.author.clone(),
+            path: r.path.clone(),
+            steps,
+        });
+    }
+
+    let top = record.recipes.first();
+    let view = View {
+        title: top
+            .map(|r| r.title.clone())
+            .unwrap_or_else(|| "Report".into()),
+        description: top.map(|r| r.description.clone()).unwrap_or_default(),
+        author: top.map(|r| r.author.clone()).unwrap_or_default(),
+        engine_version: record.engine_version.clone(),
+        started: record.started.clone(),
+        finished: record.finished.clone(),
+        host: record.host.clone(),
+        failed_checks,
+        checks,
+        problems,
+        chapter: record.recipes.len() > 1,
+        summary: summaries,
+        recipes,
+        methods,
+        parameters: record
+            .parameters
+            .iter()
+            .map(|p| ParameterView {
+                recipe: p.recipe.clone(),
+                name: p.name.clone(),
+                value: match &p.value {
+                    serde_json::Value::String(s) => s.clone(),
+                    v => v.to_string(),
+                },
+                unit: p.unit.clone(),
+                about: p.about.clone(),
+                overridden: p.overridden,
+            })
+            .collect(),
+        provenance,
+        sources: record
+            .recipes
+            .iter()
+            .map(|r| SourceView {
+                id: r.id.clone(),
+                path: r.path.clone(),
+                hash: r.hash.clone(),
+                source: r.source.clone(),
+                fence: fence_for(&r.source),
+            })
+            .collect(),
+        cautions: CAUTIONS.to_vec(),
+        counts,
+    };
+    summary.figures = view.counts.figures;
+    summary.tables = view.counts.tables;
+
+    let mut tera = tera::Tera::default();
+    tera.register_filter("md", md_filter);
+    for (name, embedded) in [("report.html", HTML_TEMPLATE), ("report.md", MD_TEMPLATE)] {
+        let custom = templates
+            .map(|d| d.join(name))
+            .filter(|p| p.is_file())
+            .map(|p| {
+                std::fs::read_to_string(&p).map_err(|e| ReportError::Template {
+                    name: p.display().to_string(),
+                    message: e.to_string(),
+                })
+            })
+            .transpose()?;
+        tera.add_raw_template(name, custom.as_deref().unwrap_or(embedded))
+            .map_err(|e| template_error(name, &e))?;
+    }
+    let ctx = tera::Context::from_serialize(&view).map_err(|e| template_error("context", &e))?;
+    for name in ["report.html", "report.md"] {
+        let text = tera
+            .render(name, &ctx)
+            .map_err(|e| template_error(name, &e))?;
+        write(&out.join(name), text.as_bytes())?;
+    }
+    Ok(summary)
+}
+
+/// A tera error with its chain of causes (tera puts the useful part in the source).
+fn template_error(name: &str, e: &dyn std::error::Error) -> ReportError {
+    let mut message = e.to_string();
+    let mut src = e.source();
+    while let Some(s) = src {
+        message.push_str(": ");
+        message.push_str(&s.to_string());
+        src = s.source();
+    }
+    ReportError::Template {
+        name: name.to_string(),
+        message,
+    }
+}
+
+fn with_part<'a>(stem: &'a [String], last: &'a str) -> Vec<&'a str> {
+    let mut v: Vec<&str> = stem.iter().map(String::as_str).collect();
+    v.push(last);
+    v
+}
+
+fn with_unit(s: String, unit: &str) -> String {
+    if unit.is_empty() || s.is_empty() {
+        s
+    } else if s.contains('±') && !s.starts_with('(') {
+        format!("({s}) {unit}")
+    } else {
+        format!("{s} {unit}")
+    }
+}
+
+fn figure_caption(step: &StepRecord, label: &str, value: &Value) -> String {
+    let what = match value {
+        Value::Fit(f) => format!("{} fitted", f.model),
+        Value::Peaks(p) => format!("{} located peaks", p.peaks.len()),
+        Value::Image(i) => format!("{} × {} px image", i.width, i.height),
+        Value::Labels(l) => format!("{} labelled objects", l.count),
+        Value::Table(t) if !t.title.is_empty() => t.title.clone(),
+        _ => step.stage.clone(),
+    };
+    if label == step.id {
+        format!("{}: {what}", step.id)
+    } else {
+        format!("{}, {label}: {what}", step.id)
+    }
 }
