@@ -121,7 +121,8 @@ impl Cache {
     }
 
     pub fn store(&self, key: &str, meta: &Meta, artifact: &Artifact) -> Result<(), String> {
-        let payload = postcard::to_stdvec(&(meta, artifact)).map_err(|e| format!("cannot encode artifact: {e}"))?;
+        let payload = postcard::to_stdvec(&(meta, artifact))
+            .map_err(|e| format!("cannot encode artifact: {e}"))?;
         let path = self.object_path(key);
         self.publish(&path, &envelope(&payload))
     }
@@ -130,7 +131,10 @@ impl Cache {
     pub fn publish(&self, path: &Path, bytes: &[u8]) -> Result<(), String> {
         let dir = path.parent().unwrap_or(&self.dir);
         std::fs::create_dir_all(dir).map_err(|e| io_err(dir, e))?;
-        let mut tmp = tempfile::Builder::new().prefix(".tmp-").tempfile_in(dir).map_err(|e| io_err(dir, e))?;
+        let mut tmp = tempfile::Builder::new()
+            .prefix(".tmp-")
+            .tempfile_in(dir)
+            .map_err(|e| io_err(dir, e))?;
         tmp.write_all(bytes).map_err(|e| io_err(path, e))?;
         if self.durable {
             tmp.as_file().sync_all().map_err(|e| io_err(path, e))?;
@@ -140,7 +144,10 @@ impl Cache {
     }
 
     fn read_index<T: DeserializeOwned + Default>(&self, name: &str) -> T {
-        std::fs::read(self.dir.join(name)).ok().and_then(|b| decode(&b).ok()).unwrap_or_default()
+        std::fs::read(self.dir.join(name))
+            .ok()
+            .and_then(|b| decode(&b).ok())
+            .unwrap_or_default()
     }
 
     fn write_index<T: Serialize>(&self, name: &str, value: &T) -> Result<(), String> {
@@ -183,7 +190,10 @@ fn check_envelope(bytes: &[u8]) -> Result<&[u8], String> {
     let len = u64::from_le_bytes(len) as usize;
     let payload = &bytes[HEADER..];
     if payload.len() != len {
-        return Err(format!("truncated ({} of {len} payload bytes)", payload.len()));
+        return Err(format!(
+            "truncated ({} of {len} payload bytes)",
+            payload.len()
+        ));
     }
     if blake3::hash(payload).as_bytes() != &bytes[16..48] {
         return Err("checksum mismatch".into());
@@ -216,7 +226,12 @@ mod tests {
     fn round_trip_and_corruption_is_detected_and_removed() {
         let dir = tempfile::tempdir().unwrap();
         let c = Cache::open(dir.path(), true).unwrap();
-        let a = Artifact::new(Value::Summary).with_results(vec![Record::number("m", 1.5, Some(0.1), "eV")]);
+        let a = Artifact::new(Value::Summary).with_results(vec![Record::number(
+            "m",
+            1.5,
+            Some(0.1),
+            "eV",
+        )]);
         c.store("abcd", &meta(), &a).unwrap();
         match c.load("abcd") {
             Lookup::Found(b) => assert_eq!(b.1, a),

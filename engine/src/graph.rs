@@ -72,7 +72,11 @@ impl Graph {
     pub fn file_records(&self, n: &Node) -> Vec<FileRecord> {
         n.files
             .iter()
-            .map(|&f| FileRecord { path: self.files[f].shown.clone(), hash: self.files[f].hash.clone(), bytes: self.files[f].bytes })
+            .map(|&f| FileRecord {
+                path: self.files[f].shown.clone(),
+                hash: self.files[f].hash.clone(),
+                bytes: self.files[f].bytes,
+            })
             .collect()
     }
     pub fn ref_key(&self, r: Ref) -> &str {
@@ -86,7 +90,11 @@ impl Graph {
 fn stat_of(md: &std::fs::Metadata) -> (u64, i64, u32, u64) {
     #[cfg(unix)]
     use std::os::unix::fs::MetadataExt;
-    let (s, ns) = match md.modified().ok().and_then(|m| m.duration_since(std::time::UNIX_EPOCH).ok()) {
+    let (s, ns) = match md
+        .modified()
+        .ok()
+        .and_then(|m| m.duration_since(std::time::UNIX_EPOCH).ok())
+    {
         Some(d) => (d.as_secs() as i64, d.subsec_nanos()),
         None => (0, 0),
     };
@@ -108,16 +116,24 @@ fn hash_files(plan: &Plan, index: &mut StatIndex) -> Result<(Vec<FileEntry>, usi
             }
         }
     }
-    let now = std::time::SystemTime::now().duration_since(std::time::UNIX_EPOCH).map(|d| d.as_secs() as i64).unwrap_or(0);
+    let now = std::time::SystemTime::now()
+        .duration_since(std::time::UNIX_EPOCH)
+        .map(|d| d.as_secs() as i64)
+        .unwrap_or(0);
     let idx: &StatIndex = index;
-    let results: Vec<Result<(FileEntry, Option<FileStat>, bool), String>> = wanted
+    type Hashed = Result<(FileEntry, Option<FileStat>, bool), String>;
+    let results: Vec<Hashed> = wanted
         .par_iter()
         .map(|(path, shown)| {
             let md = std::fs::metadata(path).map_err(|e| format!("{shown}: {e}"))?;
             let (size, ms, mns, ino) = stat_of(&md);
             let abs = path.to_string_lossy().to_string();
             let (hash, hashed) = match idx.get(&abs) {
-                Some(s) if s.size == size && s.mtime_s == ms && s.mtime_ns == mns && s.inode == ino => (s.hash.clone(), false),
+                Some(s)
+                    if s.size == size && s.mtime_s == ms && s.mtime_ns == mns && s.inode == ino =>
+                {
+                    (s.hash.clone(), false)
+                }
                 _ => {
                     let bytes = std::fs::read(path).map_err(|e| format!("{shown}: {e}"))?;
                     (blake3::hash(&bytes).to_hex().to_string(), true)
@@ -125,9 +141,25 @@ fn hash_files(plan: &Plan, index: &mut StatIndex) -> Result<(Vec<FileEntry>, usi
             };
             // A file modified in the last two seconds may change again within the
             // same mtime tick: do not trust its stat next time.
-            let stat = (ms < now - 2).then(|| FileStat { size, mtime_s: ms, mtime_ns: mns, inode: ino, hash: hash.clone() });
+            let stat = (ms < now - 2).then(|| FileStat {
+                size,
+                mtime_s: ms,
+                mtime_ns: mns,
+                inode: ino,
+                hash: hash.clone(),
+            });
             let key = file_key(shown, &hash);
-            Ok((FileEntry { path: path.clone(), shown: shown.clone(), hash, bytes: size, key }, stat, hashed))
+            Ok((
+                FileEntry {
+                    path: path.clone(),
+                    shown: shown.clone(),
+                    hash,
+                    bytes: size,
+                    key,
+                },
+                stat,
+                hashed,
+            ))
         })
         .collect();
     let mut files = Vec::new();
@@ -161,9 +193,17 @@ pub fn file_key(shown: &str, hash: &str) -> String {
 /// Expands the plan. Fails only when an input file cannot be read.
 pub fn expand(plan: &Plan, index: &mut StatIndex) -> Result<Graph, String> {
     let (files, hashed) = hash_files(plan, index)?;
-    let file_of: HashMap<PathBuf, usize> = files.iter().enumerate().map(|(i, f)| (f.path.clone(), i)).collect();
+    let file_of: HashMap<PathBuf, usize> = files
+        .iter()
+        .enumerate()
+        .map(|(i, f)| (f.path.clone(), i))
+        .collect();
     let set_file = |si: usize, item: &str| -> Option<usize> {
-        plan.sets[si].files.iter().find(|f| f.item == item).and_then(|f| file_of.get(&f.path).copied())
+        plan.sets[si]
+            .files
+            .iter()
+            .find(|f| f.item == item)
+            .and_then(|f| file_of.get(&f.path).copied())
     };
     let mut nodes: Vec<Node> = Vec::new();
     // step -> (item or None) -> node
@@ -190,10 +230,25 @@ pub fn expand(plan: &Plan, index: &mut StatIndex) -> Result<Graph, String> {
             };
             let all = |src: Src| -> Vec<(String, Ref)> {
                 match src {
-                    Src::Set(s) => plan.sets[s].files.iter().filter_map(|f| set_file(s, &f.item).map(|x| (f.item.clone(), Ref::File(x)))).collect(),
+                    Src::Set(s) => plan.sets[s]
+                        .files
+                        .iter()
+                        .filter_map(|f| {
+                            set_file(s, &f.item).map(|x| (f.item.clone(), Ref::File(x)))
+                        })
+                        .collect(),
                     Src::Step(j) => step_nodes
                         .get(j)
-                        .map(|l| l.iter().map(|(it, n)| (it.clone().unwrap_or_else(|| plan.steps[j].id.clone()), Ref::Node(*n))).collect())
+                        .map(|l| {
+                            l.iter()
+                                .map(|(it, n)| {
+                                    (
+                                        it.clone().unwrap_or_else(|| plan.steps[j].id.clone()),
+                                        Ref::Node(*n),
+                                    )
+                                })
+                                .collect()
+                        })
                         .unwrap_or_default(),
                 }
             };
@@ -201,7 +256,9 @@ pub fn expand(plan: &Plan, index: &mut StatIndex) -> Result<Graph, String> {
             for p in &step.ports {
                 inputs.push(match p {
                     PortPlan::Missing => NodeInput::Missing,
-                    PortPlan::One(s) => one(*s, &item).map(NodeInput::One).unwrap_or(NodeInput::Missing),
+                    PortPlan::One(s) => one(*s, &item)
+                        .map(NodeInput::One)
+                        .unwrap_or(NodeInput::Missing),
                     PortPlan::Gather(s) => NodeInput::Many(all(*s)),
                     PortPlan::Several(v) => NodeInput::Many(
                         v.iter()
@@ -210,7 +267,11 @@ pub fn expand(plan: &Plan, index: &mut StatIndex) -> Result<Graph, String> {
                                     Src::Set(x) => plan.sets[*x].name.clone(),
                                     Src::Step(j) => {
                                         let ns = &plan.recipes[plan.steps[*j].recipe].namespace;
-                                        plan.steps[*j].id.strip_prefix(ns.as_str()).unwrap_or(&plan.steps[*j].id).to_string()
+                                        plan.steps[*j]
+                                            .id
+                                            .strip_prefix(ns.as_str())
+                                            .unwrap_or(&plan.steps[*j].id)
+                                            .to_string()
                                     }
                                 };
                                 one(*s, &item).map(|r| (name, r))
@@ -238,16 +299,31 @@ pub fn expand(plan: &Plan, index: &mut StatIndex) -> Result<Graph, String> {
             upstream.dedup();
             direct_files.sort();
             direct_files.dedup();
-            let key = node_key(step.stage.info().name, step.stage.info().version, &step.options, item.as_deref(), &inputs, |r| match r {
-                Ref::File(f) => files[f].key.clone(),
-                Ref::Node(n) => nodes[n].key.clone(),
-            });
+            let key = node_key(
+                step.stage.info().name,
+                step.stage.info().version,
+                &step.options,
+                item.as_deref(),
+                &inputs,
+                |r| match r {
+                    Ref::File(f) => files[f].key.clone(),
+                    Ref::Node(n) => nodes[n].key.clone(),
+                },
+            );
             let same_as = by_key.get(&key).copied();
             if same_as.is_none() {
                 by_key.insert(key.clone(), nodes.len());
             }
             mine.push((item.clone(), nodes.len()));
-            nodes.push(Node { step: si, item, inputs, key, upstream, files: direct_files, same_as });
+            nodes.push(Node {
+                step: si,
+                item,
+                inputs,
+                key,
+                upstream,
+                files: direct_files,
+                same_as,
+            });
         }
         step_nodes.push(mine);
     }
@@ -258,11 +334,23 @@ pub fn expand(plan: &Plan, index: &mut StatIndex) -> Result<Graph, String> {
             graph.add_edge(ids[u], ids[i], ());
         }
     }
-    Ok(Graph { files, nodes, graph, hashed })
+    Ok(Graph {
+        files,
+        nodes,
+        graph,
+        hashed,
+    })
 }
 
 /// The content key of a node.
-pub fn node_key(stage: &str, version: u32, options: &serde_json::Value, item: Option<&str>, inputs: &[NodeInput], key_of: impl Fn(Ref) -> String) -> String {
+pub fn node_key(
+    stage: &str,
+    version: u32,
+    options: &serde_json::Value,
+    item: Option<&str>,
+    inputs: &[NodeInput],
+    key_of: impl Fn(Ref) -> String,
+) -> String {
     let mut h = blake3::Hasher::new();
     h.update(b"retort-node\0v1\0");
     h.update(stage.as_bytes());

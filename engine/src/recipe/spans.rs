@@ -64,7 +64,13 @@ impl Spans {
             }
             match p.split_last() {
                 Some((_, rest)) => p = rest,
-                None => return Pos { line: 1, col: 1, len: 1 },
+                None => {
+                    return Pos {
+                        line: 1,
+                        col: 1,
+                        len: 1,
+                    }
+                }
             }
         }
     }
@@ -140,7 +146,11 @@ impl Scanner<'_> {
         path.push(Seg::key(key));
         if !seen.insert(key.to_string()) {
             let first = self.spans.key(&path);
-            self.spans.duplicates.push(Duplicate { path: path.clone(), at, first });
+            self.spans.duplicates.push(Duplicate {
+                path: path.clone(),
+                at,
+                first,
+            });
             path.push(Seg::Index(usize::MAX - self.spans.duplicates.len()));
         }
         path
@@ -162,12 +172,15 @@ impl Scanner<'_> {
             }
             let ind = indent_of(line);
             // Find the container this line belongs to.
-            loop {
-                let Some(top) = stack.last_mut() else { break };
+            while let Some(top) = stack.last_mut() {
                 match top.kind {
                     Kind::Pending => {
                         if ind > top.indent {
-                            top.kind = if is_item(line, ind) { Kind::Seq } else { Kind::Map };
+                            top.kind = if is_item(line, ind) {
+                                Kind::Seq
+                            } else {
+                                Kind::Map
+                            };
                             top.indent = ind;
                             break;
                         } else if ind == top.indent && is_item(line, ind) {
@@ -177,7 +190,9 @@ impl Scanner<'_> {
                         stack.pop();
                     }
                     Kind::Map | Kind::Seq => {
-                        if ind < top.indent || (ind == top.indent && top.kind == Kind::Seq && !is_item(line, ind)) {
+                        if ind < top.indent
+                            || (ind == top.indent && top.kind == Kind::Seq && !is_item(line, ind))
+                        {
                             if stack.len() == 1 {
                                 break;
                             }
@@ -305,7 +320,9 @@ impl Scanner<'_> {
 
     fn skip_ws(&self, cur: &mut (usize, usize)) {
         loop {
-            let Some(l) = self.lines.get(cur.0) else { return };
+            let Some(l) = self.lines.get(cur.0) else {
+                return;
+            };
             match l.get(cur.1) {
                 Some(' ') | Some('\t') => cur.1 += 1,
                 Some('#') | None => {
@@ -410,7 +427,7 @@ fn key_end(line: &[char], at: usize) -> Option<(String, usize)> {
         }
         return (line.get(k) == Some(&':')).then_some((key, k));
     }
-    if matches!(first, '{' | '[' | '-' | '#' | '|' | '>') && !(first == '-' && !is_item(line, at)) {
+    if matches!(first, '{' | '[' | '#' | '|' | '>') || (first == '-' && is_item(line, at)) {
         return None;
     }
     let mut i = at;
@@ -430,7 +447,9 @@ fn key_end(line: &[char], at: usize) -> Option<(String, usize)> {
 /// A key inside a flow mapping: text and the index just after it.
 fn flow_key(line: &[char], at: usize) -> (String, usize) {
     if let Some(q) = line.get(at).filter(|c| **c == '"' || **c == '\'') {
-        let close = (at + 1..line.len()).find(|&i| line[i] == *q).unwrap_or(line.len());
+        let close = (at + 1..line.len())
+            .find(|&i| line[i] == *q)
+            .unwrap_or(line.len());
         let key: String = line[at + 1..close.min(line.len())].iter().collect();
         return (key, (close + 1).min(line.len()));
     }
@@ -491,19 +510,48 @@ mod tests {
     #[test]
     fn block_and_flow_keys_are_located() {
         let s = Spans::scan(DOC);
-        assert_eq!(s.key(&k(&["steps", "raw"])), Pos { line: 3, col: 3, len: 3 });
+        assert_eq!(
+            s.key(&k(&["steps", "raw"])),
+            Pos {
+                line: 3,
+                col: 3,
+                len: 3
+            }
+        );
         assert_eq!(
             s.value(&k(&["steps", "raw", "stage"])),
-            Pos { line: 3, col: 17, len: 16 }
+            Pos {
+                line: 3,
+                col: 17,
+                len: 16
+            }
         );
         assert_eq!(s.value(&k(&["steps", "raw", "from"])).col, 41);
         assert_eq!(
             s.value(&k(&["steps", "smooth", "stage"])),
-            Pos { line: 5, col: 12, len: 21 }
+            Pos {
+                line: 5,
+                col: 12,
+                len: 21
+            }
         );
-        assert_eq!(s.value(&k(&["steps", "smooth", "from", "1"])), Pos { line: 6, col: 17, len: 5 });
+        assert_eq!(
+            s.value(&k(&["steps", "smooth", "from", "1"])),
+            Pos {
+                line: 6,
+                col: 17,
+                len: 5
+            }
+        );
         assert_eq!(s.key(&k(&["steps", "smooth", "options", "window"])).line, 8);
-        assert_eq!(s.value(&k(&["checks", "0", "item"])), Pos { line: 11, col: 11, len: 1 });
+        assert_eq!(
+            s.value(&k(&["checks", "0", "item"])),
+            Pos {
+                line: 11,
+                col: 11,
+                len: 1
+            }
+        );
         assert_eq!(s.value(&k(&["checks", "1", "result"])).line, 12);
         // Unknown paths fall back to the nearest ancestor.
         assert_eq!(s.key(&k(&["steps", "smooth", "options", "nope"])).line, 7);

@@ -71,7 +71,13 @@ pub fn run(dir: &Path, args: &[&str]) -> Ran {
         stdout: String::from_utf8_lossy(&out.stdout).to_string(),
         stderr: String::from_utf8_lossy(&out.stderr).to_string(),
     };
-    eprintln!("$ retort {}\n[exit {}]\n--- stdout\n{}--- stderr\n{}", args.join(" "), r.code, r.stdout, r.stderr);
+    eprintln!(
+        "$ retort {}\n[exit {}]\n--- stdout\n{}--- stderr\n{}",
+        args.join(" "),
+        r.code,
+        r.stdout,
+        r.stderr
+    );
     r
 }
 
