@@ -340,6 +340,15 @@ impl<'a> Resolver<'a> {
         self.diags
             .push(Diagnostic::warning(problem, Some(&file), Some(pos)));
     }
+    /// A sample-set problem located at the value of `path`.
+    fn bad_set(&mut self, r: usize, set: &str, path: &[Seg], message: &str) {
+        let pos = self.val_pos(r, path);
+        let problem = Problem::BadSampleSet {
+            set: set.into(),
+            message: message.into(),
+        };
+        self.err(r, problem, pos);
+    }
     fn key_pos(&self, r: usize, path: &[Seg]) -> Pos {
         self.loaded[r].spans.key(path)
     }
@@ -591,34 +600,23 @@ impl<'a> Resolver<'a> {
                 );
             }
             let vpath = [k("parameters"), Seg::Key(name.clone()), k("value")];
-            let value = match yaml_to_json(&p.value) {
-                Ok(v) => v,
+            let typed = yaml_to_json(&p.value).and_then(|v| match ParamType::of(&v) {
+                Some(ty) => Ok((v, ty)),
+                None => Err(
+                    "a value must be a number, an integer, text, true/false or a list".to_string(),
+                ),
+            });
+            let (value, ty) = match typed {
+                Ok(t) => t,
                 Err(message) => {
                     let pos = self.val_pos(r, &vpath);
-                    self.err(
-                        r,
-                        Problem::BadParameter {
-                            name: name.clone(),
-                            message,
-                        },
-                        pos,
-                    );
-                    continue;
-                }
-            };
-            let Some(ty) = ParamType::of(&value) else {
-                let pos = self.val_pos(r, &vpath);
-                let message =
-                    "a value must be a number, an integer, text, true/false or a list".to_string();
-                self.err(
-                    r,
-                    Problem::BadParameter {
+                    let problem = Problem::BadParameter {
                         name: name.clone(),
                         message,
-                    },
-                    pos,
-                );
-                continue;
+                    };
+                    self.err(r, problem, pos);
+                    continue;
+                }
             };
             order.push((name.clone(), p.unit.clone(), p.about.clone()));
             env.insert(name.clone(), Param { value, ty });
@@ -1281,30 +1279,13 @@ impl<'a> Resolver<'a> {
                         (Some("files"), v) => files = Some(v.clone()),
                         (Some("item"), Y::String(s)) => item = Some(s.clone()),
                         _ => {
-                            let pos = self.val_pos(r, &path);
-                            let message = "a sample set is a file pattern, or { files: pattern, item: regex }".to_string();
-                            self.err(
-                                r,
-                                Problem::BadSampleSet {
-                                    set: name.into(),
-                                    message,
-                                },
-                                pos,
-                            );
+                            self.bad_set(r, name, &path, SET_SHAPE);
                             return None;
                         }
                     }
                 }
                 let Some(files) = files else {
-                    let pos = self.val_pos(r, &path);
-                    self.err(
-                        r,
-                        Problem::BadSampleSet {
-                            set: name.into(),
-                            message: "`files: pattern` is missing".into(),
-                        },
-                        pos,
-                    );
+                    self.bad_set(r, name, &path, "`files: pattern` is missing");
                     return None;
                 };
                 let mut gp = path.clone();
@@ -1312,32 +1293,14 @@ impl<'a> Resolver<'a> {
                 (files, gp, item)
             }
             _ => {
-                let pos = self.val_pos(r, &path);
-                let message = "a sample set is a file pattern, or { files: pattern, item: regex }"
-                    .to_string();
-                self.err(
-                    r,
-                    Problem::BadSampleSet {
-                        set: name.into(),
-                        message,
-                    },
-                    pos,
-                );
+                self.bad_set(r, name, &path, SET_SHAPE);
                 return None;
             }
         };
         let pattern = match self.substitute(r, &gpath, &glob_y, env)? {
             J::String(s) => s,
             _ => {
-                let pos = self.val_pos(r, &gpath);
-                self.err(
-                    r,
-                    Problem::BadSampleSet {
-                        set: name.into(),
-                        message: "the file pattern must be text".into(),
-                    },
-                    pos,
-                );
+                self.bad_set(r, name, &gpath, "the file pattern must be text");
                 return None;
             }
         };
@@ -1568,6 +1531,9 @@ impl<'a> Resolver<'a> {
         out
     }
 }
+
+/// What a sample set may look like, for its errors.
+const SET_SHAPE: &str = "a sample set is a file pattern, or { files: pattern, item: regex }";
 
 /// Names given to one port, each with its path in the recipe.
 type Named = Vec<(String, Vec<Seg>)>;

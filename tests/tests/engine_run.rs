@@ -127,22 +127,10 @@ fn a_parameter_set_on_the_command_line_changes_its_steps_only() {
     let out = t.path().join("out");
     assert_eq!(counts(&out), (7, 3, 0, 0));
     let rec = read_json(&out.join("run.json"));
-    let w = rec["parameters"]
-        .as_array()
-        .unwrap()
-        .iter()
-        .find(|p| p["name"] == "window")
-        .unwrap()
-        .clone();
+    let w = find(&rec, "parameters", "name", "window").clone();
     assert_eq!(w["value"], 7);
     assert_eq!(w["overridden"], true);
-    let smooth = rec["steps"]
-        .as_array()
-        .unwrap()
-        .iter()
-        .find(|s| s["id"] == "smooth")
-        .unwrap()
-        .clone();
+    let smooth = find(&rec, "steps", "id", "smooth").clone();
     assert_eq!(smooth["options"]["window"], 7);
 }
 
@@ -179,38 +167,18 @@ fn changed_bytes_rerun_that_items_chain_and_a_touch_reruns_nothing() {
 #[test]
 fn one_and_two_jobs_give_byte_identical_results() {
     let t = fixture("basic");
-    assert_eq!(
-        run(
-            t.path(),
-            &[
-                "run",
-                "recipe.yaml",
-                "--no-cache",
-                "--jobs",
-                "1",
-                "--out",
-                "one"
-            ]
-        )
-        .code,
-        0
-    );
-    assert_eq!(
-        run(
-            t.path(),
-            &[
-                "run",
-                "recipe.yaml",
-                "--no-cache",
-                "--jobs",
-                "2",
-                "--out",
-                "two"
-            ]
-        )
-        .code,
-        0
-    );
+    for (jobs, out) in [("1", "one"), ("2", "two")] {
+        let args = [
+            "run",
+            "recipe.yaml",
+            "--no-cache",
+            "--jobs",
+            jobs,
+            "--out",
+            out,
+        ];
+        assert_eq!(run(t.path(), &args).code, 0);
+    }
     assert_eq!(counts(&t.path().join("two")), (10, 0, 0, 0));
     assert_eq!(
         results(&t.path().join("one")),
@@ -420,21 +388,9 @@ fn includes_are_namespaced_and_identical_work_from_two_recipes_runs_once() {
             && steps.contains(&"second/smooth")
             && steps.contains(&"third/table")
     );
-    let second = rec["steps"]
-        .as_array()
-        .unwrap()
-        .iter()
-        .find(|s| s["id"] == "second/smooth")
-        .unwrap()
-        .clone();
+    let second = find(&rec, "steps", "id", "second/smooth").clone();
     assert_eq!(second["options"]["window"], 7);
-    let first = rec["steps"]
-        .as_array()
-        .unwrap()
-        .iter()
-        .find(|s| s["id"] == "first/smooth")
-        .unwrap()
-        .clone();
+    let first = find(&rec, "steps", "id", "first/smooth").clone();
     assert_eq!(first["options"]["window"], 5);
     // Items named by the regex's first capture group.
     let letters: Vec<&str> = nodes

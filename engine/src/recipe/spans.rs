@@ -110,6 +110,17 @@ struct Container {
     next_index: usize,
 }
 
+impl Container {
+    fn new(indent: usize, path: Vec<Seg>, kind: Kind) -> Self {
+        Container {
+            indent,
+            path,
+            kind,
+            next_index: 0,
+        }
+    }
+}
+
 struct Scanner<'a> {
     lines: &'a [Vec<char>],
     spans: Spans,
@@ -157,12 +168,7 @@ impl Scanner<'_> {
     }
 
     fn block(&mut self) {
-        let mut stack: Vec<Container> = vec![Container {
-            indent: 0,
-            path: Vec::new(),
-            kind: Kind::Map,
-            next_index: 0,
-        }];
+        let mut stack: Vec<Container> = vec![Container::new(0, Vec::new(), Kind::Map)];
         let mut li = 0;
         while li < self.lines.len() {
             let line = &self.lines[li];
@@ -232,32 +238,17 @@ impl Scanner<'_> {
             if j >= line.len() || line.get(j) == Some(&'#') {
                 // Item content on the following lines.
                 self.record(path.clone(), pos(li, at, 1), None);
-                stack.push(Container {
-                    indent: at,
-                    path,
-                    kind: Kind::Pending,
-                    next_index: 0,
-                });
+                stack.push(Container::new(at, path, Kind::Pending));
                 return li + 1;
             }
             let item_pos = pos(li, j, scalar_len(line, j, false));
             self.record(path.clone(), item_pos, Some(item_pos));
             if is_item(line, j) {
-                stack.push(Container {
-                    indent: j,
-                    path,
-                    kind: Kind::Seq,
-                    next_index: 0,
-                });
+                stack.push(Container::new(j, path, Kind::Seq));
                 return self.node_line(stack, li, j);
             }
             if key_end(line, j).is_some() {
-                stack.push(Container {
-                    indent: j,
-                    path,
-                    kind: Kind::Map,
-                    next_index: 0,
-                });
+                stack.push(Container::new(j, path, Kind::Map));
                 return self.node_line(stack, li, j);
             }
             return self.inline_value(&path, li, j, at);
@@ -277,12 +268,7 @@ impl Scanner<'_> {
         }
         if j >= line.len() || line.get(j) == Some(&'#') {
             self.record(path.clone(), key_pos, None);
-            stack.push(Container {
-                indent: at,
-                path,
-                kind: Kind::Pending,
-                next_index: 0,
-            });
+            stack.push(Container::new(at, path, Kind::Pending));
             return li + 1;
         }
         let vpos = pos(li, j, scalar_len(line, j, false));
@@ -334,26 +320,30 @@ impl Scanner<'_> {
         }
     }
 
+    /// Moves to the next entry of a flow collection closed by `close`; false at its
+    /// end (the closer consumed) or at the end of the text.
+    fn next_entry(&self, cur: &mut (usize, usize), close: char) -> bool {
+        loop {
+            self.skip_ws(cur);
+            match self.peek(*cur) {
+                None => return false,
+                Some(c) if c == close => {
+                    cur.1 += 1;
+                    return false;
+                }
+                Some(',') => cur.1 += 1,
+                Some(_) => return true,
+            }
+        }
+    }
+
     /// Parses a flow collection or scalar at `cur`, recording positions under `path`.
     fn flow(&mut self, path: &[Seg], cur: &mut (usize, usize)) {
         self.skip_ws(cur);
         match self.peek(*cur) {
             Some('{') => {
                 cur.1 += 1;
-                loop {
-                    self.skip_ws(cur);
-                    match self.peek(*cur) {
-                        None => return,
-                        Some('}') => {
-                            cur.1 += 1;
-                            return;
-                        }
-                        Some(',') => {
-                            cur.1 += 1;
-                            continue;
-                        }
-                        _ => {}
-                    }
+                while self.next_entry(cur, '}') {
                     let line = &self.lines[cur.0];
                     let start = cur.1;
                     let (key, end) = flow_key(line, start);
@@ -375,20 +365,7 @@ impl Scanner<'_> {
             Some('[') => {
                 cur.1 += 1;
                 let mut idx = 0;
-                loop {
-                    self.skip_ws(cur);
-                    match self.peek(*cur) {
-                        None => return,
-                        Some(']') => {
-                            cur.1 += 1;
-                            return;
-                        }
-                        Some(',') => {
-                            cur.1 += 1;
-                            continue;
-                        }
-                        _ => {}
-                    }
+                while self.next_entry(cur, ']') {
                     let line = &self.lines[cur.0];
                     let ipos = pos(cur.0, cur.1, scalar_len(line, cur.1, true));
                     let mut p = path.to_vec();

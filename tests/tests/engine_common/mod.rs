@@ -112,3 +112,18 @@ pub fn status(out: &Path, step: &str, item: Option<&str>) -> serde_json::Value {
         .map(|n| n["status"].clone())
         .unwrap_or_else(|| panic!("no node {step} {item:?}"))
 }
+
+/// The entry of `list` (an array in run.json) whose `field` equals `value`.
+pub fn find<'a>(
+    rec: &'a serde_json::Value,
+    list: &str,
+    field: &str,
+    value: &str,
+) -> &'a serde_json::Value {
+    rec[list]
+        .as_array()
+        .unwrap()
+        .iter()
+        .find(|e| e[field] == value)
+        .unwrap_or_else(|| panic!("no {list} entry with {field} = {value}"))
+}
