@@ -238,6 +238,14 @@ fn run_plan(a: &RunArgs, plan: &Plan) -> Result<Exit, String> {
         Some(t) => t.path().to_path_buf(),
         None => cache_dir(&a.recipe, plan),
     };
+    let out = a
+        .out
+        .clone()
+        .unwrap_or_else(|| plan.policy.root.join("out"));
+    if let Err(e) = outputs::check_target(&out, &plan.policy.root, &dir) {
+        eprintln!("error: {e}");
+        return Ok(Exit::Usage);
+    }
     let cache = Cache::open(&dir, throwaway.is_none())?;
     let graph = expand(plan, &cache)?;
     let host = host();

@@ -235,21 +235,78 @@ pub fn run_record(
     }
 }
 
-/// A fresh temporary folder beside `out`.
+/// Whether `out` may be replaced by a run's output: it must not hold the recipe's
+/// folder or the cache, and if it exists and is not empty it must be an earlier
+/// output (it has a run.json).
+pub fn check_target(out: &Path, root: &Path, cache: &Path) -> Result<(), String> {
+    let abs = std::path::absolute(out).map_err(|e| format!("{}: {e}", out.display()))?;
+    let abs = abs.canonicalize().unwrap_or(abs);
+    let cache = std::path::absolute(cache).unwrap_or_else(|_| cache.to_path_buf());
+    if root.starts_with(&abs) || cache.starts_with(&abs) {
+        return Err(format!(
+            "the output folder {} would hold the recipe or its cache; choose another --out",
+            out.display()
+        ));
+    }
+    if abs.is_dir() {
+        let empty = std::fs::read_dir(&abs)
+            .map(|mut d| d.next().is_none())
+            .unwrap_or(false);
+        if !empty && !abs.join("run.json").is_file() {
+            return Err(format!(
+                "{} is not empty and is not a retort output folder (no run.json); it is not replaced",
+                out.display()
+            ));
+        }
+    } else if abs.exists() {
+        return Err(format!("{} exists and is not a folder", out.display()));
+    }
+    Ok(())
+}
+
+fn out_name(out: &Path) -> String {
+    out.file_name()
+        .map(|n| n.to_string_lossy().to_string())
+        .unwrap_or_else(|| "out".into())
+}
+
+/// A fresh temporary folder beside `out` (named with this process id), after
+/// removing any left by runs that were killed.
 pub fn temp_beside(out: &Path) -> Result<tempfile::TempDir, String> {
     let parent = out
         .parent()
         .filter(|p| !p.as_os_str().is_empty())
         .unwrap_or(Path::new("."));
     std::fs::create_dir_all(parent).map_err(|e| format!("{}: {e}", parent.display()))?;
-    let name = out
-        .file_name()
-        .map(|n| n.to_string_lossy().to_string())
-        .unwrap_or_else(|| "out".into());
+    let name = out_name(out);
+    remove_stale(parent, &name);
     tempfile::Builder::new()
-        .prefix(&format!(".{name}.tmp-"))
+        .prefix(&format!(".{name}.tmp-{}-", std::process::id()))
         .tempdir_in(parent)
         .map_err(|e| format!("{}: {e}", parent.display()))
+}
+
+/// Removes `.NAME.tmp-PID-*` and `.NAME.old-PID` folders whose process is gone
+/// (where the system lets us ask: Linux `/proc`).
+fn remove_stale(parent: &Path, name: &str) {
+    if !Path::new("/proc/self").exists() {
+        return;
+    }
+    let Ok(entries) = std::fs::read_dir(parent) else {
+        return;
+    };
+    for e in entries.flatten() {
+        let file = e.file_name().to_string_lossy().to_string();
+        let rest = file
+            .strip_prefix(&format!(".{name}.tmp-"))
+            .or_else(|| file.strip_prefix(&format!(".{name}.old-")));
+        let Some(pid) = rest.and_then(|r| r.split('-').next()) else {
+            continue;
+        };
+        if pid.parse::<u32>().is_ok() && !Path::new("/proc").join(pid).exists() {
+            let _ = std::fs::remove_dir_all(e.path());
+        }
+    }
 }
 
 pub fn write(dir: &Path, rel: &str, bytes: &[u8]) -> Result<(), String> {

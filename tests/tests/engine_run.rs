@@ -331,9 +331,32 @@ fn sigkill_mid_run_then_rerun_gives_the_results_of_a_clean_run() {
         .args(["run", "recipe.yaml", "--jobs", "1", "--quiet"])
         .spawn()
         .unwrap();
-    std::thread::sleep(Duration::from_millis(400));
+    // Kill once some (not all) cache entries are written.
+    let objects = t.path().join(".retort/objects");
+    let count = || {
+        std::fs::read_dir(&objects)
+            .map(|d| {
+                d.flatten()
+                    .map(|s| std::fs::read_dir(s.path()).map_or(0, |e| e.count()))
+                    .sum::<usize>()
+            })
+            .unwrap_or(0)
+    };
+    let t0 = std::time::Instant::now();
+    while count() < 30 && t0.elapsed() < Duration::from_secs(60) {
+        std::thread::sleep(Duration::from_millis(5));
+    }
     child.kill().unwrap(); // SIGKILL on Unix
     let _ = child.wait();
+    let written = count();
+    assert!(
+        written > 0 && written < 1201,
+        "killed mid-run ({written} entries)"
+    );
+    assert!(
+        !t.path().join("out").exists(),
+        "the killed run wrote no output"
+    );
     let r = run(t.path(), &["run", "recipe.yaml", "--quiet"]);
     assert_eq!(r.code, 0);
     let out = t.path().join("out");
@@ -451,4 +474,34 @@ fn a_failed_run_keeps_the_previous_output() {
     .unwrap();
     assert_eq!(run(t.path(), &["run", "recipe.yaml"]).code, 2);
     assert_eq!(results(&t.path().join("out")), before);
+}
+
+#[test]
+fn an_output_folder_that_is_not_ours_is_never_replaced() {
+    let t = fixture("basic");
+    for out in [".", "data"] {
+        let r = run(t.path(), &["run", "recipe.yaml", "--out", out]);
+        assert_eq!(r.code, 2, "--out {out} must be refused");
+    }
+    assert!(t.path().join("recipe.yaml").is_file());
+    assert!(t.path().join("data/film_a.csv").is_file());
+    let r = run(t.path(), &["run", "recipe.yaml", "--out", "data"]);
+    assert!(r.stderr.contains("is not a retort output folder"));
+}
+
+#[test]
+fn temporary_folders_left_by_a_killed_run_are_cleaned_up() {
+    let t = fixture("basic");
+    // A process id that cannot be running (above the kernel's pid_max limit).
+    let stale = t.path().join(".out.tmp-4294967295-abc");
+    std::fs::create_dir_all(&stale).unwrap();
+    assert_eq!(run(t.path(), &["run", "recipe.yaml"]).code, 0);
+    assert!(!stale.exists());
+    let left: Vec<_> = std::fs::read_dir(t.path())
+        .unwrap()
+        .flatten()
+        .map(|e| e.file_name().to_string_lossy().to_string())
+        .filter(|n| n.starts_with(".out."))
+        .collect();
+    assert!(left.is_empty(), "{left:?}");
 }
