@@ -390,3 +390,164 @@ pub fn node_key(
     }
     h.finalize().to_hex().to_string()
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use schemars::JsonSchema;
+    use serde::{Deserialize, Serialize};
+    use stages::stage::{Inputs, Port, Stage, StageError, StageInfo, TypedStage};
+    use stages::{Artifact, Kind, Value};
+
+    #[derive(Default, Serialize, Deserialize, JsonSchema)]
+    #[serde(deny_unknown_fields, default)]
+    struct NoOptions {}
+
+    macro_rules! test_stage {
+        ($ty:ident, $name:expr, $ports:expr) => {
+            struct $ty;
+            impl TypedStage for $ty {
+                type Options = NoOptions;
+                const INFO: &'static StageInfo = &StageInfo {
+                    name: $name,
+                    version: 1,
+                    summary: "test",
+                    inputs: $ports,
+                    output: Kind::Summary,
+                    references: &[],
+                };
+                fn methods(&self, _o: &NoOptions) -> String {
+                    "Test.".into()
+                }
+                fn run(&self, _i: &Inputs, _o: &NoOptions) -> Result<Artifact, StageError> {
+                    Ok(Artifact::new(Value::Summary))
+                }
+            }
+        };
+    }
+    test_stage!(Read, "t.read", &[Port::each("file", Kind::File, "a file")]);
+    test_stage!(
+        Both,
+        "t.both",
+        &[
+            Port::each("sample", Kind::Any, "per item"),
+            Port::each("blank", Kind::Any, "broadcast")
+        ]
+    );
+    test_stage!(
+        Many,
+        "t.several",
+        &[Port::several("parts", Kind::Any, "several steps")]
+    );
+    test_stage!(
+        All,
+        "t.gather",
+        &[Port::gather("items", Kind::Any, "all items")]
+    );
+    static CATALOG: &[&dyn Stage] = &[&Read, &Both, &Many, &All];
+
+    fn setup(recipe: &str, files: &[&str]) -> (tempfile::TempDir, Graph, Plan) {
+        let t = tempfile::tempdir().unwrap();
+        for f in files {
+            let p = t.path().join(f);
+            std::fs::create_dir_all(p.parent().unwrap()).unwrap();
+            std::fs::write(&p, f.as_bytes()).unwrap();
+        }
+        std::fs::write(t.path().join("r.yaml"), recipe).unwrap();
+        let p1 = crate::plan::build(&t.path().join("r.yaml"), &[], false, CATALOG);
+        assert!(!p1.has_errors(), "{}", p1.render_diagnostics());
+        let plan = p1.plan.unwrap();
+        let g = expand(&plan, &mut StatIndex::new()).unwrap();
+        (t, g, plan)
+    }
+
+    const RECIPE: &str = "id: t\nsamples:\n  c1s: { files: 'd/*_C1s.csv', item: '^(.*)_C1s' }\n  o1s: { files: 'd/*_O1s.csv', item: '^(.*)_O1s' }\n  blank: d/blank.txt\nsteps:\n  c: { stage: t.read, from: c1s }\n  o: { stage: t.read, from: o1s }\n  b: { stage: t.gather, from: blank }\n  sum: { stage: t.several, from: [c, o] }\n  minus: { stage: t.both, from: { sample: c, blank: b } }\n  all: { stage: t.gather, from: sum }\n";
+
+    #[test]
+    fn several_ports_pair_items_across_steps_and_single_values_broadcast() {
+        let files = [
+            "d/fa_C1s.csv",
+            "d/fa_O1s.csv",
+            "d/fb_C1s.csv",
+            "d/fb_O1s.csv",
+            "d/blank.txt",
+        ];
+        let (_t, g, plan) = setup(RECIPE, &files);
+        let step = |id: &str| plan.steps.iter().position(|s| s.id == id).unwrap();
+        let nodes = |id: &str| {
+            g.nodes
+                .iter()
+                .filter(|n| n.step == step(id))
+                .collect::<Vec<_>>()
+        };
+        // Items named by the regex capture: fa and fb in both sets.
+        assert_eq!(
+            nodes("c")
+                .iter()
+                .map(|n| n.item.clone().unwrap())
+                .collect::<Vec<_>>(),
+            ["fa", "fb"]
+        );
+        // `b` gathers the one-file blank set into a single value, which `minus`
+        // receives for every item (broadcast) beside the item's own `c`.
+        let b = nodes("b");
+        assert_eq!((b.len(), b[0].item.clone()), (1, None));
+        let b_index = g.nodes.iter().position(|n| n.step == step("b")).unwrap();
+        for m in nodes("minus") {
+            assert!(matches!(m.inputs[1], NodeInput::One(Ref::Node(n)) if n == b_index));
+            assert!(
+                matches!(m.inputs[0], NodeInput::One(Ref::Node(n)) if g.nodes[n].item == m.item)
+            );
+        }
+        assert_eq!(nodes("minus").len(), 2);
+        let sum = nodes("sum");
+        assert_eq!(sum.len(), 2);
+        match &sum[0].inputs[0] {
+            NodeInput::Many(v) => {
+                let names: Vec<&str> = v.iter().map(|(n, _)| n.as_str()).collect();
+                assert_eq!(names, ["c", "o"]);
+                let items: Vec<Option<String>> = v
+                    .iter()
+                    .map(|(_, r)| match r {
+                        Ref::Node(n) => g.nodes[*n].item.clone(),
+                        Ref::File(_) => None,
+                    })
+                    .collect();
+                assert_eq!(items, [Some("fa".to_string()), Some("fa".to_string())]);
+            }
+            other => panic!("{other:?}"),
+        }
+        // `all` gathers both items of `sum`, in item order, in one node.
+        let all = nodes("all");
+        assert_eq!(all.len(), 1);
+        assert!(
+            matches!(&all[0].inputs[0], NodeInput::Many(v) if v.iter().map(|(n, _)| n.as_str()).collect::<Vec<_>>() == ["fa", "fb"])
+        );
+        // Keys differ per item and are stable across expansions.
+        assert_ne!(sum[0].key, sum[1].key);
+        let (_t2, g2, _) = setup(RECIPE, &files);
+        assert_eq!(
+            g.nodes.iter().map(|n| &n.key).collect::<Vec<_>>(),
+            g2.nodes.iter().map(|n| &n.key).collect::<Vec<_>>()
+        );
+    }
+
+    #[test]
+    fn items_not_in_every_input_are_dropped_with_a_warning() {
+        let (t, _g, _plan) = setup(
+            RECIPE,
+            &[
+                "d/fa_C1s.csv",
+                "d/fa_O1s.csv",
+                "d/fb_C1s.csv",
+                "d/blank.txt",
+            ],
+        );
+        let p1 = crate::plan::build(&t.path().join("r.yaml"), &[], false, CATALOG);
+        let text = p1.render_diagnostics();
+        assert!(
+            text.contains("warning: step `sum`: items fb are not in every input and are left out"),
+            "{text}"
+        );
+    }
+}
