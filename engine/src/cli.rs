@@ -227,7 +227,32 @@ fn run(a: &RunArgs, catalog: &[&'static dyn Stage]) -> Exit {
     }
 }
 
+/// Prints how long each phase took when `RETORT_TIMING` is set (for benchmarking).
+struct Phases {
+    on: bool,
+    last: std::time::Instant,
+}
+
+impl Phases {
+    fn new() -> Self {
+        Phases {
+            on: std::env::var_os("RETORT_TIMING").is_some(),
+            last: std::time::Instant::now(),
+        }
+    }
+    fn mark(&mut self, what: &str) {
+        if self.on {
+            eprintln!(
+                "timing: {what:<12} {:8.1} ms",
+                self.last.elapsed().as_secs_f64() * 1000.0
+            );
+        }
+        self.last = std::time::Instant::now();
+    }
+}
+
 fn run_plan(a: &RunArgs, plan: &Plan) -> Result<Exit, String> {
+    let mut phases = Phases::new();
     let started = timefmt::now_rfc3339();
     let throwaway = if a.no_cache {
         Some(tempfile::tempdir().map_err(|e| e.to_string())?)
@@ -248,6 +273,7 @@ fn run_plan(a: &RunArgs, plan: &Plan) -> Result<Exit, String> {
     }
     let cache = Cache::open(&dir, throwaway.is_none())?;
     let graph = expand(plan, &cache)?;
+    phases.mark("graph");
     let host = host();
     let jobs = a
         .jobs
@@ -282,6 +308,7 @@ fn run_plan(a: &RunArgs, plan: &Plan) -> Result<Exit, String> {
     if let Some(b) = &reporter.bar {
         b.finish_and_clear();
     }
+    phases.mark("scheduler");
     let checks = outputs::checks(plan, &graph, &outcomes);
     let finished = timefmt::now_rfc3339();
     let record = outputs::run_record(
@@ -309,7 +336,9 @@ fn run_plan(a: &RunArgs, plan: &Plan) -> Result<Exit, String> {
         crate::cache::Lookup::Found(b) => Some(b.1),
         _ => None,
     };
+    phases.mark("outputs");
     crate::report::render(&record, &source, tmp.path(), None).map_err(|e| e.to_string())?;
+    phases.mark("report");
     outputs::publish(tmp, &out)?;
     // Remember what each node was, for `plan`'s reasons.
     if throwaway.is_none() {
@@ -321,6 +350,7 @@ fn run_plan(a: &RunArgs, plan: &Plan) -> Result<Exit, String> {
         }
         cache.update_node_index(updates)?;
     }
+    phases.mark("publish");
     let count = |f: fn(&NodeStatus) -> bool| record.nodes.iter().filter(|n| f(&n.status)).count();
     let ran = count(|s| matches!(s, NodeStatus::Ran));
     let cached = count(|s| matches!(s, NodeStatus::Cached));

@@ -114,7 +114,9 @@ pub fn run(
         .build()
         .map_err(|e| format!("cannot start worker threads: {e}"))?;
     let (tx, rx) = mpsc::channel::<(usize, Done, f64)>();
-    let limit = opts.jobs.max(1) + 1;
+    // Enough nodes in flight to hide the hand-off latency, few enough that their
+    // inputs stay a small part of memory.
+    let limit = opts.jobs.max(1) * 16;
     let mut in_flight = 0usize;
     let mut stopped = false;
     let mut remaining = canonical.len();
