@@ -304,7 +304,9 @@ fn run_plan(a: &RunArgs, plan: &Plan) -> Result<Exit, String> {
         fail_fast: a.fail_fast,
         host: host.clone(),
     };
-    let outcomes = scheduler::run(plan, &graph, &cache, &opts, &reporter)?;
+    let outcomes = scheduler::run(plan, &graph, &cache, &opts, &reporter);
+    cache.flush()?;
+    let outcomes = outcomes?;
     if let Some(b) = &reporter.bar {
         b.finish_and_clear();
     }

@@ -142,7 +142,12 @@ pub fn run(
             if in_flight == 0 {
                 break;
             }
-            let Ok((i, done, ms)) = rx.recv() else { break };
+            let _ = cache.flush_due();
+            let (i, done, ms) = match rx.recv_timeout(crate::cache::SEGMENT_AGE) {
+                Ok(m) => m,
+                Err(mpsc::RecvTimeoutError::Timeout) => continue,
+                Err(mpsc::RecvTimeoutError::Disconnected) => break,
+            };
             in_flight -= 1;
             remaining -= 1;
             let label = node_label(plan, graph, i);
