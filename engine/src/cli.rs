@@ -17,7 +17,11 @@ use std::io::IsTerminal;
 use std::path::{Path, PathBuf};
 
 #[derive(Parser, Debug)]
-#[command(name = "retort", version, about = "Reproducible analysis recipes for materials characterization data")]
+#[command(
+    name = "retort",
+    version,
+    about = "Reproducible analysis recipes for materials characterization data"
+)]
 pub struct Cli {
     #[command(subcommand)]
     pub command: Command,
@@ -88,7 +92,11 @@ pub fn main_with(args: Vec<String>, catalog: &[&'static dyn Stage]) -> Exit {
         Ok(c) => c,
         Err(e) => {
             let _ = e.print();
-            return if e.use_stderr() { Exit::Usage } else { Exit::Ok };
+            return if e.use_stderr() {
+                Exit::Usage
+            } else {
+                Exit::Ok
+            };
         }
     };
     match cli.command {
@@ -112,18 +120,32 @@ fn phase1(a: &RecipeArgs, catalog: &[&'static dyn Stage]) -> Result<Plan, Exit> 
 fn cache_dir(a: &RecipeArgs, plan: &Plan) -> PathBuf {
     a.cache
         .clone()
-        .or_else(|| std::env::var_os("RETORT_CACHE").filter(|v| !v.is_empty()).map(PathBuf::from))
+        .or_else(|| {
+            std::env::var_os("RETORT_CACHE")
+                .filter(|v| !v.is_empty())
+                .map(PathBuf::from)
+        })
         .unwrap_or_else(|| plan.policy.root.join(".retort"))
 }
 
 fn host() -> String {
-    hostname::get().map(|h| h.to_string_lossy().to_string()).unwrap_or_else(|_| "unknown".into())
+    hostname::get()
+        .map(|h| h.to_string_lossy().to_string())
+        .unwrap_or_else(|_| "unknown".into())
 }
 
 /// Identity of a node across runs, for the last-key index.
 fn identity(plan: &Plan, graph: &Graph, n: usize) -> String {
     let node = &graph.nodes[n];
-    format!("{}\0{}\0{}", plan.policy.root.join(plan.recipes.first().map(|r| r.shown.as_str()).unwrap_or("")).display(), plan.steps[node.step].id, node.item.as_deref().unwrap_or(""))
+    format!(
+        "{}\0{}\0{}",
+        plan.policy
+            .root
+            .join(plan.recipes.first().map(|r| r.shown.as_str()).unwrap_or(""))
+            .display(),
+        plan.steps[node.step].id,
+        node.item.as_deref().unwrap_or("")
+    )
 }
 
 fn options_hash(v: &serde_json::Value) -> String {
@@ -149,7 +171,11 @@ fn last_node(plan: &Plan, graph: &Graph, n: usize) -> LastNode {
         key: node.key.clone(),
         stage_version: step.stage.info().version,
         options: options_hash(&step.options),
-        files: node.files.iter().map(|&f| (graph.files[f].shown.clone(), graph.files[f].hash.clone())).collect(),
+        files: node
+            .files
+            .iter()
+            .map(|&f| (graph.files[f].shown.clone(), graph.files[f].hash.clone()))
+            .collect(),
         inputs: input_keys(graph, n),
     }
 }
@@ -201,46 +227,120 @@ fn run(a: &RunArgs, catalog: &[&'static dyn Stage]) -> Exit {
     }
 }
 
+/// Prints how long each phase took when `RETORT_TIMING` is set (for benchmarking).
+struct Phases {
+    on: bool,
+    last: std::time::Instant,
+}
+
+impl Phases {
+    fn new() -> Self {
+        Phases {
+            on: std::env::var_os("RETORT_TIMING").is_some(),
+            last: std::time::Instant::now(),
+        }
+    }
+    fn mark(&mut self, what: &str) {
+        if self.on {
+            eprintln!(
+                "timing: {what:<12} {:8.1} ms",
+                self.last.elapsed().as_secs_f64() * 1000.0
+            );
+        }
+        self.last = std::time::Instant::now();
+    }
+}
+
 fn run_plan(a: &RunArgs, plan: &Plan) -> Result<Exit, String> {
+    let mut phases = Phases::new();
     let started = timefmt::now_rfc3339();
-    let throwaway = if a.no_cache { Some(tempfile::tempdir().map_err(|e| e.to_string())?) } else { None };
+    let throwaway = if a.no_cache {
+        Some(tempfile::tempdir().map_err(|e| e.to_string())?)
+    } else {
+        None
+    };
     let dir = match &throwaway {
         Some(t) => t.path().to_path_buf(),
         None => cache_dir(&a.recipe, plan),
     };
+    let out = a
+        .out
+        .clone()
+        .unwrap_or_else(|| plan.policy.root.join("out"));
+    if let Err(e) = outputs::check_target(&out, &plan.policy.root, &dir) {
+        eprintln!("error: {e}");
+        return Ok(Exit::Usage);
+    }
     let cache = Cache::open(&dir, throwaway.is_none())?;
     let graph = expand(plan, &cache)?;
+    phases.mark("graph");
     let host = host();
-    let jobs = a.jobs.unwrap_or_else(|| std::thread::available_parallelism().map(|n| n.get()).unwrap_or(1)).max(1);
+    let jobs = a
+        .jobs
+        .unwrap_or_else(|| {
+            std::thread::available_parallelism()
+                .map(|n| n.get())
+                .unwrap_or(1)
+        })
+        .max(1);
     let terminal = std::io::stderr().is_terminal();
     let bar = (!a.quiet && terminal).then(|| {
-        let b = indicatif::ProgressBar::new(graph.nodes.iter().filter(|n| n.same_as.is_none()).count() as u64);
-        if let Ok(style) = indicatif::ProgressStyle::with_template("{bar:30} {pos}/{len} nodes {elapsed}") {
+        let b = indicatif::ProgressBar::new(
+            graph.nodes.iter().filter(|n| n.same_as.is_none()).count() as u64,
+        );
+        if let Ok(style) =
+            indicatif::ProgressStyle::with_template("{bar:30} {pos}/{len} nodes {elapsed}")
+        {
             b.set_style(style);
         }
         b
     });
-    let reporter = Reporter { bar, plain: !a.quiet && !terminal };
-    let opts = RunOptions { jobs, fail_fast: a.fail_fast, host: host.clone() };
-    let outcomes = scheduler::run(plan, &graph, &cache, &opts, &reporter)?;
+    let reporter = Reporter {
+        bar,
+        plain: !a.quiet && !terminal,
+    };
+    let opts = RunOptions {
+        jobs,
+        fail_fast: a.fail_fast,
+        host: host.clone(),
+    };
+    let outcomes = scheduler::run(plan, &graph, &cache, &opts, &reporter);
+    cache.flush()?;
+    let outcomes = outcomes?;
     if let Some(b) = &reporter.bar {
         b.finish_and_clear();
     }
+    phases.mark("scheduler");
     let checks = outputs::checks(plan, &graph, &outcomes);
     let finished = timefmt::now_rfc3339();
-    let record = outputs::run_record(plan, &graph, &outcomes, checks, started, finished, &host, &cache.dir);
+    let record = outputs::run_record(
+        plan, &graph, &outcomes, checks, started, finished, &host, &cache.dir,
+    );
     let results = outputs::results_json(plan, &graph, &outcomes);
-    let out = a.out.clone().unwrap_or_else(|| plan.policy.root.join("out"));
+    let out = a
+        .out
+        .clone()
+        .unwrap_or_else(|| plan.policy.root.join("out"));
     let tmp = outputs::temp_beside(&out)?;
     outputs::write(tmp.path(), "results.json", &outputs::json_bytes(&results)?)?;
-    outputs::write(tmp.path(), "tables/results.csv", &outputs::results_csv(&results)?)?;
-    outputs::write(tmp.path(), "provenance.json", &outputs::json_bytes(&provenance::document(plan, &graph, &outcomes, &host))?)?;
+    outputs::write(
+        tmp.path(),
+        "tables/results.csv",
+        &outputs::results_csv(&results)?,
+    )?;
+    outputs::write(
+        tmp.path(),
+        "provenance.json",
+        &outputs::json_bytes(&provenance::document(plan, &graph, &outcomes, &host))?,
+    )?;
     outputs::write(tmp.path(), "run.json", &outputs::json_bytes(&record)?)?;
     let source = |key: &str| match cache.load(key) {
         crate::cache::Lookup::Found(b) => Some(b.1),
         _ => None,
     };
+    phases.mark("outputs");
     crate::report::render(&record, &source, tmp.path(), None).map_err(|e| e.to_string())?;
+    phases.mark("report");
     outputs::publish(tmp, &out)?;
     // Remember what each node was, for `plan`'s reasons.
     if throwaway.is_none() {
@@ -252,6 +352,7 @@ fn run_plan(a: &RunArgs, plan: &Plan) -> Result<Exit, String> {
         }
         cache.update_node_index(updates)?;
     }
+    phases.mark("publish");
     let count = |f: fn(&NodeStatus) -> bool| record.nodes.iter().filter(|n| f(&n.status)).count();
     let ran = count(|s| matches!(s, NodeStatus::Ran));
     let cached = count(|s| matches!(s, NodeStatus::Cached));
@@ -262,12 +363,23 @@ fn run_plan(a: &RunArgs, plan: &Plan) -> Result<Exit, String> {
     for (o, i) in outcomes.iter().zip(0..) {
         if let Some(reason) = &o.corrupt {
             if graph.nodes[i].same_as.is_none() {
-                eprintln!("warning: cache entry of {} was corrupt ({reason}); recomputed", scheduler::node_label(plan, &graph, i));
+                eprintln!(
+                    "warning: cache entry of {} was corrupt ({reason}); recomputed",
+                    scheduler::node_label(plan, &graph, i)
+                );
             }
         }
     }
     for c in record.checks.iter().filter(|c| !c.passed) {
-        eprintln!("check failed: {}{}: {}", c.result, c.item.as_ref().map(|i| format!(" [{i}]")).unwrap_or_default(), c.message);
+        eprintln!(
+            "check failed: {}{}: {}",
+            c.result,
+            c.item
+                .as_ref()
+                .map(|i| format!(" [{i}]"))
+                .unwrap_or_default(),
+            c.message
+        );
     }
     if !a.quiet {
         println!(
@@ -290,9 +402,18 @@ fn run_plan(a: &RunArgs, plan: &Plan) -> Result<Exit, String> {
 fn check(a: &RecipeArgs, catalog: &[&'static dyn Stage]) -> Exit {
     match phase1(a, catalog) {
         Ok(plan) => {
-            let nodes: usize = plan.steps.iter().map(|s| s.domain.as_ref().map_or(1, Vec::len)).sum();
+            let nodes: usize = plan
+                .steps
+                .iter()
+                .map(|s| s.domain.as_ref().map_or(1, Vec::len))
+                .sum();
             let files: usize = plan.sets.iter().map(|s| s.files.len()).sum();
-            println!("{}: ok ({} steps, {nodes} nodes, {files} input files, {} checks)", a.recipe.display(), plan.steps.len(), plan.checks.len());
+            println!(
+                "{}: ok ({} steps, {nodes} nodes, {files} input files, {} checks)",
+                a.recipe.display(),
+                plan.steps.len(),
+                plan.checks.len()
+            );
             Exit::Ok
         }
         Err(e) => e,
@@ -313,7 +434,10 @@ fn reason(plan: &Plan, graph: &Graph, n: usize, last: Option<&LastNode>, cache: 
         return "cache entry missing".into();
     }
     if last.stage_version != now.stage_version {
-        return format!("new stage version ({} -> {})", last.stage_version, now.stage_version);
+        return format!(
+            "new stage version ({} -> {})",
+            last.stage_version, now.stage_version
+        );
     }
     if last.options != now.options {
         return "changed options".into();
@@ -347,17 +471,31 @@ fn plan_cmd(a: &RecipeArgs, catalog: &[&'static dyn Stage]) -> Exit {
         for (i, node) in graph.nodes.iter().enumerate() {
             let label = scheduler::node_label(&plan, &graph, i);
             let line = if let Some(orig) = node.same_as {
-                format!("  same     {label}  (same work as {})", scheduler::node_label(&plan, &graph, orig))
+                format!(
+                    "  same     {label}  (same work as {})",
+                    scheduler::node_label(&plan, &graph, orig)
+                )
             } else if matches!(cache.verify(&node.key), Some(Ok(()))) {
                 format!("  cached   {label}")
             } else {
                 to_run += 1;
-                let why = reason(&plan, &graph, i, index.get(&identity(&plan, &graph, i)), &cache);
+                let why = reason(
+                    &plan,
+                    &graph,
+                    i,
+                    index.get(&identity(&plan, &graph, i)),
+                    &cache,
+                );
                 format!("  run      {label}  ({why})")
             };
             lines.push(line);
         }
-        println!("{}: {} nodes, {to_run} to run, {} cached", a.recipe.display(), graph.nodes.len(), graph.nodes.len() - to_run);
+        println!(
+            "{}: {} nodes, {to_run} to run, {} cached",
+            a.recipe.display(),
+            graph.nodes.len(),
+            graph.nodes.len() - to_run
+        );
         for l in lines {
             println!("{l}");
         }
@@ -375,10 +513,15 @@ fn plan_cmd(a: &RecipeArgs, catalog: &[&'static dyn Stage]) -> Exit {
 fn report_cmd(outdir: &Path) -> Exit {
     let result = (|| -> Result<(), String> {
         let path = outdir.join("run.json");
-        let text = std::fs::read_to_string(&path).map_err(|e| format!("{}: {e}", path.display()))?;
-        let record: RunRecord = serde_json::from_str(&text).map_err(|e| format!("{}: {e}", path.display()))?;
+        let text =
+            std::fs::read_to_string(&path).map_err(|e| format!("{}: {e}", path.display()))?;
+        let record: RunRecord =
+            serde_json::from_str(&text).map_err(|e| format!("{}: {e}", path.display()))?;
         let cache = Cache::open(Path::new(&record.cache_dir), true)?;
-        let tmp = tempfile::Builder::new().prefix(".report-").tempdir_in(outdir).map_err(|e| e.to_string())?;
+        let tmp = tempfile::Builder::new()
+            .prefix(".report-")
+            .tempdir_in(outdir)
+            .map_err(|e| e.to_string())?;
         let source = |key: &str| match cache.load(key) {
             crate::cache::Lookup::Found(b) => Some(b.1),
             _ => None,
@@ -387,7 +530,10 @@ fn report_cmd(outdir: &Path) -> Exit {
         // Move every rendered file over the old one.
         let mut stack = vec![tmp.path().to_path_buf()];
         while let Some(dir) = stack.pop() {
-            for entry in std::fs::read_dir(&dir).map_err(|e| e.to_string())?.flatten() {
+            for entry in std::fs::read_dir(&dir)
+                .map_err(|e| e.to_string())?
+                .flatten()
+            {
                 let p = entry.path();
                 let rel = p.strip_prefix(tmp.path()).map_err(|e| e.to_string())?;
                 let target = outdir.join(rel);
@@ -395,7 +541,8 @@ fn report_cmd(outdir: &Path) -> Exit {
                     std::fs::create_dir_all(&target).map_err(|e| e.to_string())?;
                     stack.push(p);
                 } else {
-                    std::fs::rename(&p, &target).map_err(|e| format!("{}: {e}", target.display()))?;
+                    std::fs::rename(&p, &target)
+                        .map_err(|e| format!("{}: {e}", target.display()))?;
                 }
             }
         }
@@ -415,7 +562,12 @@ fn report_cmd(outdir: &Path) -> Exit {
 fn type_of(schema: &serde_json::Value) -> String {
     if let Some(t) = schema.get("type") {
         return match t {
-            serde_json::Value::Array(v) => v.iter().filter_map(|x| x.as_str()).filter(|s| *s != "null").collect::<Vec<_>>().join(" | "),
+            serde_json::Value::Array(v) => v
+                .iter()
+                .filter_map(|x| x.as_str())
+                .filter(|s| *s != "null")
+                .collect::<Vec<_>>()
+                .join(" | "),
             other => other.as_str().unwrap_or("").to_string(),
         };
     }
@@ -424,7 +576,12 @@ fn type_of(schema: &serde_json::Value) -> String {
     }
     for k in ["anyOf", "oneOf"] {
         if let Some(v) = schema.get(k).and_then(|v| v.as_array()) {
-            return v.iter().map(type_of).filter(|s| s != "null" && !s.is_empty()).collect::<Vec<_>>().join(" | ");
+            return v
+                .iter()
+                .map(type_of)
+                .filter(|s| s != "null" && !s.is_empty())
+                .collect::<Vec<_>>()
+                .join(" | ");
         }
     }
     if schema.get("enum").is_some() {
@@ -469,8 +626,13 @@ fn stages_cmd(name: Option<&str>, json: bool, catalog: &[&'static dyn Stage]) ->
         Some(n) => match catalog.iter().copied().find(|s| s.info().name == n) {
             Some(s) => vec![s],
             None => {
-                let hint = crate::diagnostics::did_you_mean(n, catalog.iter().map(|s| s.info().name));
-                eprintln!("error: unknown stage `{n}`{}", hint.map(|h| format!(" (did you mean `{h}`?)")).unwrap_or_default());
+                let hint =
+                    crate::diagnostics::did_you_mean(n, catalog.iter().map(|s| s.info().name));
+                eprintln!(
+                    "error: unknown stage `{n}`{}",
+                    hint.map(|h| format!(" (did you mean `{h}`?)"))
+                        .unwrap_or_default()
+                );
                 return Exit::Usage;
             }
         },
@@ -484,7 +646,12 @@ fn stages_cmd(name: Option<&str>, json: bool, catalog: &[&'static dyn Stage]) ->
     }
     if name.is_none() {
         for d in &docs {
-            println!("{:<28} v{:<3} {}", d["name"].as_str().unwrap_or(""), d["version"], d["summary"].as_str().unwrap_or(""));
+            println!(
+                "{:<28} v{:<3} {}",
+                d["name"].as_str().unwrap_or(""),
+                d["version"],
+                d["summary"].as_str().unwrap_or("")
+            );
         }
         println!("\n`retort stages NAME` shows one stage's inputs, options and sources.");
         return Exit::Ok;
@@ -495,15 +662,42 @@ fn stages_cmd(name: Option<&str>, json: bool, catalog: &[&'static dyn Stage]) ->
             serde_json::Value::String(t) => t.clone(),
             other => other.to_string(),
         };
-        println!("{} (version {})\n  {}\n", s(&d["name"]), d["version"], s(&d["summary"]));
+        println!(
+            "{} (version {})\n  {}\n",
+            s(&d["name"]),
+            d["version"],
+            s(&d["summary"])
+        );
         println!("inputs:");
         for p in d["inputs"].as_array().into_iter().flatten() {
-            println!("  {:<14} {} ({}{}): {}", s(&p["name"]), s(&p["kind"]), s(&p["arity"]), if p["optional"] == true { ", optional" } else { "" }, s(&p["about"]));
+            println!(
+                "  {:<14} {} ({}{}): {}",
+                s(&p["name"]),
+                s(&p["kind"]),
+                s(&p["arity"]),
+                if p["optional"] == true {
+                    ", optional"
+                } else {
+                    ""
+                },
+                s(&p["about"])
+            );
         }
         println!("gives: {}\n\noptions:", s(&d["output"]));
         for o in d["options"].as_array().into_iter().flatten() {
             let unit = s(&o["unit"]);
-            println!("  {:<14} {:<18} default {}{}\n      {}", s(&o["name"]), s(&o["type"]), s(&o["default"]), if unit.is_empty() { String::new() } else { format!(" ({unit})") }, s(&o["description"]));
+            println!(
+                "  {:<14} {:<18} default {}{}\n      {}",
+                s(&o["name"]),
+                s(&o["type"]),
+                s(&o["default"]),
+                if unit.is_empty() {
+                    String::new()
+                } else {
+                    format!(" ({unit})")
+                },
+                s(&o["description"])
+            );
         }
         let refs = d["references"].as_array().cloned().unwrap_or_default();
         if !refs.is_empty() {

@@ -20,44 +20,162 @@ pub enum Severity {
 /// Every kind of recipe or command-line mistake.
 #[derive(Clone, Debug, PartialEq)]
 pub enum Problem {
-    ReadRecipe { message: String },
-    Yaml { message: String, suggestion: Option<String> },
-    DuplicateKey { key: String, first_line: usize },
-    BadId { what: &'static str, id: String },
-    UnknownStage { stage: String, suggestion: Option<String> },
-    UnknownSource { step: String, name: String, suggestion: Option<String> },
-    UnknownPort { step: String, stage: String, port: String, ports: Vec<String>, suggestion: Option<String> },
-    MissingPort { step: String, stage: String, port: String },
-    TooManyInputs { step: String, stage: String, given: usize, ports: usize },
-    NoInputs { step: String, stage: String },
-    BadFrom { step: String },
-    KindMismatch { step: String, port: String, expected: String, source: String, given: String },
-    Cycle { path: Vec<String> },
-    BadOption { step: String, stage: String, path: String, message: String, suggestion: Option<String> },
-    UnknownParameter { name: String, suggestion: Option<String> },
-    BadParameter { name: String, message: String },
-    UnknownSetParameter { name: String, suggestion: Option<String> },
-    BadSetValue { name: String, expected: &'static str, value: String },
-    BadSetSyntax { arg: String },
-    BadSampleSet { set: String, message: String },
-    EmptyGlob { set: String, glob: String },
-    MissingFile { set: String, path: String },
-    BadGlob { set: String, glob: String, message: String },
-    BadItemRegex { set: String, regex: String, message: String },
-    NoItemName { set: String, file: String, regex: String },
-    DuplicateItem { set: String, item: String, first: String, second: String },
-    OutsideTree { path: String },
-    BadInclude { message: String },
-    MissingInclude { path: String, message: String },
-    IncludeCycle { chain: Vec<String> },
-    DuplicateStep { id: String },
-    BadCheck { message: String },
-    UnknownCheckStep { step: String, suggestion: Option<String> },
-    UnknownCheckItem { step: String, item: String, suggestion: Option<String> },
+    ReadRecipe {
+        message: String,
+    },
+    Yaml {
+        message: String,
+        suggestion: Option<String>,
+    },
+    DuplicateKey {
+        key: String,
+        first_line: usize,
+    },
+    BadId {
+        what: &'static str,
+        id: String,
+    },
+    UnknownStage {
+        stage: String,
+        suggestion: Option<String>,
+    },
+    UnknownSource {
+        step: String,
+        name: String,
+        suggestion: Option<String>,
+    },
+    UnknownPort {
+        step: String,
+        stage: String,
+        port: String,
+        ports: Vec<String>,
+        suggestion: Option<String>,
+    },
+    MissingPort {
+        step: String,
+        stage: String,
+        port: String,
+    },
+    TooManyInputs {
+        step: String,
+        stage: String,
+        given: usize,
+        ports: usize,
+    },
+    NoInputs {
+        step: String,
+        stage: String,
+    },
+    BadFrom {
+        step: String,
+    },
+    KindMismatch {
+        step: String,
+        port: String,
+        expected: String,
+        source: String,
+        given: String,
+    },
+    Cycle {
+        path: Vec<String>,
+    },
+    BadOption {
+        step: String,
+        stage: String,
+        path: String,
+        message: String,
+        suggestion: Option<String>,
+    },
+    UnknownParameter {
+        name: String,
+        suggestion: Option<String>,
+    },
+    BadParameter {
+        name: String,
+        message: String,
+    },
+    UnknownSetParameter {
+        name: String,
+        suggestion: Option<String>,
+    },
+    BadSetValue {
+        name: String,
+        expected: &'static str,
+        value: String,
+    },
+    BadSetSyntax {
+        arg: String,
+    },
+    BadSampleSet {
+        set: String,
+        message: String,
+    },
+    EmptyGlob {
+        set: String,
+        glob: String,
+    },
+    MissingFile {
+        set: String,
+        path: String,
+    },
+    BadGlob {
+        set: String,
+        glob: String,
+        message: String,
+    },
+    BadItemRegex {
+        set: String,
+        regex: String,
+        message: String,
+    },
+    NoItemName {
+        set: String,
+        file: String,
+        regex: String,
+    },
+    DuplicateItem {
+        set: String,
+        item: String,
+        first: String,
+        second: String,
+    },
+    OutsideTree {
+        path: String,
+    },
+    BadInclude {
+        message: String,
+    },
+    MissingInclude {
+        path: String,
+        message: String,
+    },
+    IncludeCycle {
+        chain: Vec<String>,
+    },
+    DuplicateStep {
+        id: String,
+    },
+    BadCheck {
+        message: String,
+    },
+    UnknownCheckStep {
+        step: String,
+        suggestion: Option<String>,
+    },
+    UnknownCheckItem {
+        step: String,
+        item: String,
+        suggestion: Option<String>,
+    },
     /// Warning: items present in one input of a step and not in another.
-    ItemsDropped { step: String, items: Vec<String> },
+    ItemsDropped {
+        step: String,
+        items: Vec<String>,
+    },
     /// Warning: a sample set no step reads.
-    UnusedSampleSet { set: String },
+    UnusedSampleSet {
+        set: String,
+    },
     /// Warning: a step that reads no items and publishes nothing downstream.
     NoSteps,
 }
@@ -268,7 +386,10 @@ impl Diagnostic {
 }
 
 /// The closest candidate to `word` by edit distance, when close enough to be a typo.
-pub fn did_you_mean<'a, I: IntoIterator<Item = &'a str>>(word: &str, candidates: I) -> Option<String> {
+pub fn did_you_mean<'a, I: IntoIterator<Item = &'a str>>(
+    word: &str,
+    candidates: I,
+) -> Option<String> {
     let mut best: Option<(f64, &str)> = None;
     for c in candidates {
         let score = strsim::jaro_winkler(word, c);
@@ -309,10 +430,17 @@ mod tests {
         let d = Diagnostic::error(
             Problem::UnknownStage {
                 stage: "smooth.movin".into(),
-                suggestion: did_you_mean("smooth.movin", ["smooth.moving_average", "import.delimited"]),
+                suggestion: did_you_mean(
+                    "smooth.movin",
+                    ["smooth.moving_average", "import.delimited"],
+                ),
             },
             Some("r.yaml"),
-            Some(Pos { line: 2, col: 10, len: 12 }),
+            Some(Pos {
+                line: 2,
+                col: 10,
+                len: 12,
+            }),
         );
         let text = d.render(Some("id: x\n  s: { stage: smooth.movin }\n"));
         assert_eq!(
@@ -323,7 +451,10 @@ mod tests {
 
     #[test]
     fn did_you_mean_ignores_far_words() {
-        assert_eq!(did_you_mean("windw", ["window", "order"]).as_deref(), Some("window"));
+        assert_eq!(
+            did_you_mean("windw", ["window", "order"]).as_deref(),
+            Some("window")
+        );
         assert_eq!(did_you_mean("zzz", ["window", "order"]), None);
     }
 }

@@ -72,7 +72,11 @@ impl Graph {
     pub fn file_records(&self, n: &Node) -> Vec<FileRecord> {
         n.files
             .iter()
-            .map(|&f| FileRecord { path: self.files[f].shown.clone(), hash: self.files[f].hash.clone(), bytes: self.files[f].bytes })
+            .map(|&f| FileRecord {
+                path: self.files[f].shown.clone(),
+                hash: self.files[f].hash.clone(),
+                bytes: self.files[f].bytes,
+            })
             .collect()
     }
     pub fn ref_key(&self, r: Ref) -> &str {
@@ -86,7 +90,11 @@ impl Graph {
 fn stat_of(md: &std::fs::Metadata) -> (u64, i64, u32, u64) {
     #[cfg(unix)]
     use std::os::unix::fs::MetadataExt;
-    let (s, ns) = match md.modified().ok().and_then(|m| m.duration_since(std::time::UNIX_EPOCH).ok()) {
+    let (s, ns) = match md
+        .modified()
+        .ok()
+        .and_then(|m| m.duration_since(std::time::UNIX_EPOCH).ok())
+    {
         Some(d) => (d.as_secs() as i64, d.subsec_nanos()),
         None => (0, 0),
     };
@@ -108,16 +116,24 @@ fn hash_files(plan: &Plan, index: &mut StatIndex) -> Result<(Vec<FileEntry>, usi
             }
         }
     }
-    let now = std::time::SystemTime::now().duration_since(std::time::UNIX_EPOCH).map(|d| d.as_secs() as i64).unwrap_or(0);
+    let now = std::time::SystemTime::now()
+        .duration_since(std::time::UNIX_EPOCH)
+        .map(|d| d.as_secs() as i64)
+        .unwrap_or(0);
     let idx: &StatIndex = index;
-    let results: Vec<Result<(FileEntry, Option<FileStat>, bool), String>> = wanted
+    type Hashed = Result<(FileEntry, Option<FileStat>, bool), String>;
+    let results: Vec<Hashed> = wanted
         .par_iter()
         .map(|(path, shown)| {
             let md = std::fs::metadata(path).map_err(|e| format!("{shown}: {e}"))?;
             let (size, ms, mns, ino) = stat_of(&md);
             let abs = path.to_string_lossy().to_string();
             let (hash, hashed) = match idx.get(&abs) {
-                Some(s) if s.size == size && s.mtime_s == ms && s.mtime_ns == mns && s.inode == ino => (s.hash.clone(), false),
+                Some(s)
+                    if s.size == size && s.mtime_s == ms && s.mtime_ns == mns && s.inode == ino =>
+                {
+                    (s.hash.clone(), false)
+                }
                 _ => {
                     let bytes = std::fs::read(path).map_err(|e| format!("{shown}: {e}"))?;
                     (blake3::hash(&bytes).to_hex().to_string(), true)
@@ -125,9 +141,25 @@ fn hash_files(plan: &Plan, index: &mut StatIndex) -> Result<(Vec<FileEntry>, usi
             };
             // A file modified in the last two seconds may change again within the
             // same mtime tick: do not trust its stat next time.
-            let stat = (ms < now - 2).then(|| FileStat { size, mtime_s: ms, mtime_ns: mns, inode: ino, hash: hash.clone() });
+            let stat = (ms < now - 2).then(|| FileStat {
+                size,
+                mtime_s: ms,
+                mtime_ns: mns,
+                inode: ino,
+                hash: hash.clone(),
+            });
             let key = file_key(shown, &hash);
-            Ok((FileEntry { path: path.clone(), shown: shown.clone(), hash, bytes: size, key }, stat, hashed))
+            Ok((
+                FileEntry {
+                    path: path.clone(),
+                    shown: shown.clone(),
+                    hash,
+                    bytes: size,
+                    key,
+                },
+                stat,
+                hashed,
+            ))
         })
         .collect();
     let mut files = Vec::new();
@@ -161,9 +193,17 @@ pub fn file_key(shown: &str, hash: &str) -> String {
 /// Expands the plan. Fails only when an input file cannot be read.
 pub fn expand(plan: &Plan, index: &mut StatIndex) -> Result<Graph, String> {
     let (files, hashed) = hash_files(plan, index)?;
-    let file_of: HashMap<PathBuf, usize> = files.iter().enumerate().map(|(i, f)| (f.path.clone(), i)).collect();
+    let file_of: HashMap<PathBuf, usize> = files
+        .iter()
+        .enumerate()
+        .map(|(i, f)| (f.path.clone(), i))
+        .collect();
     let set_file = |si: usize, item: &str| -> Option<usize> {
-        plan.sets[si].files.iter().find(|f| f.item == item).and_then(|f| file_of.get(&f.path).copied())
+        plan.sets[si]
+            .files
+            .iter()
+            .find(|f| f.item == item)
+            .and_then(|f| file_of.get(&f.path).copied())
     };
     let mut nodes: Vec<Node> = Vec::new();
     // step -> (item or None) -> node
@@ -190,10 +230,25 @@ pub fn expand(plan: &Plan, index: &mut StatIndex) -> Result<Graph, String> {
             };
             let all = |src: Src| -> Vec<(String, Ref)> {
                 match src {
-                    Src::Set(s) => plan.sets[s].files.iter().filter_map(|f| set_file(s, &f.item).map(|x| (f.item.clone(), Ref::File(x)))).collect(),
+                    Src::Set(s) => plan.sets[s]
+                        .files
+                        .iter()
+                        .filter_map(|f| {
+                            set_file(s, &f.item).map(|x| (f.item.clone(), Ref::File(x)))
+                        })
+                        .collect(),
                     Src::Step(j) => step_nodes
                         .get(j)
-                        .map(|l| l.iter().map(|(it, n)| (it.clone().unwrap_or_else(|| plan.steps[j].id.clone()), Ref::Node(*n))).collect())
+                        .map(|l| {
+                            l.iter()
+                                .map(|(it, n)| {
+                                    (
+                                        it.clone().unwrap_or_else(|| plan.steps[j].id.clone()),
+                                        Ref::Node(*n),
+                                    )
+                                })
+                                .collect()
+                        })
                         .unwrap_or_default(),
                 }
             };
@@ -201,7 +256,9 @@ pub fn expand(plan: &Plan, index: &mut StatIndex) -> Result<Graph, String> {
             for p in &step.ports {
                 inputs.push(match p {
                     PortPlan::Missing => NodeInput::Missing,
-                    PortPlan::One(s) => one(*s, &item).map(NodeInput::One).unwrap_or(NodeInput::Missing),
+                    PortPlan::One(s) => one(*s, &item)
+                        .map(NodeInput::One)
+                        .unwrap_or(NodeInput::Missing),
                     PortPlan::Gather(s) => NodeInput::Many(all(*s)),
                     PortPlan::Several(v) => NodeInput::Many(
                         v.iter()
@@ -210,7 +267,11 @@ pub fn expand(plan: &Plan, index: &mut StatIndex) -> Result<Graph, String> {
                                     Src::Set(x) => plan.sets[*x].name.clone(),
                                     Src::Step(j) => {
                                         let ns = &plan.recipes[plan.steps[*j].recipe].namespace;
-                                        plan.steps[*j].id.strip_prefix(ns.as_str()).unwrap_or(&plan.steps[*j].id).to_string()
+                                        plan.steps[*j]
+                                            .id
+                                            .strip_prefix(ns.as_str())
+                                            .unwrap_or(&plan.steps[*j].id)
+                                            .to_string()
                                     }
                                 };
                                 one(*s, &item).map(|r| (name, r))
@@ -238,16 +299,31 @@ pub fn expand(plan: &Plan, index: &mut StatIndex) -> Result<Graph, String> {
             upstream.dedup();
             direct_files.sort();
             direct_files.dedup();
-            let key = node_key(step.stage.info().name, step.stage.info().version, &step.options, item.as_deref(), &inputs, |r| match r {
-                Ref::File(f) => files[f].key.clone(),
-                Ref::Node(n) => nodes[n].key.clone(),
-            });
+            let key = node_key(
+                step.stage.info().name,
+                step.stage.info().version,
+                &step.options,
+                item.as_deref(),
+                &inputs,
+                |r| match r {
+                    Ref::File(f) => files[f].key.clone(),
+                    Ref::Node(n) => nodes[n].key.clone(),
+                },
+            );
             let same_as = by_key.get(&key).copied();
             if same_as.is_none() {
                 by_key.insert(key.clone(), nodes.len());
             }
             mine.push((item.clone(), nodes.len()));
-            nodes.push(Node { step: si, item, inputs, key, upstream, files: direct_files, same_as });
+            nodes.push(Node {
+                step: si,
+                item,
+                inputs,
+                key,
+                upstream,
+                files: direct_files,
+                same_as,
+            });
         }
         step_nodes.push(mine);
     }
@@ -258,11 +334,23 @@ pub fn expand(plan: &Plan, index: &mut StatIndex) -> Result<Graph, String> {
             graph.add_edge(ids[u], ids[i], ());
         }
     }
-    Ok(Graph { files, nodes, graph, hashed })
+    Ok(Graph {
+        files,
+        nodes,
+        graph,
+        hashed,
+    })
 }
 
 /// The content key of a node.
-pub fn node_key(stage: &str, version: u32, options: &serde_json::Value, item: Option<&str>, inputs: &[NodeInput], key_of: impl Fn(Ref) -> String) -> String {
+pub fn node_key(
+    stage: &str,
+    version: u32,
+    options: &serde_json::Value,
+    item: Option<&str>,
+    inputs: &[NodeInput],
+    key_of: impl Fn(Ref) -> String,
+) -> String {
     let mut h = blake3::Hasher::new();
     h.update(b"retort-node\0v1\0");
     h.update(stage.as_bytes());
@@ -301,4 +389,165 @@ pub fn node_key(stage: &str, version: u32, options: &serde_json::Value, item: Op
         }
     }
     h.finalize().to_hex().to_string()
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use schemars::JsonSchema;
+    use serde::{Deserialize, Serialize};
+    use stages::stage::{Inputs, Port, Stage, StageError, StageInfo, TypedStage};
+    use stages::{Artifact, Kind, Value};
+
+    #[derive(Default, Serialize, Deserialize, JsonSchema)]
+    #[serde(deny_unknown_fields, default)]
+    struct NoOptions {}
+
+    macro_rules! test_stage {
+        ($ty:ident, $name:expr, $ports:expr) => {
+            struct $ty;
+            impl TypedStage for $ty {
+                type Options = NoOptions;
+                const INFO: &'static StageInfo = &StageInfo {
+                    name: $name,
+                    version: 1,
+                    summary: "test",
+                    inputs: $ports,
+                    output: Kind::Summary,
+                    references: &[],
+                };
+                fn methods(&self, _o: &NoOptions) -> String {
+                    "Test.".into()
+                }
+                fn run(&self, _i: &Inputs, _o: &NoOptions) -> Result<Artifact, StageError> {
+                    Ok(Artifact::new(Value::Summary))
+                }
+            }
+        };
+    }
+    test_stage!(Read, "t.read", &[Port::each("file", Kind::File, "a file")]);
+    test_stage!(
+        Both,
+        "t.both",
+        &[
+            Port::each("sample", Kind::Any, "per item"),
+            Port::each("blank", Kind::Any, "broadcast")
+        ]
+    );
+    test_stage!(
+        Many,
+        "t.several",
+        &[Port::several("parts", Kind::Any, "several steps")]
+    );
+    test_stage!(
+        All,
+        "t.gather",
+        &[Port::gather("items", Kind::Any, "all items")]
+    );
+    static CATALOG: &[&dyn Stage] = &[&Read, &Both, &Many, &All];
+
+    fn setup(recipe: &str, files: &[&str]) -> (tempfile::TempDir, Graph, Plan) {
+        let t = tempfile::tempdir().unwrap();
+        for f in files {
+            let p = t.path().join(f);
+            std::fs::create_dir_all(p.parent().unwrap()).unwrap();
+            std::fs::write(&p, f.as_bytes()).unwrap();
+        }
+        std::fs::write(t.path().join("r.yaml"), recipe).unwrap();
+        let p1 = crate::plan::build(&t.path().join("r.yaml"), &[], false, CATALOG);
+        assert!(!p1.has_errors(), "{}", p1.render_diagnostics());
+        let plan = p1.plan.unwrap();
+        let g = expand(&plan, &mut StatIndex::new()).unwrap();
+        (t, g, plan)
+    }
+
+    const RECIPE: &str = "id: t\nsamples:\n  c1s: { files: 'd/*_C1s.csv', item: '^(.*)_C1s' }\n  o1s: { files: 'd/*_O1s.csv', item: '^(.*)_O1s' }\n  blank: d/blank.txt\nsteps:\n  c: { stage: t.read, from: c1s }\n  o: { stage: t.read, from: o1s }\n  b: { stage: t.gather, from: blank }\n  sum: { stage: t.several, from: [c, o] }\n  minus: { stage: t.both, from: { sample: c, blank: b } }\n  all: { stage: t.gather, from: sum }\n";
+
+    #[test]
+    fn several_ports_pair_items_across_steps_and_single_values_broadcast() {
+        let files = [
+            "d/fa_C1s.csv",
+            "d/fa_O1s.csv",
+            "d/fb_C1s.csv",
+            "d/fb_O1s.csv",
+            "d/blank.txt",
+        ];
+        let (_t, g, plan) = setup(RECIPE, &files);
+        let step = |id: &str| plan.steps.iter().position(|s| s.id == id).unwrap();
+        let nodes = |id: &str| {
+            g.nodes
+                .iter()
+                .filter(|n| n.step == step(id))
+                .collect::<Vec<_>>()
+        };
+        // Items named by the regex capture: fa and fb in both sets.
+        assert_eq!(
+            nodes("c")
+                .iter()
+                .map(|n| n.item.clone().unwrap())
+                .collect::<Vec<_>>(),
+            ["fa", "fb"]
+        );
+        // `b` gathers the one-file blank set into a single value, which `minus`
+        // receives for every item (broadcast) beside the item's own `c`.
+        let b = nodes("b");
+        assert_eq!((b.len(), b[0].item.clone()), (1, None));
+        let b_index = g.nodes.iter().position(|n| n.step == step("b")).unwrap();
+        for m in nodes("minus") {
+            assert!(matches!(m.inputs[1], NodeInput::One(Ref::Node(n)) if n == b_index));
+            assert!(
+                matches!(m.inputs[0], NodeInput::One(Ref::Node(n)) if g.nodes[n].item == m.item)
+            );
+        }
+        assert_eq!(nodes("minus").len(), 2);
+        let sum = nodes("sum");
+        assert_eq!(sum.len(), 2);
+        match &sum[0].inputs[0] {
+            NodeInput::Many(v) => {
+                let names: Vec<&str> = v.iter().map(|(n, _)| n.as_str()).collect();
+                assert_eq!(names, ["c", "o"]);
+                let items: Vec<Option<String>> = v
+                    .iter()
+                    .map(|(_, r)| match r {
+                        Ref::Node(n) => g.nodes[*n].item.clone(),
+                        Ref::File(_) => None,
+                    })
+                    .collect();
+                assert_eq!(items, [Some("fa".to_string()), Some("fa".to_string())]);
+            }
+            other => panic!("{other:?}"),
+        }
+        // `all` gathers both items of `sum`, in item order, in one node.
+        let all = nodes("all");
+        assert_eq!(all.len(), 1);
+        assert!(
+            matches!(&all[0].inputs[0], NodeInput::Many(v) if v.iter().map(|(n, _)| n.as_str()).collect::<Vec<_>>() == ["fa", "fb"])
+        );
+        // Keys differ per item and are stable across expansions.
+        assert_ne!(sum[0].key, sum[1].key);
+        let (_t2, g2, _) = setup(RECIPE, &files);
+        assert_eq!(
+            g.nodes.iter().map(|n| &n.key).collect::<Vec<_>>(),
+            g2.nodes.iter().map(|n| &n.key).collect::<Vec<_>>()
+        );
+    }
+
+    #[test]
+    fn items_not_in_every_input_are_dropped_with_a_warning() {
+        let (t, _g, _plan) = setup(
+            RECIPE,
+            &[
+                "d/fa_C1s.csv",
+                "d/fa_O1s.csv",
+                "d/fb_C1s.csv",
+                "d/blank.txt",
+            ],
+        );
+        let p1 = crate::plan::build(&t.path().join("r.yaml"), &[], false, CATALOG);
+        let text = p1.render_diagnostics();
+        assert!(
+            text.contains("warning: step `sum`: items fb are not in every input and are left out"),
+            "{text}"
+        );
+    }
 }

@@ -9,7 +9,10 @@
 
 use crate::graph::Graph;
 use crate::plan::{Expect, Plan, PortPlan};
-use crate::record::{CheckRecord, NodeRecord, NodeStatus, RecipeRecord, ReferenceRecord, RunRecord, StepRecord, RUN_RECORD_SCHEMA_VERSION};
+use crate::record::{
+    CheckRecord, NodeRecord, NodeStatus, RecipeRecord, ReferenceRecord, RunRecord, StepRecord,
+    RUN_RECORD_SCHEMA_VERSION,
+};
 use crate::scheduler::Outcome;
 use serde_json::{json, Value};
 use stages::Scalar;
@@ -41,7 +44,16 @@ pub fn results_json(plan: &Plan, graph: &Graph, outcomes: &[Outcome]) -> Value {
 pub fn results_csv(results: &Value) -> Result<Vec<u8>, String> {
     let mut w = csv::Writer::from_writer(Vec::new());
     let e = |e: csv::Error| e.to_string();
-    w.write_record(["step", "item", "name", "value", "uncertainty", "unit", "node"]).map_err(e)?;
+    w.write_record([
+        "step",
+        "item",
+        "name",
+        "value",
+        "uncertainty",
+        "unit",
+        "node",
+    ])
+    .map_err(e)?;
     let empty = Vec::new();
     for r in results["results"].as_array().unwrap_or(&empty) {
         let text = |v: &Value| match v {
@@ -49,7 +61,16 @@ pub fn results_csv(results: &Value) -> Result<Vec<u8>, String> {
             Value::String(s) => s.clone(),
             other => other.to_string(),
         };
-        w.write_record([text(&r["step"]), text(&r["item"]), text(&r["name"]), text(&r["value"]), text(&r["uncertainty"]), text(&r["unit"]), text(&r["node"])]).map_err(e)?;
+        w.write_record([
+            text(&r["step"]),
+            text(&r["item"]),
+            text(&r["name"]),
+            text(&r["value"]),
+            text(&r["uncertainty"]),
+            text(&r["unit"]),
+            text(&r["node"]),
+        ])
+        .map_err(e)?;
     }
     w.into_inner().map_err(|e| e.to_string())
 }
@@ -63,8 +84,20 @@ pub fn checks(plan: &Plan, graph: &Graph, outcomes: &[Outcome]) -> Vec<CheckReco
                 Expect::Near { value, tolerance } => format!("{value} ± {tolerance}"),
                 Expect::Within { low, high } => format!("between {low} and {high}"),
             };
-            let node = graph.nodes.iter().position(|n| n.step == c.step && n.item == c.item);
-            let mut rec = CheckRecord { recipe: plan.recipes[c.recipe].id.clone(), result: c.result.clone(), item: c.item.clone(), expected, found: None, unit: String::new(), passed: false, message: String::new() };
+            let node = graph
+                .nodes
+                .iter()
+                .position(|n| n.step == c.step && n.item == c.item);
+            let mut rec = CheckRecord {
+                recipe: plan.recipes[c.recipe].id.clone(),
+                result: c.result.clone(),
+                item: c.item.clone(),
+                expected,
+                found: None,
+                unit: String::new(),
+                passed: false,
+                message: String::new(),
+            };
             let Some(n) = node else {
                 rec.message = "no such node".into();
                 return rec;
@@ -77,8 +110,16 @@ pub fn checks(plan: &Plan, graph: &Graph, outcomes: &[Outcome]) -> Vec<CheckReco
                 _ => {}
             }
             let Some(r) = outcomes[n].results.iter().find(|r| r.name == c.name) else {
-                let names: Vec<&str> = outcomes[n].results.iter().map(|r| r.name.as_str()).collect();
-                rec.message = format!("the step published no result `{}` (it published: {})", c.name, names.join(", "));
+                let names: Vec<&str> = outcomes[n]
+                    .results
+                    .iter()
+                    .map(|r| r.name.as_str())
+                    .collect();
+                rec.message = format!(
+                    "the step published no result `{}` (it published: {})",
+                    c.name,
+                    names.join(", ")
+                );
                 return rec;
             };
             rec.unit = r.unit.clone();
@@ -100,8 +141,29 @@ pub fn checks(plan: &Plan, graph: &Graph, outcomes: &[Outcome]) -> Vec<CheckReco
 }
 
 #[allow(clippy::too_many_arguments)]
-pub fn run_record(plan: &Plan, graph: &Graph, outcomes: &[Outcome], checks: Vec<CheckRecord>, started: String, finished: String, host: &str, cache_dir: &Path) -> RunRecord {
-    let recipes = plan.recipes.iter().map(|r| RecipeRecord { id: r.id.clone(), title: r.title.clone(), description: r.description.clone(), author: r.author.clone(), path: r.shown.clone(), source: r.source.clone(), hash: r.hash.clone() }).collect();
+pub fn run_record(
+    plan: &Plan,
+    graph: &Graph,
+    outcomes: &[Outcome],
+    checks: Vec<CheckRecord>,
+    started: String,
+    finished: String,
+    host: &str,
+    cache_dir: &Path,
+) -> RunRecord {
+    let recipes = plan
+        .recipes
+        .iter()
+        .map(|r| RecipeRecord {
+            id: r.id.clone(),
+            title: r.title.clone(),
+            description: r.description.clone(),
+            author: r.author.clone(),
+            path: r.shown.clone(),
+            source: r.source.clone(),
+            hash: r.hash.clone(),
+        })
+        .collect();
     let steps = plan
         .steps
         .iter()
@@ -122,7 +184,14 @@ pub fn run_record(plan: &Plan, graph: &Graph, outcomes: &[Outcome], checks: Vec<
                 stage_version: info.version,
                 options: s.options.clone(),
                 methods: s.methods.clone(),
-                references: info.references.iter().map(|r| ReferenceRecord { key: r.key.to_string(), citation: r.citation.to_string() }).collect(),
+                references: info
+                    .references
+                    .iter()
+                    .map(|r| ReferenceRecord {
+                        key: r.key.to_string(),
+                        citation: r.citation.to_string(),
+                    })
+                    .collect(),
                 output_kind: info.output.name().to_string(),
                 inputs,
                 gathers: s.ports.iter().any(|p| matches!(p, PortPlan::Gather(_))),
@@ -140,7 +209,11 @@ pub fn run_record(plan: &Plan, graph: &Graph, outcomes: &[Outcome], checks: Vec<
             key: n.key.clone(),
             status: outcomes[i].status.clone(),
             files: graph.file_records(n),
-            upstream: n.upstream.iter().map(|&u| graph.nodes[u].key.clone()).collect(),
+            upstream: n
+                .upstream
+                .iter()
+                .map(|&u| graph.nodes[u].key.clone())
+                .collect(),
             duration_ms: match (&outcomes[i].status, &outcomes[i].meta) {
                 (NodeStatus::Ran, Some(m)) => m.duration_ms,
                 _ => 0.0,
@@ -162,12 +235,78 @@ pub fn run_record(plan: &Plan, graph: &Graph, outcomes: &[Outcome], checks: Vec<
     }
 }
 
-/// A fresh temporary folder beside `out`.
+/// Whether `out` may be replaced by a run's output: it must not hold the recipe's
+/// folder or the cache, and if it exists and is not empty it must be an earlier
+/// output (it has a run.json).
+pub fn check_target(out: &Path, root: &Path, cache: &Path) -> Result<(), String> {
+    let abs = std::path::absolute(out).map_err(|e| format!("{}: {e}", out.display()))?;
+    let abs = abs.canonicalize().unwrap_or(abs);
+    let cache = std::path::absolute(cache).unwrap_or_else(|_| cache.to_path_buf());
+    if root.starts_with(&abs) || cache.starts_with(&abs) {
+        return Err(format!(
+            "the output folder {} would hold the recipe or its cache; choose another --out",
+            out.display()
+        ));
+    }
+    if abs.is_dir() {
+        let empty = std::fs::read_dir(&abs)
+            .map(|mut d| d.next().is_none())
+            .unwrap_or(false);
+        if !empty && !abs.join("run.json").is_file() {
+            return Err(format!(
+                "{} is not empty and is not a retort output folder (no run.json); it is not replaced",
+                out.display()
+            ));
+        }
+    } else if abs.exists() {
+        return Err(format!("{} exists and is not a folder", out.display()));
+    }
+    Ok(())
+}
+
+fn out_name(out: &Path) -> String {
+    out.file_name()
+        .map(|n| n.to_string_lossy().to_string())
+        .unwrap_or_else(|| "out".into())
+}
+
+/// A fresh temporary folder beside `out` (named with this process id), after
+/// removing any left by runs that were killed.
 pub fn temp_beside(out: &Path) -> Result<tempfile::TempDir, String> {
-    let parent = out.parent().filter(|p| !p.as_os_str().is_empty()).unwrap_or(Path::new("."));
+    let parent = out
+        .parent()
+        .filter(|p| !p.as_os_str().is_empty())
+        .unwrap_or(Path::new("."));
     std::fs::create_dir_all(parent).map_err(|e| format!("{}: {e}", parent.display()))?;
-    let name = out.file_name().map(|n| n.to_string_lossy().to_string()).unwrap_or_else(|| "out".into());
-    tempfile::Builder::new().prefix(&format!(".{name}.tmp-")).tempdir_in(parent).map_err(|e| format!("{}: {e}", parent.display()))
+    let name = out_name(out);
+    remove_stale(parent, &name);
+    tempfile::Builder::new()
+        .prefix(&format!(".{name}.tmp-{}-", std::process::id()))
+        .tempdir_in(parent)
+        .map_err(|e| format!("{}: {e}", parent.display()))
+}
+
+/// Removes `.NAME.tmp-PID-*` and `.NAME.old-PID` folders whose process is gone
+/// (where the system lets us ask: Linux `/proc`).
+fn remove_stale(parent: &Path, name: &str) {
+    if !Path::new("/proc/self").exists() {
+        return;
+    }
+    let Ok(entries) = std::fs::read_dir(parent) else {
+        return;
+    };
+    for e in entries.flatten() {
+        let file = e.file_name().to_string_lossy().to_string();
+        let rest = file
+            .strip_prefix(&format!(".{name}.tmp-"))
+            .or_else(|| file.strip_prefix(&format!(".{name}.old-")));
+        let Some(pid) = rest.and_then(|r| r.split('-').next()) else {
+            continue;
+        };
+        if pid.parse::<u32>().is_ok() && !Path::new("/proc").join(pid).exists() {
+            let _ = std::fs::remove_dir_all(e.path());
+        }
+    }
 }
 
 pub fn write(dir: &Path, rel: &str, bytes: &[u8]) -> Result<(), String> {
@@ -192,7 +331,10 @@ pub fn publish(tmp: tempfile::TempDir, out: &Path) -> Result<(), String> {
         if !out.is_dir() {
             return Err(format!("{} exists and is not a folder", out.display()));
         }
-        let name = out.file_name().map(|n| n.to_string_lossy().to_string()).unwrap_or_default();
+        let name = out
+            .file_name()
+            .map(|n| n.to_string_lossy().to_string())
+            .unwrap_or_default();
         let old = out.with_file_name(format!(".{name}.old-{}", std::process::id()));
         let _ = std::fs::remove_dir_all(&old);
         std::fs::rename(out, &old).map_err(err)?;

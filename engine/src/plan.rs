@@ -153,16 +153,35 @@ impl Phase1 {
 }
 
 /// Loads and resolves the recipe at `top`. `sets` are the `NAME=VALUE` overrides.
-pub fn build(top: &std::path::Path, sets: &[String], allow_outside: bool, catalog: &[&'static dyn Stage]) -> Phase1 {
+pub fn build(
+    top: &std::path::Path,
+    sets: &[String],
+    allow_outside: bool,
+    catalog: &[&'static dyn Stage],
+) -> Phase1 {
     let (loaded, policy, mut diags, sources) = load_tree(top, allow_outside);
     if loaded.is_empty() {
-        return Phase1 { plan: None, diagnostics: diags, sources };
+        return Phase1 {
+            plan: None,
+            diagnostics: diags,
+            sources,
+        };
     }
-    let mut r = Resolver { loaded: &loaded, policy: &policy, catalog, diags: Vec::new(), failed_sets: BTreeSet::new() };
+    let mut r = Resolver {
+        loaded: &loaded,
+        policy: &policy,
+        catalog,
+        diags: Vec::new(),
+        failed_sets: BTreeSet::new(),
+    };
     let plan = r.resolve(sets);
     diags.append(&mut r.diags);
     let errors = diags.iter().any(Diagnostic::is_error);
-    Phase1 { plan: if errors { None } else { Some(plan) }, diagnostics: diags, sources }
+    Phase1 {
+        plan: if errors { None } else { Some(plan) },
+        diagnostics: diags,
+        sources,
+    }
 }
 
 /// Type of a parameter, inferred from its declared value.
@@ -199,15 +218,21 @@ impl ParamType {
     /// an integer).
     fn coerce(self, v: J) -> Option<J> {
         match (self, &v) {
-            (ParamType::Number, J::Number(n)) => n.as_f64().and_then(|f| serde_json::Number::from_f64(f).map(J::Number)),
+            (ParamType::Number, J::Number(n)) => n
+                .as_f64()
+                .and_then(|f| serde_json::Number::from_f64(f).map(J::Number)),
             (ParamType::Integer, J::Number(n)) => {
                 if n.is_i64() || n.is_u64() {
                     Some(v)
                 } else {
-                    n.as_f64().filter(|f| f.fract() == 0.0 && f.abs() < 9.0e15).map(|f| J::from(f as i64))
+                    n.as_f64()
+                        .filter(|f| f.fract() == 0.0 && f.abs() < 9.0e15)
+                        .map(|f| J::from(f as i64))
                 }
             }
-            (ParamType::Text, J::String(_)) | (ParamType::Bool, J::Bool(_)) | (ParamType::List, J::Array(_)) => Some(v),
+            (ParamType::Text, J::String(_))
+            | (ParamType::Bool, J::Bool(_))
+            | (ParamType::List, J::Array(_)) => Some(v),
             _ => None,
         }
     }
@@ -215,14 +240,23 @@ impl ParamType {
     fn parse(self, s: &str) -> Option<J> {
         match self {
             ParamType::Integer => s.trim().parse::<i64>().ok().map(J::from),
-            ParamType::Number => s.trim().parse::<f64>().ok().filter(|f| f.is_finite()).and_then(serde_json::Number::from_f64).map(J::Number),
+            ParamType::Number => s
+                .trim()
+                .parse::<f64>()
+                .ok()
+                .filter(|f| f.is_finite())
+                .and_then(serde_json::Number::from_f64)
+                .map(J::Number),
             ParamType::Text => Some(J::String(s.to_string())),
             ParamType::Bool => match s.trim() {
                 "true" => Some(J::Bool(true)),
                 "false" => Some(J::Bool(false)),
                 _ => None,
             },
-            ParamType::List => serde_yaml::from_str::<Y>(s).ok().and_then(|y| yaml_to_json(&y).ok()).filter(J::is_array),
+            ParamType::List => serde_yaml::from_str::<Y>(s)
+                .ok()
+                .and_then(|y| yaml_to_json(&y).ok())
+                .filter(J::is_array),
         }
     }
 }
@@ -239,7 +273,10 @@ fn yaml_to_json(y: &Y) -> Result<J, String> {
                 J::from(u)
             } else {
                 let f = n.as_f64().unwrap_or(f64::NAN);
-                J::Number(serde_json::Number::from_f64(f).ok_or_else(|| format!("{f} is not a finite number"))?)
+                J::Number(
+                    serde_json::Number::from_f64(f)
+                        .ok_or_else(|| format!("{f} is not a finite number"))?,
+                )
             }
         }
         Y::String(s) => J::String(s.clone()),
@@ -249,7 +286,10 @@ fn yaml_to_json(y: &Y) -> Result<J, String> {
             for (k, v) in m {
                 let key = match k {
                     Y::String(s) => s.clone(),
-                    other => serde_yaml::to_string(other).unwrap_or_default().trim().to_string(),
+                    other => serde_yaml::to_string(other)
+                        .unwrap_or_default()
+                        .trim()
+                        .to_string(),
                 };
                 o.insert(key, yaml_to_json(v)?);
             }
@@ -292,11 +332,22 @@ fn k(s: &str) -> Seg {
 impl<'a> Resolver<'a> {
     fn err(&mut self, r: usize, problem: Problem, pos: Pos) {
         let file = self.loaded[r].shown.clone();
-        self.diags.push(Diagnostic::error(problem, Some(&file), Some(pos)));
+        self.diags
+            .push(Diagnostic::error(problem, Some(&file), Some(pos)));
     }
     fn warn(&mut self, r: usize, problem: Problem, pos: Pos) {
         let file = self.loaded[r].shown.clone();
-        self.diags.push(Diagnostic::warning(problem, Some(&file), Some(pos)));
+        self.diags
+            .push(Diagnostic::warning(problem, Some(&file), Some(pos)));
+    }
+    /// A sample-set problem located at the value of `path`.
+    fn bad_set(&mut self, r: usize, set: &str, path: &[Seg], message: &str) {
+        let pos = self.val_pos(r, path);
+        let problem = Problem::BadSampleSet {
+            set: set.into(),
+            message: message.into(),
+        };
+        self.err(r, problem, pos);
     }
     fn key_pos(&self, r: usize, path: &[Seg]) -> Pos {
         self.loaded[r].spans.key(path)
@@ -337,7 +388,11 @@ impl<'a> Resolver<'a> {
                 match self.sample_set(r, name, spec, &envs[r]) {
                     Some(files) => {
                         idx.insert(name.clone(), all_sets.len());
-                        all_sets.push(SampleSet { recipe: r, name: name.clone(), files });
+                        all_sets.push(SampleSet {
+                            recipe: r,
+                            name: name.clone(),
+                            files,
+                        });
                     }
                     None => {
                         self.failed_sets.insert((r, name.clone()));
@@ -355,7 +410,14 @@ impl<'a> Resolver<'a> {
                 let path = [k("steps"), Seg::Key(local.clone())];
                 if !valid_id(local) {
                     let p = self.key_pos(r, &path);
-                    self.err(r, Problem::BadId { what: "step id", id: local.clone() }, p);
+                    self.err(
+                        r,
+                        Problem::BadId {
+                            what: "step id",
+                            id: local.clone(),
+                        },
+                        p,
+                    );
                 }
                 if by_id.contains_key(&id) {
                     if !l.spans.duplicates.iter().any(|d| d.path == path) {
@@ -364,13 +426,25 @@ impl<'a> Resolver<'a> {
                     }
                     continue;
                 }
-                let stage = self.catalog.iter().copied().find(|s| s.info().name == step.stage);
+                let stage = self
+                    .catalog
+                    .iter()
+                    .copied()
+                    .find(|s| s.info().name == step.stage);
                 if stage.is_none() {
-                    let suggestion = did_you_mean(&step.stage, self.catalog.iter().map(|s| s.info().name));
+                    let suggestion =
+                        did_you_mean(&step.stage, self.catalog.iter().map(|s| s.info().name));
                     let mut sp = path.to_vec();
                     sp.push(k("stage"));
                     let p = self.val_pos(r, &sp);
-                    self.err(r, Problem::UnknownStage { stage: step.stage.clone(), suggestion }, p);
+                    self.err(
+                        r,
+                        Problem::UnknownStage {
+                            stage: step.stage.clone(),
+                            suggestion,
+                        },
+                        p,
+                    );
                 }
                 by_id.insert(id.clone(), decls.len());
                 decls.push(Decl {
@@ -387,21 +461,60 @@ impl<'a> Resolver<'a> {
         for di in 0..decls.len() {
             let r = decls[di].recipe;
             let local = decls[di].local.clone();
-            let Some(step) = loaded[r].raw.steps.0.iter().find(|(n, _)| *n == local).map(|(_, s)| s) else {
+            let Some(step) = loaded[r]
+                .raw
+                .steps
+                .0
+                .iter()
+                .find(|(n, _)| *n == local)
+                .map(|(_, s)| s)
+            else {
                 continue;
             };
-            let Some(stage) = decls[di].stage else { continue };
+            let Some(stage) = decls[di].stage else {
+                continue;
+            };
             let path = vec![k("steps"), Seg::Key(local.clone())];
-            decls[di].options = self.options(r, &path, &decls[di].id, stage, step.options.as_ref(), &envs[r]);
-            let kinds: Vec<Option<Kind>> = decls.iter().map(|d| d.stage.map(|s| s.info().output)).collect();
-            decls[di].ports = self.connect(r, &path, &decls[di].id, stage, step.from.as_ref(), &set_index[r], &by_id, &kinds, &all_sets);
+            decls[di].options = self.options(
+                r,
+                &path,
+                &decls[di].id,
+                stage,
+                step.options.as_ref(),
+                &envs[r],
+            );
+            let kinds: Vec<Option<Kind>> = decls
+                .iter()
+                .map(|d| d.stage.map(|s| s.info().output))
+                .collect();
+            decls[di].ports = self.connect(
+                r,
+                &path,
+                &decls[di].id,
+                stage,
+                step.from.as_ref(),
+                &set_index[r],
+                &by_id,
+                &kinds,
+                &all_sets,
+            );
         }
         // Unused sample sets.
         for (si, set) in all_sets.iter().enumerate() {
-            let used = decls.iter().any(|d| d.ports.iter().any(|p| port_sources(p).contains(&Src::Set(si))));
+            let used = decls.iter().any(|d| {
+                d.ports
+                    .iter()
+                    .any(|p| port_sources(p).contains(&Src::Set(si)))
+            });
             if !used {
                 let p = self.key_pos(set.recipe, &[k("samples"), Seg::Key(set.name.clone())]);
-                self.warn(set.recipe, Problem::UnusedSampleSet { set: set.name.clone() }, p);
+                self.warn(
+                    set.recipe,
+                    Problem::UnusedSampleSet {
+                        set: set.name.clone(),
+                    },
+                    p,
+                );
             }
         }
         let order = self.order(&decls);
@@ -425,7 +538,9 @@ impl<'a> Resolver<'a> {
                     PortPlan::Missing => PortPlan::Missing,
                     PortPlan::One(s) => PortPlan::One(remap(*s)),
                     PortPlan::Gather(s) => PortPlan::Gather(remap(*s)),
-                    PortPlan::Several(v) => PortPlan::Several(v.iter().map(|s| remap(*s)).collect()),
+                    PortPlan::Several(v) => {
+                        PortPlan::Several(v.iter().map(|s| remap(*s)).collect())
+                    }
                 })
                 .collect();
             let domain = self.domain(decl, &ports, &steps, &all_sets);
@@ -441,35 +556,67 @@ impl<'a> Resolver<'a> {
             });
         }
         if decls.is_empty() && self.diags.iter().all(|d| !d.is_error()) {
-            self.warn(0, Problem::NoSteps, Pos { line: 1, col: 1, len: 1 });
+            self.warn(
+                0,
+                Problem::NoSteps,
+                Pos {
+                    line: 1,
+                    col: 1,
+                    len: 1,
+                },
+            );
         }
         let checks = self.checks(&steps, &new_index, &by_id);
-        Plan { policy: self.policy.clone(), recipes, parameters, sets: all_sets, steps, checks }
+        Plan {
+            policy: self.policy.clone(),
+            recipes,
+            parameters,
+            sets: all_sets,
+            steps,
+            checks,
+        }
     }
 
-    fn parameters(&mut self, r: usize, l: &Loaded, sets: &[String], envs: &[BTreeMap<String, Param>]) -> (BTreeMap<String, Param>, Vec<ParameterRecord>) {
+    fn parameters(
+        &mut self,
+        r: usize,
+        l: &Loaded,
+        sets: &[String],
+        envs: &[BTreeMap<String, Param>],
+    ) -> (BTreeMap<String, Param>, Vec<ParameterRecord>) {
         let mut env = BTreeMap::new();
         let mut order = Vec::new();
         for (name, p) in &l.raw.parameters.0 {
             let path = [k("parameters"), Seg::Key(name.clone())];
             if !valid_id(name) {
                 let pos = self.key_pos(r, &path);
-                self.err(r, Problem::BadId { what: "parameter name", id: name.clone() }, pos);
+                self.err(
+                    r,
+                    Problem::BadId {
+                        what: "parameter name",
+                        id: name.clone(),
+                    },
+                    pos,
+                );
             }
             let vpath = [k("parameters"), Seg::Key(name.clone()), k("value")];
-            let value = match yaml_to_json(&p.value) {
-                Ok(v) => v,
+            let typed = yaml_to_json(&p.value).and_then(|v| match ParamType::of(&v) {
+                Some(ty) => Ok((v, ty)),
+                None => Err(
+                    "a value must be a number, an integer, text, true/false or a list".to_string(),
+                ),
+            });
+            let (value, ty) = match typed {
+                Ok(t) => t,
                 Err(message) => {
                     let pos = self.val_pos(r, &vpath);
-                    self.err(r, Problem::BadParameter { name: name.clone(), message }, pos);
+                    let problem = Problem::BadParameter {
+                        name: name.clone(),
+                        message,
+                    };
+                    self.err(r, problem, pos);
                     continue;
                 }
-            };
-            let Some(ty) = ParamType::of(&value) else {
-                let pos = self.val_pos(r, &vpath);
-                let message = "a value must be a number, an integer, text, true/false or a list".to_string();
-                self.err(r, Problem::BadParameter { name: name.clone(), message }, pos);
-                continue;
             };
             order.push((name.clone(), p.unit.clone(), p.about.clone()));
             env.insert(name.clone(), Param { value, ty });
@@ -478,14 +625,26 @@ impl<'a> Resolver<'a> {
         if r == 0 {
             for arg in sets {
                 let Some((name, value)) = arg.split_once('=') else {
-                    self.diags.push(Diagnostic::error(Problem::BadSetSyntax { arg: arg.clone() }, None, None));
+                    self.diags.push(Diagnostic::error(
+                        Problem::BadSetSyntax { arg: arg.clone() },
+                        None,
+                        None,
+                    ));
                     continue;
                 };
                 let name = name.trim();
                 match env.get_mut(name) {
                     None => {
-                        let suggestion = did_you_mean(name, l.raw.parameters.0.iter().map(|(n, _)| n.as_str()));
-                        self.diags.push(Diagnostic::error(Problem::UnknownSetParameter { name: name.to_string(), suggestion }, None, None));
+                        let suggestion =
+                            did_you_mean(name, l.raw.parameters.0.iter().map(|(n, _)| n.as_str()));
+                        self.diags.push(Diagnostic::error(
+                            Problem::UnknownSetParameter {
+                                name: name.to_string(),
+                                suggestion,
+                            },
+                            None,
+                            None,
+                        ));
                     }
                     Some(p) => match p.ty.parse(value) {
                         Some(v) => {
@@ -493,7 +652,11 @@ impl<'a> Resolver<'a> {
                             overridden.insert(name.to_string());
                         }
                         None => self.diags.push(Diagnostic::error(
-                            Problem::BadSetValue { name: name.to_string(), expected: p.ty.described(), value: value.to_string() },
+                            Problem::BadSetValue {
+                                name: name.to_string(),
+                                expected: p.ty.described(),
+                                value: value.to_string(),
+                            },
                             None,
                             None,
                         )),
@@ -505,11 +668,21 @@ impl<'a> Resolver<'a> {
             for (name, value, at) in &l.passed {
                 let pos = self.loaded[parent].spans.key(at);
                 let Some(ty) = env.get(name).map(|p| p.ty) else {
-                    let suggestion = did_you_mean(name, l.raw.parameters.0.iter().map(|(n, _)| n.as_str()));
-                    self.err(parent, Problem::UnknownParameter { name: name.clone(), suggestion }, pos);
+                    let suggestion =
+                        did_you_mean(name, l.raw.parameters.0.iter().map(|(n, _)| n.as_str()));
+                    self.err(
+                        parent,
+                        Problem::UnknownParameter {
+                            name: name.clone(),
+                            suggestion,
+                        },
+                        pos,
+                    );
                     continue;
                 };
-                let Some(v) = self.substitute(parent, at, value, &envs[parent]) else { continue };
+                let Some(v) = self.substitute(parent, at, value, &envs[parent]) else {
+                    continue;
+                };
                 match ty.coerce(v.clone()) {
                     Some(v) => {
                         if let Some(p) = env.get_mut(name) {
@@ -519,8 +692,16 @@ impl<'a> Resolver<'a> {
                     }
                     None => {
                         let vpos = self.loaded[parent].spans.value(at);
-                        let message = format!("`set` gives {v}, but the parameter is {}", ty.described());
-                        self.err(parent, Problem::BadParameter { name: name.clone(), message }, vpos);
+                        let message =
+                            format!("`set` gives {v}, but the parameter is {}", ty.described());
+                        self.err(
+                            parent,
+                            Problem::BadParameter {
+                                name: name.clone(),
+                                message,
+                            },
+                            vpos,
+                        );
                     }
                 }
             }
@@ -542,7 +723,13 @@ impl<'a> Resolver<'a> {
     }
 
     /// Substitutes `{{ name }}` templates in a YAML value, giving JSON.
-    fn substitute(&mut self, r: usize, path: &[Seg], y: &Y, env: &BTreeMap<String, Param>) -> Option<J> {
+    fn substitute(
+        &mut self,
+        r: usize,
+        path: &[Seg],
+        y: &Y,
+        env: &BTreeMap<String, Param>,
+    ) -> Option<J> {
         match y {
             Y::String(s) => self.template(r, path, s, env),
             Y::Sequence(v) => {
@@ -564,7 +751,10 @@ impl<'a> Resolver<'a> {
                 for (key, e) in m {
                     let key = match key {
                         Y::String(s) => s.clone(),
-                        other => serde_yaml::to_string(other).unwrap_or_default().trim().to_string(),
+                        other => serde_yaml::to_string(other)
+                            .unwrap_or_default()
+                            .trim()
+                            .to_string(),
                     };
                     let mut p = path.to_vec();
                     p.push(Seg::Key(key.clone()));
@@ -582,14 +772,27 @@ impl<'a> Resolver<'a> {
                 Ok(j) => Some(j),
                 Err(message) => {
                     let pos = self.val_pos(r, path);
-                    self.err(r, Problem::BadParameter { name: String::new(), message }, pos);
+                    self.err(
+                        r,
+                        Problem::BadParameter {
+                            name: String::new(),
+                            message,
+                        },
+                        pos,
+                    );
                     None
                 }
             },
         }
     }
 
-    fn template(&mut self, r: usize, path: &[Seg], s: &str, env: &BTreeMap<String, Param>) -> Option<J> {
+    fn template(
+        &mut self,
+        r: usize,
+        path: &[Seg],
+        s: &str,
+        env: &BTreeMap<String, Param>,
+    ) -> Option<J> {
         if !s.contains("{{") {
             return Some(J::String(s.to_string()));
         }
@@ -598,12 +801,18 @@ impl<'a> Resolver<'a> {
         let mut whole: Option<J> = None;
         let mut ok = true;
         while let Some(open) = rest.find("{{") {
-            let Some(close) = rest[open..].find("}}") else { break };
+            let Some(close) = rest[open..].find("}}") else {
+                break;
+            };
             let name = rest[open + 2..open + close].trim();
             out.push_str(&rest[..open]);
             match env.get(name) {
                 Some(p) => {
-                    if open == 0 && rest[open + close + 2..].is_empty() && out.is_empty() && s.trim() == rest.trim() {
+                    if open == 0
+                        && rest[open + close + 2..].is_empty()
+                        && out.is_empty()
+                        && s.trim() == rest.trim()
+                    {
                         whole = Some(p.value.clone());
                     }
                     match &p.value {
@@ -614,7 +823,14 @@ impl<'a> Resolver<'a> {
                 None => {
                     let suggestion = did_you_mean(name, env.keys().map(String::as_str));
                     let pos = self.val_pos(r, path);
-                    self.err(r, Problem::UnknownParameter { name: name.to_string(), suggestion }, pos);
+                    self.err(
+                        r,
+                        Problem::UnknownParameter {
+                            name: name.to_string(),
+                            suggestion,
+                        },
+                        pos,
+                    );
                     ok = false;
                 }
             }
@@ -627,7 +843,15 @@ impl<'a> Resolver<'a> {
         Some(whole.unwrap_or(J::String(out)))
     }
 
-    fn options(&mut self, r: usize, path: &[Seg], id: &str, stage: &'static dyn Stage, raw: Option<&Y>, env: &BTreeMap<String, Param>) -> J {
+    fn options(
+        &mut self,
+        r: usize,
+        path: &[Seg],
+        id: &str,
+        stage: &'static dyn Stage,
+        raw: Option<&Y>,
+        env: &BTreeMap<String, Param>,
+    ) -> J {
         let mut opath = path.to_vec();
         opath.push(k("options"));
         let json = match raw {
@@ -646,7 +870,10 @@ impl<'a> Resolver<'a> {
                     Some(u) => {
                         let mut kp = epath.clone();
                         kp.push(Seg::Key(u.key.clone()));
-                        (self.key_pos(r, &kp), did_you_mean(&u.key, u.expected.iter().map(String::as_str)))
+                        (
+                            self.key_pos(r, &kp),
+                            did_you_mean(&u.key, u.expected.iter().map(String::as_str)),
+                        )
                     }
                     None => (self.val_pos(r, &epath), None),
                 };
@@ -681,8 +908,8 @@ impl<'a> Resolver<'a> {
         let mut fpath = path.to_vec();
         fpath.push(k("from"));
         // (port index, names with their paths)
-        let mut given: Vec<Option<Vec<(String, Vec<Seg>)>>> = vec![None; ports.len()];
-        let names_of = |y: &Y, p: &[Seg]| -> Option<Vec<(String, Vec<Seg>)>> {
+        let mut given: Vec<Option<Named>> = vec![None; ports.len()];
+        let names_of = |y: &Y, p: &[Seg]| -> Option<Named> {
             match y {
                 Y::String(s) => Some(vec![(s.clone(), p.to_vec())]),
                 Y::Sequence(v) => v
@@ -699,14 +926,29 @@ impl<'a> Resolver<'a> {
         };
         let bad_from = |this: &mut Self| {
             let pos = this.val_pos(r, &fpath);
-            this.err(r, Problem::BadFrom { step: id.to_string() }, pos);
+            this.err(
+                r,
+                Problem::BadFrom {
+                    step: id.to_string(),
+                },
+                pos,
+            );
         };
         match from {
             None | Some(Y::Null) => {}
             Some(Y::String(s)) => {
                 if ports.is_empty() {
                     let pos = self.val_pos(r, &fpath);
-                    self.err(r, Problem::TooManyInputs { step: id.into(), stage: info.name.into(), given: 1, ports: 0 }, pos);
+                    self.err(
+                        r,
+                        Problem::TooManyInputs {
+                            step: id.into(),
+                            stage: info.name.into(),
+                            given: 1,
+                            ports: 0,
+                        },
+                        pos,
+                    );
                 } else {
                     given[0] = Some(vec![(s.clone(), fpath.clone())]);
                 }
@@ -719,7 +961,16 @@ impl<'a> Resolver<'a> {
                     }
                 } else if v.len() > ports.len() {
                     let pos = self.val_pos(r, &fpath);
-                    self.err(r, Problem::TooManyInputs { step: id.into(), stage: info.name.into(), given: v.len(), ports: ports.len() }, pos);
+                    self.err(
+                        r,
+                        Problem::TooManyInputs {
+                            step: id.into(),
+                            stage: info.name.into(),
+                            given: v.len(),
+                            ports: ports.len(),
+                        },
+                        pos,
+                    );
                 } else {
                     for (i, e) in v.iter().enumerate() {
                         let mut ep = fpath.clone();
@@ -766,11 +1017,22 @@ impl<'a> Resolver<'a> {
         for (pi, port) in ports.iter().enumerate() {
             let Some(names) = given[pi].take() else {
                 if !port.optional && !missing_reported {
-                    let pos = if from.is_some() { self.val_pos(r, &fpath) } else { self.key_pos(r, path) };
-                    let problem = if from.is_none() {
-                        Problem::NoInputs { step: id.into(), stage: info.name.into() }
+                    let pos = if from.is_some() {
+                        self.val_pos(r, &fpath)
                     } else {
-                        Problem::MissingPort { step: id.into(), stage: info.name.into(), port: port.name.into() }
+                        self.key_pos(r, path)
+                    };
+                    let problem = if from.is_none() {
+                        Problem::NoInputs {
+                            step: id.into(),
+                            stage: info.name.into(),
+                        }
+                    } else {
+                        Problem::MissingPort {
+                            step: id.into(),
+                            stage: info.name.into(),
+                            port: port.name.into(),
+                        }
                     };
                     self.err(r, problem, pos);
                     missing_reported = true;
@@ -798,13 +1060,25 @@ impl<'a> Resolver<'a> {
                         continue;
                     }
                     let ns = &self.loaded[r].namespace;
-                    let mut candidates: Vec<String> = by_id.keys().filter_map(|k| k.strip_prefix(ns.as_str())).map(str::to_string).collect();
+                    let mut candidates: Vec<String> = by_id
+                        .keys()
+                        .filter_map(|k| k.strip_prefix(ns.as_str()))
+                        .map(str::to_string)
+                        .collect();
                     candidates.extend(sets.keys().cloned());
                     candidates.extend(by_id.keys().cloned());
                     candidates.sort();
                     let suggestion = did_you_mean(name, candidates.iter().map(String::as_str));
                     let pos = self.val_pos(r, npath);
-                    self.err(r, Problem::UnknownSource { step: id.into(), name: name.clone(), suggestion }, pos);
+                    self.err(
+                        r,
+                        Problem::UnknownSource {
+                            step: id.into(),
+                            name: name.clone(),
+                            suggestion,
+                        },
+                        pos,
+                    );
                     continue;
                 };
                 if let Some(kind) = kind {
@@ -815,7 +1089,9 @@ impl<'a> Resolver<'a> {
                             port: port.name.into(),
                             expected: port.kind.name().into(),
                             source: match src {
-                                Src::Set(si) => all_sets.get(si).map(|s| s.name.clone()).unwrap_or_default(),
+                                Src::Set(si) => {
+                                    all_sets.get(si).map(|s| s.name.clone()).unwrap_or_default()
+                                }
                                 Src::Step(_) => name.clone(),
                             },
                             given: kind.name().into(),
@@ -868,9 +1144,19 @@ impl<'a> Resolver<'a> {
             let mut path = vec![start];
             let mut cur = start;
             loop {
-                let mut next: Vec<usize> = g.neighbors(nodes[cur]).map(|n| n.index()).filter(|n| members.contains(n)).collect();
+                let mut next: Vec<usize> = g
+                    .neighbors(nodes[cur])
+                    .map(|n| n.index())
+                    .filter(|n| members.contains(n))
+                    .collect();
                 next.sort();
-                let Some(&n) = next.iter().find(|n| **n == start || !path.contains(n)).or(next.first()) else { break };
+                let Some(&n) = next
+                    .iter()
+                    .find(|n| **n == start || !path.contains(n))
+                    .or(next.first())
+                else {
+                    break;
+                };
                 path.push(n);
                 if n == start || path.len() > members.len() + 1 {
                     break;
@@ -879,7 +1165,10 @@ impl<'a> Resolver<'a> {
             }
             let names: Vec<String> = path.iter().map(|&i| decls[i].local.clone()).collect();
             let d = &decls[start];
-            let pos = self.val_pos(d.recipe, &[k("steps"), Seg::Key(d.local.clone()), k("from")]);
+            let pos = self.val_pos(
+                d.recipe,
+                &[k("steps"), Seg::Key(d.local.clone()), k("from")],
+            );
             self.err(d.recipe, Problem::Cycle { path: names }, pos);
         }
         let mut indeg = vec![0usize; decls.len()];
@@ -892,7 +1181,10 @@ impl<'a> Resolver<'a> {
                 }
             }
         }
-        let mut heap: BinaryHeap<std::cmp::Reverse<usize>> = (0..decls.len()).filter(|&i| indeg[i] == 0).map(std::cmp::Reverse).collect();
+        let mut heap: BinaryHeap<std::cmp::Reverse<usize>> = (0..decls.len())
+            .filter(|&i| indeg[i] == 0)
+            .map(std::cmp::Reverse)
+            .collect();
         let mut order = Vec::new();
         while let Some(std::cmp::Reverse(i)) = heap.pop() {
             order.push(i);
@@ -907,7 +1199,13 @@ impl<'a> Resolver<'a> {
         order
     }
 
-    fn domain(&mut self, decl: &Decl, ports: &[PortPlan], steps: &[PlanStep], sets: &[SampleSet]) -> Option<Vec<String>> {
+    fn domain(
+        &mut self,
+        decl: &Decl,
+        ports: &[PortPlan],
+        steps: &[PlanStep],
+        sets: &[SampleSet],
+    ) -> Option<Vec<String>> {
         let dom = |s: &Src| -> Option<Vec<String>> {
             match s {
                 Src::Set(i) => Some(sets[*i].files.iter().map(|f| f.item.clone()).collect()),
@@ -923,22 +1221,53 @@ impl<'a> Resolver<'a> {
             }
         }
         let first = domains.first()?.clone();
-        let inter: Vec<String> = first.iter().filter(|i| domains.iter().all(|d| d.contains(i))).cloned().collect();
+        let inter: Vec<String> = first
+            .iter()
+            .filter(|i| domains.iter().all(|d| d.contains(i)))
+            .cloned()
+            .collect();
         let union: BTreeSet<&String> = domains.iter().flatten().collect();
         if union.len() != inter.len() {
-            let dropped: Vec<String> = union.into_iter().filter(|i| !inter.contains(i)).cloned().collect();
-            let pos = self.val_pos(decl.recipe, &[k("steps"), Seg::Key(decl.local.clone()), k("from")]);
-            self.warn(decl.recipe, Problem::ItemsDropped { step: decl.id.clone(), items: dropped }, pos);
+            let dropped: Vec<String> = union
+                .into_iter()
+                .filter(|i| !inter.contains(i))
+                .cloned()
+                .collect();
+            let pos = self.val_pos(
+                decl.recipe,
+                &[k("steps"), Seg::Key(decl.local.clone()), k("from")],
+            );
+            self.warn(
+                decl.recipe,
+                Problem::ItemsDropped {
+                    step: decl.id.clone(),
+                    items: dropped,
+                },
+                pos,
+            );
         }
         Some(inter)
     }
 
-    fn sample_set(&mut self, r: usize, name: &str, spec: &Y, env: &BTreeMap<String, Param>) -> Option<Vec<SampleFile>> {
+    fn sample_set(
+        &mut self,
+        r: usize,
+        name: &str,
+        spec: &Y,
+        env: &BTreeMap<String, Param>,
+    ) -> Option<Vec<SampleFile>> {
         let l = &self.loaded[r];
         let path = vec![k("samples"), Seg::key(name)];
         if !valid_id(name) {
             let pos = self.key_pos(r, &path);
-            self.err(r, Problem::BadId { what: "sample set name", id: name.to_string() }, pos);
+            self.err(
+                r,
+                Problem::BadId {
+                    what: "sample set name",
+                    id: name.to_string(),
+                },
+                pos,
+            );
         }
         let (glob_y, gpath, regex) = match spec {
             Y::String(_) => (spec.clone(), path.clone(), None),
@@ -950,16 +1279,13 @@ impl<'a> Resolver<'a> {
                         (Some("files"), v) => files = Some(v.clone()),
                         (Some("item"), Y::String(s)) => item = Some(s.clone()),
                         _ => {
-                            let pos = self.val_pos(r, &path);
-                            let message = "a sample set is a file pattern, or { files: pattern, item: regex }".to_string();
-                            self.err(r, Problem::BadSampleSet { set: name.into(), message }, pos);
+                            self.bad_set(r, name, &path, SET_SHAPE);
                             return None;
                         }
                     }
                 }
                 let Some(files) = files else {
-                    let pos = self.val_pos(r, &path);
-                    self.err(r, Problem::BadSampleSet { set: name.into(), message: "`files: pattern` is missing".into() }, pos);
+                    self.bad_set(r, name, &path, "`files: pattern` is missing");
                     return None;
                 };
                 let mut gp = path.clone();
@@ -967,17 +1293,14 @@ impl<'a> Resolver<'a> {
                 (files, gp, item)
             }
             _ => {
-                let pos = self.val_pos(r, &path);
-                let message = "a sample set is a file pattern, or { files: pattern, item: regex }".to_string();
-                self.err(r, Problem::BadSampleSet { set: name.into(), message }, pos);
+                self.bad_set(r, name, &path, SET_SHAPE);
                 return None;
             }
         };
         let pattern = match self.substitute(r, &gpath, &glob_y, env)? {
             J::String(s) => s,
             _ => {
-                let pos = self.val_pos(r, &gpath);
-                self.err(r, Problem::BadSampleSet { set: name.into(), message: "the file pattern must be text".into() }, pos);
+                self.bad_set(r, name, &gpath, "the file pattern must be text");
                 return None;
             }
         };
@@ -992,16 +1315,36 @@ impl<'a> Resolver<'a> {
                 let mut ip = path.clone();
                 ip.push(k("item"));
                 let pos = self.val_pos(r, &ip);
-                self.err(r, Problem::BadItemRegex { set: name.into(), regex: regex.unwrap_or_default(), message: e.to_string() }, pos);
+                self.err(
+                    r,
+                    Problem::BadItemRegex {
+                        set: name.into(),
+                        regex: regex.unwrap_or_default(),
+                        message: e.to_string(),
+                    },
+                    pos,
+                );
                 return None;
             }
             None => None,
         };
-        let full = format!("{}/{}", glob::Pattern::escape(&l.dir.to_string_lossy()), pattern);
+        let full = format!(
+            "{}/{}",
+            glob::Pattern::escape(&l.dir.to_string_lossy()),
+            pattern
+        );
         let paths = match glob::glob(&full) {
             Ok(p) => p,
             Err(e) => {
-                self.err(r, Problem::BadGlob { set: name.into(), glob: pattern, message: e.msg.to_string() }, gpos);
+                self.err(
+                    r,
+                    Problem::BadGlob {
+                        set: name.into(),
+                        glob: pattern,
+                        message: e.msg.to_string(),
+                    },
+                    gpos,
+                );
                 return None;
             }
         };
@@ -1017,11 +1360,20 @@ impl<'a> Resolver<'a> {
             };
             let shown = self.policy.shown(&canonical);
             if !self.policy.permits(&canonical) {
-                self.err(r, Problem::OutsideTree { path: p.display().to_string() }, gpos);
+                self.err(
+                    r,
+                    Problem::OutsideTree {
+                        path: p.display().to_string(),
+                    },
+                    gpos,
+                );
                 ok = false;
                 continue;
             }
-            let file_name = p.file_name().map(|f| f.to_string_lossy().to_string()).unwrap_or_default();
+            let file_name = p
+                .file_name()
+                .map(|f| f.to_string_lossy().to_string())
+                .unwrap_or_default();
             let item = match &re {
                 Some(re) => match re.captures(&file_name).and_then(|c| c.get(1).or(c.get(0))) {
                     Some(m) if !m.as_str().is_empty() => m.as_str().to_string(),
@@ -1029,26 +1381,52 @@ impl<'a> Resolver<'a> {
                         let mut ip = path.clone();
                         ip.push(k("item"));
                         let pos = self.val_pos(r, &ip);
-                        self.err(r, Problem::NoItemName { set: name.into(), file: shown, regex: re.as_str().into() }, pos);
+                        self.err(
+                            r,
+                            Problem::NoItemName {
+                                set: name.into(),
+                                file: shown,
+                                regex: re.as_str().into(),
+                            },
+                            pos,
+                        );
                         ok = false;
                         continue;
                     }
                 },
-                None => p.file_stem().map(|f| f.to_string_lossy().to_string()).unwrap_or_default(),
+                None => p
+                    .file_stem()
+                    .map(|f| f.to_string_lossy().to_string())
+                    .unwrap_or_default(),
             };
             if let Some(prev) = files.iter().find(|f| f.item == item) {
-                let problem = Problem::DuplicateItem { set: name.into(), item: item.clone(), first: prev.shown.clone(), second: shown.clone() };
+                let problem = Problem::DuplicateItem {
+                    set: name.into(),
+                    item: item.clone(),
+                    first: prev.shown.clone(),
+                    second: shown.clone(),
+                };
                 self.err(r, problem, gpos);
                 ok = false;
                 continue;
             }
-            files.push(SampleFile { item, path: canonical, shown });
+            files.push(SampleFile {
+                item,
+                path: canonical,
+                shown,
+            });
         }
         if files.is_empty() && ok {
             let problem = if pattern.contains(['*', '?', '[']) {
-                Problem::EmptyGlob { set: name.into(), glob: pattern }
+                Problem::EmptyGlob {
+                    set: name.into(),
+                    glob: pattern,
+                }
             } else {
-                Problem::MissingFile { set: name.into(), path: pattern }
+                Problem::MissingFile {
+                    set: name.into(),
+                    path: pattern,
+                }
             };
             self.err(r, problem, gpos);
             return None;
@@ -1057,22 +1435,43 @@ impl<'a> Resolver<'a> {
         ok.then_some(files)
     }
 
-    fn checks(&mut self, steps: &[PlanStep], new_index: &[usize], by_id: &HashMap<String, usize>) -> Vec<PlanCheck> {
+    fn checks(
+        &mut self,
+        steps: &[PlanStep],
+        new_index: &[usize],
+        by_id: &HashMap<String, usize>,
+    ) -> Vec<PlanCheck> {
         let mut out = Vec::new();
         for (r, l) in self.loaded.iter().enumerate() {
             for (ci, c) in l.raw.checks.iter().enumerate() {
                 let path = [k("checks"), Seg::Index(ci)];
                 let rpos = self.val_pos(r, &[k("checks"), Seg::Index(ci), k("result")]);
                 let Some((step_name, name)) = c.result.split_once('.') else {
-                    self.err(r, Problem::BadCheck { message: format!("`result` is `step.result_name`, got `{}`", c.result) }, rpos);
+                    self.err(
+                        r,
+                        Problem::BadCheck {
+                            message: format!("`result` is `step.result_name`, got `{}`", c.result),
+                        },
+                        rpos,
+                    );
                     continue;
                 };
                 let local = format!("{}{step_name}", l.namespace);
                 let Some(&d) = by_id.get(&local).or_else(|| by_id.get(step_name)) else {
                     let ns = &l.namespace;
-                    let cands: Vec<&str> = by_id.keys().filter_map(|k| k.strip_prefix(ns.as_str())).collect();
+                    let cands: Vec<&str> = by_id
+                        .keys()
+                        .filter_map(|k| k.strip_prefix(ns.as_str()))
+                        .collect();
                     let suggestion = did_you_mean(step_name, cands);
-                    self.err(r, Problem::UnknownCheckStep { step: step_name.into(), suggestion }, rpos);
+                    self.err(
+                        r,
+                        Problem::UnknownCheckStep {
+                            step: step_name.into(),
+                            suggestion,
+                        },
+                        rpos,
+                    );
                     continue;
                 };
                 let si = new_index.get(d).copied().unwrap_or(usize::MAX);
@@ -1081,17 +1480,36 @@ impl<'a> Resolver<'a> {
                     if !domain.contains(item) {
                         let ipos = self.val_pos(r, &[k("checks"), Seg::Index(ci), k("item")]);
                         let suggestion = did_you_mean(item, domain.iter().map(String::as_str));
-                        self.err(r, Problem::UnknownCheckItem { step: step.id.clone(), item: item.clone(), suggestion }, ipos);
+                        self.err(
+                            r,
+                            Problem::UnknownCheckItem {
+                                step: step.id.clone(),
+                                item: item.clone(),
+                                suggestion,
+                            },
+                            ipos,
+                        );
                         continue;
                     }
                 }
                 if c.item.is_none() && step.domain.is_some() {
                     let pos = self.val_pos(r, &path);
-                    self.err(r, Problem::BadCheck { message: format!("step `{}` runs once per item: name the `item` to check", step.id) }, pos);
+                    self.err(
+                        r,
+                        Problem::BadCheck {
+                            message: format!(
+                                "step `{}` runs once per item: name the `item` to check",
+                                step.id
+                            ),
+                        },
+                        pos,
+                    );
                     continue;
                 }
                 let expect = match (c.expect, c.tolerance, c.within) {
-                    (Some(value), Some(tolerance), None) if tolerance >= 0.0 => Expect::Near { value, tolerance },
+                    (Some(value), Some(tolerance), None) if tolerance >= 0.0 => {
+                        Expect::Near { value, tolerance }
+                    }
                     (None, None, Some([low, high])) if low <= high => Expect::Within { low, high },
                     _ => {
                         let pos = self.val_pos(r, &path);
@@ -1100,12 +1518,25 @@ impl<'a> Resolver<'a> {
                         continue;
                     }
                 };
-                out.push(PlanCheck { recipe: r, result: c.result.clone(), step: si, name: name.to_string(), item: c.item.clone(), expect });
+                out.push(PlanCheck {
+                    recipe: r,
+                    result: c.result.clone(),
+                    step: si,
+                    name: name.to_string(),
+                    item: c.item.clone(),
+                    expect,
+                });
             }
         }
         out
     }
 }
+
+/// What a sample set may look like, for its errors.
+const SET_SHAPE: &str = "a sample set is a file pattern, or { files: pattern, item: regex }";
+
+/// Names given to one port, each with its path in the recipe.
+type Named = Vec<(String, Vec<Seg>)>;
 
 fn port_sources(p: &PortPlan) -> Vec<Src> {
     match p {
@@ -1117,7 +1548,9 @@ fn port_sources(p: &PortPlan) -> Vec<Src> {
 
 /// Step ids, set and parameter names: letters, digits, `_`, `-`.
 fn valid_id(s: &str) -> bool {
-    !s.is_empty() && s.chars().all(|c| c.is_ascii_alphanumeric() || c == '_' || c == '-')
+    !s.is_empty()
+        && s.chars()
+            .all(|c| c.is_ascii_alphanumeric() || c == '_' || c == '-')
 }
 
 /// `peaks.cc.fwhm[0]` as path segments.

@@ -7,7 +7,7 @@
 //! The PROV-JSON top level allows only PROV record types, so the format version is
 //! the agent's `retort:schema_version` attribute.
 
-use crate::graph::{Graph, Ref, NodeInput};
+use crate::graph::{Graph, NodeInput, Ref};
 use crate::plan::Plan;
 use crate::record::NodeStatus;
 use crate::scheduler::Outcome;
@@ -44,7 +44,10 @@ pub fn document(plan: &Plan, graph: &Graph, outcomes: &[Outcome], host: &str) ->
             NodeStatus::Skipped { because } => ("skipped", Some(because.clone())),
         };
         let mut act = Map::new();
-        act.insert("prov:label".into(), json!(crate::scheduler::node_label(plan, graph, i)));
+        act.insert(
+            "prov:label".into(),
+            json!(crate::scheduler::node_label(plan, graph, i)),
+        );
         act.insert("retort:stage".into(), json!(info.name));
         act.insert("retort:stage_version".into(), json!(info.version));
         act.insert("retort:options".into(), json!(step.options.to_string()));
@@ -59,7 +62,10 @@ pub fn document(plan: &Plan, graph: &Graph, outcomes: &[Outcome], host: &str) ->
             act.insert("retort:engine_version".into(), json!(m.engine_version));
         }
         activity.insert(run.clone(), Value::Object(act));
-        associated.insert(format!("_:assoc/{}", node.key), json!({ "prov:activity": run, "prov:agent": "retort:engine" }));
+        associated.insert(
+            format!("_:assoc/{}", node.key),
+            json!({ "prov:activity": run, "prov:agent": "retort:engine" }),
+        );
         let mut n = 0;
         for inp in &node.inputs {
             let refs: Vec<Ref> = match inp {
@@ -72,7 +78,10 @@ pub fn document(plan: &Plan, graph: &Graph, outcomes: &[Outcome], host: &str) ->
                     Ref::File(f) => format!("retort:file/{}", graph.files[f].hash),
                     Ref::Node(u) => format!("retort:artifact/{}", graph.nodes[u].key),
                 };
-                used.insert(format!("_:used/{}/{n}", node.key), json!({ "prov:activity": run, "prov:entity": ent }));
+                used.insert(
+                    format!("_:used/{}/{n}", node.key),
+                    json!({ "prov:activity": run, "prov:entity": ent }),
+                );
                 n += 1;
             }
         }
@@ -82,7 +91,10 @@ pub fn document(plan: &Plan, graph: &Graph, outcomes: &[Outcome], host: &str) ->
                 e["retort:item"] = json!(item);
             }
             entity.insert(art.clone(), e);
-            generated.insert(format!("_:gen/{}", node.key), json!({ "prov:entity": art, "prov:activity": run }));
+            generated.insert(
+                format!("_:gen/{}", node.key),
+                json!({ "prov:entity": art, "prov:activity": run }),
+            );
         }
     }
     json!({

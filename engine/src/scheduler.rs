@@ -36,7 +36,15 @@ pub struct Outcome {
 
 impl Outcome {
     fn pending() -> Self {
-        Outcome { status: NodeStatus::Skipped { because: "not reached".into() }, meta: None, results: Vec::new(), notes: Vec::new(), corrupt: None }
+        Outcome {
+            status: NodeStatus::Skipped {
+                because: "not reached".into(),
+            },
+            meta: None,
+            results: Vec::new(),
+            notes: Vec::new(),
+            corrupt: None,
+        }
     }
 }
 
@@ -52,8 +60,16 @@ pub trait Progress: Sync {
 }
 
 enum Done {
-    Ok { artifact: Arc<Artifact>, meta: Meta, cached: bool, corrupt: Option<String> },
-    Failed { error: String, corrupt: Option<String> },
+    Ok {
+        artifact: Arc<Artifact>,
+        meta: Meta,
+        cached: bool,
+        corrupt: Option<String>,
+    },
+    Failed {
+        error: String,
+        corrupt: Option<String>,
+    },
 }
 
 pub fn node_label(plan: &Plan, graph: &Graph, n: usize) -> String {
@@ -65,9 +81,17 @@ pub fn node_label(plan: &Plan, graph: &Graph, n: usize) -> String {
 }
 
 /// Runs every node; returns one outcome per node (duplicates copy their original's).
-pub fn run(plan: &Plan, graph: &Graph, cache: &Cache, opts: &RunOptions, progress: &dyn Progress) -> Result<Vec<Outcome>, String> {
+pub fn run(
+    plan: &Plan,
+    graph: &Graph,
+    cache: &Cache,
+    opts: &RunOptions,
+    progress: &dyn Progress,
+) -> Result<Vec<Outcome>, String> {
     let n = graph.nodes.len();
-    let canonical: Vec<usize> = (0..n).filter(|&i| graph.nodes[i].same_as.is_none()).collect();
+    let canonical: Vec<usize> = (0..n)
+        .filter(|&i| graph.nodes[i].same_as.is_none())
+        .collect();
     let mut waiting: Vec<usize> = vec![0; n];
     let mut dependents: Vec<Vec<usize>> = vec![Vec::new(); n];
     for &i in &canonical {
@@ -80,10 +104,19 @@ pub fn run(plan: &Plan, graph: &Graph, cache: &Cache, opts: &RunOptions, progres
     let mut outcomes: Vec<Outcome> = (0..n).map(|_| Outcome::pending()).collect();
     let mut memory: HashMap<usize, Arc<Artifact>> = HashMap::new();
     // Ready nodes, later steps first, then by index.
-    let mut ready: BTreeSet<(std::cmp::Reverse<usize>, usize)> = canonical.iter().filter(|&&i| waiting[i] == 0).map(|&i| (std::cmp::Reverse(graph.nodes[i].step), i)).collect();
-    let pool = rayon::ThreadPoolBuilder::new().num_threads(opts.jobs.max(1)).build().map_err(|e| format!("cannot start worker threads: {e}"))?;
+    let mut ready: BTreeSet<(std::cmp::Reverse<usize>, usize)> = canonical
+        .iter()
+        .filter(|&&i| waiting[i] == 0)
+        .map(|&i| (std::cmp::Reverse(graph.nodes[i].step), i))
+        .collect();
+    let pool = rayon::ThreadPoolBuilder::new()
+        .num_threads(opts.jobs.max(1))
+        .build()
+        .map_err(|e| format!("cannot start worker threads: {e}"))?;
     let (tx, rx) = mpsc::channel::<(usize, Done, f64)>();
-    let limit = opts.jobs.max(1) + 1;
+    // Enough nodes in flight to hide the hand-off latency, few enough that their
+    // inputs stay a small part of memory.
+    let limit = opts.jobs.max(1) * 16;
     let mut in_flight = 0usize;
     let mut stopped = false;
     let mut remaining = canonical.len();
@@ -109,7 +142,12 @@ pub fn run(plan: &Plan, graph: &Graph, cache: &Cache, opts: &RunOptions, progres
             if in_flight == 0 {
                 break;
             }
-            let Ok((i, done, ms)) = rx.recv() else { break };
+            let _ = cache.flush_due();
+            let (i, done, ms) = match rx.recv_timeout(crate::cache::SEGMENT_AGE) {
+                Ok(m) => m,
+                Err(mpsc::RecvTimeoutError::Timeout) => continue,
+                Err(mpsc::RecvTimeoutError::Disconnected) => break,
+            };
             in_flight -= 1;
             remaining -= 1;
             let label = node_label(plan, graph, i);
@@ -161,7 +199,9 @@ pub fn run(plan: &Plan, graph: &Graph, cache: &Cache, opts: &RunOptions, progres
     });
     for o in outcomes.iter_mut() {
         if matches!(&o.status, NodeStatus::Skipped { because } if because == "not reached") {
-            o.status = NodeStatus::Skipped { because: "stopped after the first failure (--fail-fast)".into() };
+            o.status = NodeStatus::Skipped {
+                because: "stopped after the first failure (--fail-fast)".into(),
+            };
         }
     }
     for i in 0..n {
@@ -173,7 +213,14 @@ pub fn run(plan: &Plan, graph: &Graph, cache: &Cache, opts: &RunOptions, progres
 }
 
 /// Loads or runs one node on a worker thread.
-fn work(plan: &Plan, graph: &Graph, cache: &Cache, opts: &RunOptions, i: usize, mut held: HashMap<usize, Option<Arc<Artifact>>>) -> Done {
+fn work(
+    plan: &Plan,
+    graph: &Graph,
+    cache: &Cache,
+    opts: &RunOptions,
+    i: usize,
+    mut held: HashMap<usize, Option<Arc<Artifact>>>,
+) -> Done {
     let node = &graph.nodes[i];
     let step = &plan.steps[node.step];
     let info = step.stage.info();
@@ -181,7 +228,12 @@ fn work(plan: &Plan, graph: &Graph, cache: &Cache, opts: &RunOptions, i: usize, 
     match cache.load(&node.key) {
         Lookup::Found(b) => {
             let (meta, artifact) = *b;
-            return Done::Ok { artifact: Arc::new(artifact), meta, cached: true, corrupt: None };
+            return Done::Ok {
+                artifact: Arc::new(artifact),
+                meta,
+                cached: true,
+                corrupt: None,
+            };
         }
         Lookup::Corrupt(reason) => corrupt = Some(reason),
         Lookup::Missing => {}
@@ -192,7 +244,15 @@ fn work(plan: &Plan, graph: &Graph, cache: &Cache, opts: &RunOptions, i: usize, 
         if slot.is_none() {
             match cache.load(&graph.nodes[*u].key) {
                 Lookup::Found(b) => *slot = Some(Arc::new(b.1)),
-                _ => return fail(format!("the artifact of {} is no longer in the cache", node_label(plan, graph, *u)), corrupt),
+                _ => {
+                    return fail(
+                        format!(
+                            "the artifact of {} is no longer in the cache",
+                            node_label(plan, graph, *u)
+                        ),
+                        corrupt,
+                    )
+                }
             }
         }
     }
@@ -204,14 +264,28 @@ fn work(plan: &Plan, graph: &Graph, cache: &Cache, opts: &RunOptions, i: usize, 
             Err(e) => return fail(format!("cannot read {}: {e}", entry.shown), corrupt),
         };
         if blake3::hash(&bytes).to_hex().as_str() != entry.hash {
-            return fail(format!("{} changed while the run was being planned; run again", entry.shown), corrupt);
+            return fail(
+                format!(
+                    "{} changed while the run was being planned; run again",
+                    entry.shown
+                ),
+                corrupt,
+            );
         }
-        files.insert(f, Artifact::new(Value::File(InputFile { name: entry.shown.clone(), bytes })));
+        files.insert(
+            f,
+            Artifact::new(Value::File(InputFile {
+                name: entry.shown.clone(),
+                bytes,
+            })),
+        );
     }
     let get = |r: Ref| -> Option<&Artifact> {
         match r {
             Ref::File(f) => files.get(&f),
-            Ref::Node(n) => held.get(&graph.nodes[n].same_as.unwrap_or(n)).and_then(|a| a.as_deref()),
+            Ref::Node(n) => held
+                .get(&graph.nodes[n].same_as.unwrap_or(n))
+                .and_then(|a| a.as_deref()),
         }
     };
     let mut ports = Vec::new();
@@ -234,25 +308,55 @@ fn work(plan: &Plan, graph: &Graph, cache: &Cache, opts: &RunOptions, i: usize, 
             }
         });
     }
-    let inputs = Inputs { item: node.item.as_deref(), ports };
+    let inputs = Inputs {
+        item: node.item.as_deref(),
+        ports,
+    };
     let started = timefmt::now_rfc3339();
     let t0 = Instant::now();
-    let result = std::panic::catch_unwind(std::panic::AssertUnwindSafe(|| step.stage.run(&inputs, &step.options)));
+    let result = std::panic::catch_unwind(std::panic::AssertUnwindSafe(|| {
+        step.stage.run(&inputs, &step.options)
+    }));
     let duration_ms = t0.elapsed().as_secs_f64() * 1000.0;
     let artifact = match result {
         Ok(Ok(a)) => a,
         Ok(Err(e)) => return fail(e.to_string(), corrupt),
         Err(p) => {
-            let msg = p.downcast_ref::<&str>().map(|s| s.to_string()).or_else(|| p.downcast_ref::<String>().cloned()).unwrap_or_default();
+            let msg = p
+                .downcast_ref::<&str>()
+                .map(|s| s.to_string())
+                .or_else(|| p.downcast_ref::<String>().cloned())
+                .unwrap_or_default();
             return fail(format!("stage {} panicked: {msg}", info.name), corrupt);
         }
     };
-    if let Some(r) = artifact.results.iter().find(|r| r.as_number().is_some_and(|v| !v.is_finite()) || r.uncertainty.is_some_and(|u| !u.is_finite())) {
-        return fail(format!("stage {} published a non-finite value for `{}`", info.name, r.name), corrupt);
+    if let Some(r) = artifact.results.iter().find(|r| {
+        r.as_number().is_some_and(|v| !v.is_finite())
+            || r.uncertainty.is_some_and(|u| !u.is_finite())
+    }) {
+        return fail(
+            format!(
+                "stage {} published a non-finite value for `{}`",
+                info.name, r.name
+            ),
+            corrupt,
+        );
     }
-    let meta = Meta { stage: info.name.to_string(), stage_version: info.version, engine_version: crate::VERSION.to_string(), started, duration_ms, host: opts.host.clone() };
+    let meta = Meta {
+        stage: info.name.to_string(),
+        stage_version: info.version,
+        engine_version: crate::VERSION.to_string(),
+        started,
+        duration_ms,
+        host: opts.host.clone(),
+    };
     if let Err(e) = cache.store(&node.key, &meta, &artifact) {
         return fail(format!("cannot write the cache: {e}"), corrupt);
     }
-    Done::Ok { artifact: Arc::new(artifact), meta, cached: false, corrupt }
+    Done::Ok {
+        artifact: Arc::new(artifact),
+        meta,
+        cached: false,
+        corrupt,
+    }
 }

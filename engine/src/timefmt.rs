@@ -12,7 +12,13 @@ pub fn format_rfc3339(t: SystemTime) -> String {
     let secs = d.as_secs() as i64;
     let (days, rem) = (secs.div_euclid(86_400), secs.rem_euclid(86_400));
     let (y, m, dd) = civil_from_days(days);
-    format!("{y:04}-{m:02}-{dd:02}T{:02}:{:02}:{:02}.{:03}Z", rem / 3600, rem % 3600 / 60, rem % 60, d.subsec_millis())
+    format!(
+        "{y:04}-{m:02}-{dd:02}T{:02}:{:02}:{:02}.{:03}Z",
+        rem / 3600,
+        rem % 3600 / 60,
+        rem % 60,
+        d.subsec_millis()
+    )
 }
 
 /// Days since 1970-01-01 to (year, month, day); H. Hinnant's `civil_from_days`
@@ -38,8 +44,14 @@ mod tests {
     #[test]
     fn known_instants() {
         // 2000-03-01 is day 11017 after the epoch (2000 is a leap year).
-        assert_eq!(format_rfc3339(UNIX_EPOCH + Duration::from_secs(11_017 * 86_400)), "2000-03-01T00:00:00.000Z");
+        assert_eq!(
+            format_rfc3339(UNIX_EPOCH + Duration::from_secs(11_017 * 86_400)),
+            "2000-03-01T00:00:00.000Z"
+        );
         // 1_000_000_000 s after the epoch is 2001-09-09T01:46:40Z (a widely quoted instant).
-        assert_eq!(format_rfc3339(UNIX_EPOCH + Duration::from_secs(1_000_000_000)), "2001-09-09T01:46:40.000Z");
+        assert_eq!(
+            format_rfc3339(UNIX_EPOCH + Duration::from_secs(1_000_000_000)),
+            "2001-09-09T01:46:40.000Z"
+        );
     }
 }

@@ -24,20 +24,34 @@ fn bad_recipes_give_the_expected_diagnostics_and_write_nothing() {
         let recipe = format!("{name}.yaml");
         let r = run(t.path(), &["check", &recipe]);
         assert_eq!(r.code, 2, "{name}: check must exit 2");
-        assert!(r.stderr.contains(&format!("{recipe}:")), "{name}: no file:line:column");
+        assert!(
+            r.stderr.contains(&format!("{recipe}:")),
+            "{name}: no file:line:column"
+        );
         let expected_path = dir.join(format!("{name}.expected"));
         if bless {
             std::fs::write(&expected_path, &r.stderr).unwrap();
         } else {
-            let expected = std::fs::read_to_string(&expected_path).unwrap_or_else(|_| panic!("{name}: missing {name}.expected (bless with RETORT_BLESS=1)"));
+            let expected = std::fs::read_to_string(&expected_path).unwrap_or_else(|_| {
+                panic!("{name}: missing {name}.expected (bless with RETORT_BLESS=1)")
+            });
             if expected != r.stderr {
-                mismatches.push(format!("== {name}\n-- expected\n{expected}-- got\n{}", r.stderr));
+                mismatches.push(format!(
+                    "== {name}\n-- expected\n{expected}-- got\n{}",
+                    r.stderr
+                ));
             }
         }
         let r = run(t.path(), &["run", &recipe]);
         assert_eq!(r.code, 2, "{name}: run must exit 2");
-        assert!(!t.path().join("out").exists(), "{name}: an output folder was written");
-        assert!(!t.path().join(".retort").exists(), "{name}: a cache was written");
+        assert!(
+            !t.path().join("out").exists(),
+            "{name}: an output folder was written"
+        );
+        assert!(
+            !t.path().join(".retort").exists(),
+            "{name}: a cache was written"
+        );
     }
     assert!(mismatches.is_empty(), "{}", mismatches.join("\n"));
 }
@@ -47,11 +61,17 @@ fn a_first_line_shaped_error_points_at_line_and_column() {
     // Each of the issue's named failures: cycle, unknown stage (with a hint), bad
     // option type, missing file, empty glob.
     for (name, needle) in [
-        ("cycle", "cycle.yaml:5:44: error: steps form a cycle: a -> b -> c -> a"),
+        (
+            "cycle",
+            "cycle.yaml:5:44: error: steps form a cycle: a -> b -> c -> a",
+        ),
         ("unknown_stage", "did you mean `smooth.moving_average`?"),
         ("bad_option_type", "bad_option_type.yaml:10:15: error:"),
         ("missing_file", "missing_file.yaml:3:14: error:"),
-        ("empty_glob", "empty_glob.yaml:3:12: error: sample set `spectra`: no files match `data/*.jdx`"),
+        (
+            "empty_glob",
+            "empty_glob.yaml:3:12: error: sample set `spectra`: no files match `data/*.jdx`",
+        ),
     ] {
         let t = fixture("bad");
         let r = run(t.path(), &["run", &format!("{name}.yaml")]);
@@ -65,7 +85,9 @@ fn set_values_are_type_checked_against_the_parameter() {
     let t = fixture("basic");
     let r = run(t.path(), &["check", "recipe.yaml", "--set", "window=wide"]);
     assert_eq!(r.code, 2);
-    assert!(r.stderr.contains("command line: error: --set window=wide: parameter `window` is an integer"));
+    assert!(r
+        .stderr
+        .contains("command line: error: --set window=wide: parameter `window` is an integer"));
     let r = run(t.path(), &["check", "recipe.yaml", "--set", "widow=7"]);
     assert_eq!(r.code, 2);
     assert!(r.stderr.contains("did you mean `window`?"));

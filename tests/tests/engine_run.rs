@@ -16,10 +16,16 @@ fn a_run_writes_every_output_and_a_second_run_is_all_cached_and_identical() {
     let r = run(t.path(), &["run", "recipe.yaml"]);
     assert_eq!(r.code, 0);
     let out = t.path().join("out");
-    for f in ["results.json", "tables/results.csv", "provenance.json", "run.json", "report.md"] {
+    for f in [
+        "results.json",
+        "tables/results.csv",
+        "provenance.json",
+        "run.json",
+        "report.md",
+    ] {
         assert!(out.join(f).is_file(), "{f} missing");
     }
-    assert!(t.path().join(".retort/objects").is_dir());
+    assert!(t.path().join(".retort/segments").is_dir());
     // 3 files x (raw, smooth, peak) + 1 table.
     assert_eq!(counts(&out), (10, 0, 0, 0));
     let first = results(&out);
@@ -29,7 +35,15 @@ fn a_run_writes_every_output_and_a_second_run_is_all_cached_and_identical() {
     let recs = v["results"].as_array().unwrap();
     assert!(!recs.is_empty());
     for r in recs {
-        for k in ["step", "item", "name", "value", "uncertainty", "unit", "node"] {
+        for k in [
+            "step",
+            "item",
+            "name",
+            "value",
+            "uncertainty",
+            "unit",
+            "node",
+        ] {
             assert!(r.get(k).is_some(), "record lacks {k}: {r}");
         }
     }
@@ -38,11 +52,22 @@ fn a_run_writes_every_output_and_a_second_run_is_all_cached_and_identical() {
     let prov = read_json(&out.join("provenance.json"));
     for r in recs {
         let key = r["node"].as_str().unwrap();
-        assert!(rec["nodes"].as_array().unwrap().iter().any(|n| n["key"] == key));
+        assert!(rec["nodes"]
+            .as_array()
+            .unwrap()
+            .iter()
+            .any(|n| n["key"] == key));
         assert!(prov["activity"].get(format!("retort:run/{key}")).is_some());
     }
-    assert_eq!(prov["agent"]["retort:engine"]["prov:type"], "prov:SoftwareAgent");
-    assert!(prov["entity"].as_object().unwrap().keys().any(|k| k.starts_with("retort:file/")));
+    assert_eq!(
+        prov["agent"]["retort:engine"]["prov:type"],
+        "prov:SoftwareAgent"
+    );
+    assert!(prov["entity"]
+        .as_object()
+        .unwrap()
+        .keys()
+        .any(|k| k.starts_with("retort:file/")));
     assert!(prov["used"].as_object().unwrap().len() >= 10);
     // The check in the recipe passed (film_a's maximum near 2.0 eV, by construction).
     assert_eq!(rec["checks"][0]["passed"], true);
@@ -63,18 +88,28 @@ fn changing_one_option_reruns_only_the_nodes_downstream_of_it() {
     assert_eq!(run(t.path(), &["run", "recipe.yaml"]).code, 0);
     let recipe = t.path().join("recipe.yaml");
     let text = std::fs::read_to_string(&recipe).unwrap();
-    let text = text.replace("peak: { stage: measure.maximum, from: smooth }", "peak: { stage: measure.maximum, from: smooth, options: { range: [1.0, 4.5] } }");
+    let text = text.replace(
+        "peak: { stage: measure.maximum, from: smooth }",
+        "peak: { stage: measure.maximum, from: smooth, options: { range: [1.0, 4.5] } }",
+    );
     std::fs::write(&recipe, text).unwrap();
     let p = run(t.path(), &["plan", "recipe.yaml"]);
     assert_eq!(p.code, 0);
     assert!(p.stdout.contains("10 nodes, 4 to run, 6 cached"));
     assert!(p.stdout.contains("  cached   raw [film_a]\n"));
     assert!(p.stdout.contains("  cached   smooth [film_c]\n"));
-    assert!(p.stdout.contains("  run      peak [film_b]  (changed options)\n"));
-    assert!(p.stdout.contains("  run      table  (changed input: peak [film_a])\n"));
+    assert!(p
+        .stdout
+        .contains("  run      peak [film_b]  (changed options)\n"));
+    assert!(p
+        .stdout
+        .contains("  run      table  (changed input: peak [film_a])\n"));
     assert_eq!(run(t.path(), &["run", "recipe.yaml"]).code, 0);
     assert_eq!(counts(&t.path().join("out")), (4, 6, 0, 0));
-    assert_eq!(status(&t.path().join("out"), "smooth", Some("film_a")), "Cached");
+    assert_eq!(
+        status(&t.path().join("out"), "smooth", Some("film_a")),
+        "Cached"
+    );
 }
 
 #[test]
@@ -82,15 +117,20 @@ fn a_parameter_set_on_the_command_line_changes_its_steps_only() {
     let t = fixture("basic");
     assert_eq!(run(t.path(), &["run", "recipe.yaml"]).code, 0);
     let p = run(t.path(), &["plan", "recipe.yaml", "--set", "window=7"]);
-    assert!(p.stdout.contains("  run      smooth [film_a]  (changed options)\n"));
-    assert_eq!(run(t.path(), &["run", "recipe.yaml", "--set", "window=7"]).code, 0);
+    assert!(p
+        .stdout
+        .contains("  run      smooth [film_a]  (changed options)\n"));
+    assert_eq!(
+        run(t.path(), &["run", "recipe.yaml", "--set", "window=7"]).code,
+        0
+    );
     let out = t.path().join("out");
     assert_eq!(counts(&out), (7, 3, 0, 0));
     let rec = read_json(&out.join("run.json"));
-    let w = rec["parameters"].as_array().unwrap().iter().find(|p| p["name"] == "window").unwrap().clone();
+    let w = find(&rec, "parameters", "name", "window").clone();
     assert_eq!(w["value"], 7);
     assert_eq!(w["overridden"], true);
-    let smooth = rec["steps"].as_array().unwrap().iter().find(|s| s["id"] == "smooth").unwrap().clone();
+    let smooth = find(&rec, "steps", "id", "smooth").clone();
     assert_eq!(smooth["options"]["window"], 7);
 }
 
@@ -101,7 +141,8 @@ fn changed_bytes_rerun_that_items_chain_and_a_touch_reruns_nothing() {
     let file = t.path().join("data/film_b.csv");
     // Touch: new mtime, same bytes.
     let f = std::fs::File::options().write(true).open(&file).unwrap();
-    f.set_modified(SystemTime::now() + Duration::from_secs(5)).unwrap();
+    f.set_modified(SystemTime::now() + Duration::from_secs(5))
+        .unwrap();
     drop(f);
     let p = run(t.path(), &["plan", "recipe.yaml"]);
     assert!(p.stdout.contains("10 nodes, 0 to run, 10 cached"));
@@ -112,7 +153,9 @@ fn changed_bytes_rerun_that_items_chain_and_a_touch_reruns_nothing() {
     std::fs::write(&file, text.replacen("0.5", "0.6", 1)).unwrap();
     let p = run(t.path(), &["plan", "recipe.yaml"]);
     assert!(p.stdout.contains("10 nodes, 4 to run, 6 cached"));
-    assert!(p.stdout.contains("  run      raw [film_b]  (changed input file data/film_b.csv)\n"));
+    assert!(p
+        .stdout
+        .contains("  run      raw [film_b]  (changed input file data/film_b.csv)\n"));
     assert!(p.stdout.contains("  cached   raw [film_a]\n"));
     assert_eq!(run(t.path(), &["run", "recipe.yaml"]).code, 0);
     let out = t.path().join("out");
@@ -124,50 +167,105 @@ fn changed_bytes_rerun_that_items_chain_and_a_touch_reruns_nothing() {
 #[test]
 fn one_and_two_jobs_give_byte_identical_results() {
     let t = fixture("basic");
-    assert_eq!(run(t.path(), &["run", "recipe.yaml", "--no-cache", "--jobs", "1", "--out", "one"]).code, 0);
-    assert_eq!(run(t.path(), &["run", "recipe.yaml", "--no-cache", "--jobs", "2", "--out", "two"]).code, 0);
+    for (jobs, out) in [("1", "one"), ("2", "two")] {
+        let args = [
+            "run",
+            "recipe.yaml",
+            "--no-cache",
+            "--jobs",
+            jobs,
+            "--out",
+            out,
+        ];
+        assert_eq!(run(t.path(), &args).code, 0);
+    }
     assert_eq!(counts(&t.path().join("two")), (10, 0, 0, 0));
-    assert_eq!(results(&t.path().join("one")), results(&t.path().join("two")));
-    assert_eq!(std::fs::read(t.path().join("one/tables/results.csv")).unwrap(), std::fs::read(t.path().join("two/tables/results.csv")).unwrap());
-    assert!(!t.path().join(".retort").exists(), "--no-cache must not write the recipe's cache");
+    assert_eq!(
+        results(&t.path().join("one")),
+        results(&t.path().join("two"))
+    );
+    assert_eq!(
+        std::fs::read(t.path().join("one/tables/results.csv")).unwrap(),
+        std::fs::read(t.path().join("two/tables/results.csv")).unwrap()
+    );
+    assert!(
+        !t.path().join(".retort").exists(),
+        "--no-cache must not write the recipe's cache"
+    );
 }
 
 #[test]
 fn a_failing_item_exits_1_and_its_siblings_results_are_present() {
     let t = fixture("basic");
-    std::fs::write(t.path().join("data/film_d.csv"), "energy_eV,absorbance\n1.0,0.5\nnot,a number\n").unwrap();
+    std::fs::write(
+        t.path().join("data/film_d.csv"),
+        "energy_eV,absorbance\n1.0,0.5\nnot,a number\n",
+    )
+    .unwrap();
     let r = run(t.path(), &["run", "recipe.yaml"]);
     assert_eq!(r.code, 1);
-    assert!(r.stderr.contains("FAILED   raw [film_d]: data/film_d.csv:3:"), "the failure names stage input, file and line");
+    assert!(
+        r.stderr
+            .contains("FAILED   raw [film_d]: data/film_d.csv:3:"),
+        "the failure names stage input, file and line"
+    );
     let out = t.path().join("out");
     // 4 raw (1 failed) + 3 smooth + 3 peak ran; film_d's smooth and peak and the table skipped.
     assert_eq!(counts(&out), (9, 0, 1, 3));
     let v = read_json(&out.join("results.json"));
     for item in ["film_a", "film_b", "film_c"] {
-        assert!(v["results"].as_array().unwrap().iter().any(|r| r["item"] == item && r["name"] == "max_position"));
+        assert!(v["results"]
+            .as_array()
+            .unwrap()
+            .iter()
+            .any(|r| r["item"] == item && r["name"] == "max_position"));
     }
     let failures = v["failures"].as_array().unwrap();
     let f = failures.iter().find(|f| f["step"] == "raw").unwrap();
     assert_eq!(f["item"], "film_d");
     assert_eq!(f["stage"], "import.delimited");
     assert_eq!(f["status"], "failed");
-    assert!(failures.iter().any(|f| f["step"] == "table" && f["status"] == "skipped"));
+    assert!(failures
+        .iter()
+        .any(|f| f["step"] == "table" && f["status"] == "skipped"));
     // --fail-fast stops scheduling after the first failure.
-    let r = run(t.path(), &["run", "recipe.yaml", "--no-cache", "--fail-fast", "--jobs", "1", "--out", "ff"]);
+    let r = run(
+        t.path(),
+        &[
+            "run",
+            "recipe.yaml",
+            "--no-cache",
+            "--fail-fast",
+            "--jobs",
+            "1",
+            "--out",
+            "ff",
+        ],
+    );
     assert_eq!(r.code, 1);
     let rec = read_json(&t.path().join("ff/run.json"));
-    assert!(rec["nodes"].as_array().unwrap().iter().any(|n| n["status"]["Skipped"]["because"].as_str().is_some_and(|b| b.contains("--fail-fast"))));
+    assert!(rec["nodes"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .any(|n| n["status"]["Skipped"]["because"]
+            .as_str()
+            .is_some_and(|b| b.contains("--fail-fast"))));
 }
 
 #[test]
 fn a_failed_check_exits_3() {
     let t = fixture("basic");
     let recipe = t.path().join("recipe.yaml");
-    let text = std::fs::read_to_string(&recipe).unwrap().replace("within: [1.9, 2.1]", "within: [3.9, 4.1]");
+    let text = std::fs::read_to_string(&recipe)
+        .unwrap()
+        .replace("within: [1.9, 2.1]", "within: [3.9, 4.1]");
     std::fs::write(&recipe, text).unwrap();
     let r = run(t.path(), &["run", "recipe.yaml"]);
     assert_eq!(r.code, 3);
-    assert!(r.stderr.contains("check failed: peak.max_position [film_a]: found 2"));
+    assert!(r
+        .stderr
+        .contains("check failed: peak.max_position [film_a]: found 2"));
     let rec = read_json(&t.path().join("out/run.json"));
     assert_eq!(rec["checks"][0]["passed"], false);
 }
@@ -179,23 +277,47 @@ fn a_corrupt_cache_entry_is_recomputed() {
     let out = t.path().join("out");
     let clean = results(&out);
     let rec = read_json(&out.join("run.json"));
-    let key = rec["nodes"].as_array().unwrap().iter().find(|n| n["step"] == "smooth" && n["item"] == "film_a").unwrap()["key"].as_str().unwrap().to_string();
-    let obj = t.path().join(".retort/objects").join(&key[..2]).join(&key);
-    let mut bytes = std::fs::read(&obj).unwrap();
-    let n = bytes.len();
-    bytes[n - 3] ^= 0x5a;
-    std::fs::write(&obj, &bytes).unwrap();
+    let key = rec["nodes"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .find(|n| n["step"] == "smooth" && n["item"] == "film_a")
+        .unwrap()["key"]
+        .as_str()
+        .unwrap()
+        .to_string();
+    // Flip a byte inside the entry, wherever the cache keeps it.
+    let locate = || {
+        engine::cache::Cache::open(&t.path().join(".retort"), true)
+            .unwrap()
+            .locate(&key)
+            .unwrap()
+    };
+    let (file, offset, len) = locate();
+    let mut bytes = std::fs::read(&file).unwrap();
+    bytes[(offset + len) as usize - 3] ^= 0x5a;
+    std::fs::write(&file, &bytes).unwrap();
     let p = run(t.path(), &["plan", "recipe.yaml"]);
-    assert!(p.stdout.contains("  run      smooth [film_a]  (cache entry corrupt (checksum mismatch))\n"));
+    assert!(p
+        .stdout
+        .contains("  run      smooth [film_a]  (cache entry corrupt (checksum mismatch))\n"));
     let r = run(t.path(), &["run", "recipe.yaml"]);
     assert_eq!(r.code, 0);
-    assert!(r.stderr.contains("cache entry of smooth [film_a] was corrupt (checksum mismatch); recomputed"));
+    assert!(r
+        .stderr
+        .contains("cache entry of smooth [film_a] was corrupt (checksum mismatch); recomputed"));
     assert!(r.stdout.contains("1 corrupt cache entries recomputed"));
     assert_eq!(counts(&out), (1, 9, 0, 0));
     assert_eq!(clean, results(&out));
-    // Truncated entries too.
-    std::fs::write(&obj, &bytes[..10]).unwrap();
-    assert_eq!(run(t.path(), &["run", "recipe.yaml"]).code, 0);
+    // Truncated entries too: the recomputed entry is alone in the newest segment.
+    let (file2, offset2, len2) = locate();
+    assert_ne!(file2, file);
+    let mut bytes = std::fs::read(&file2).unwrap();
+    bytes.truncate((offset2 + len2) as usize - 5);
+    std::fs::write(&file2, &bytes).unwrap();
+    let r = run(t.path(), &["run", "recipe.yaml"]);
+    assert_eq!(r.code, 0);
+    assert!(r.stdout.contains("1 corrupt cache entries recomputed"));
     assert_eq!(counts(&out), (1, 9, 0, 0));
     assert_eq!(clean, results(&out));
 }
@@ -207,22 +329,51 @@ fn sigkill_mid_run_then_rerun_gives_the_results_of_a_clean_run() {
     for i in 0..400 {
         let mut s = String::from("energy_eV,absorbance\n");
         for j in 0..400 {
-            s.push_str(&format!("{},{}\n", 1.0 + j as f64 * 0.01, ((i * 7 + j * 13) % 101) as f64));
+            s.push_str(&format!(
+                "{},{}\n",
+                1.0 + j as f64 * 0.01,
+                ((i * 7 + j * 13) % 101) as f64
+            ));
         }
         std::fs::write(t.path().join(format!("data/bulk_{i:03}.csv")), s).unwrap();
     }
     let bin = binary();
-    let mut child = std::process::Command::new(&bin).current_dir(t.path()).args(["run", "recipe.yaml", "--jobs", "1", "--quiet"]).spawn().unwrap();
-    std::thread::sleep(Duration::from_millis(400));
+    let mut child = std::process::Command::new(&bin)
+        .current_dir(t.path())
+        .args(["run", "recipe.yaml", "--jobs", "1", "--quiet"])
+        .spawn()
+        .unwrap();
+    // Kill once some (not all) work is in the cache.
+    let segments = t.path().join(".retort/segments");
+    let count = || std::fs::read_dir(&segments).map_or(0, |d| d.count());
+    let t0 = std::time::Instant::now();
+    while count() < 2 && t0.elapsed() < Duration::from_secs(60) {
+        std::thread::sleep(Duration::from_millis(5));
+    }
     child.kill().unwrap(); // SIGKILL on Unix
     let _ = child.wait();
+    assert!(count() > 0, "some work was saved before the kill");
+    assert!(
+        !t.path().join("out").exists(),
+        "the killed run wrote no output"
+    );
     let r = run(t.path(), &["run", "recipe.yaml", "--quiet"]);
     assert_eq!(r.code, 0);
     let out = t.path().join("out");
     let (ran, cached, failed, skipped) = counts(&out);
     assert_eq!((failed, skipped), (0, 0));
     assert_eq!(ran + cached, 403 * 3 + 1);
-    let clean = run(t.path(), &["run", "recipe.yaml", "--no-cache", "--quiet", "--out", "clean"]);
+    let clean = run(
+        t.path(),
+        &[
+            "run",
+            "recipe.yaml",
+            "--no-cache",
+            "--quiet",
+            "--out",
+            "clean",
+        ],
+    );
     assert_eq!(clean.code, 0);
     assert_eq!(results(&out), results(&t.path().join("clean")));
 }
@@ -241,17 +392,35 @@ fn includes_are_namespaced_and_identical_work_from_two_recipes_runs_once() {
     // first and third are the same work; second shares only the imports; `summary`
     // gathers second/peak exactly as second/table does.
     // first: 10; second: 3 smooth + 3 peak + 1 table; letters_raw: 3.
-    let unique: std::collections::BTreeSet<&str> = nodes.iter().map(|n| n["key"].as_str().unwrap()).collect();
+    let unique: std::collections::BTreeSet<&str> =
+        nodes.iter().map(|n| n["key"].as_str().unwrap()).collect();
     assert_eq!(unique.len(), 20);
-    assert_eq!(r.stderr.matches("ran      ").count(), 20, "each distinct node runs once");
-    let steps: Vec<&str> = rec["steps"].as_array().unwrap().iter().map(|s| s["id"].as_str().unwrap()).collect();
-    assert!(steps.contains(&"first/peak") && steps.contains(&"second/smooth") && steps.contains(&"third/table"));
-    let second = rec["steps"].as_array().unwrap().iter().find(|s| s["id"] == "second/smooth").unwrap().clone();
+    assert_eq!(
+        r.stderr.matches("ran      ").count(),
+        20,
+        "each distinct node runs once"
+    );
+    let steps: Vec<&str> = rec["steps"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|s| s["id"].as_str().unwrap())
+        .collect();
+    assert!(
+        steps.contains(&"first/peak")
+            && steps.contains(&"second/smooth")
+            && steps.contains(&"third/table")
+    );
+    let second = find(&rec, "steps", "id", "second/smooth").clone();
     assert_eq!(second["options"]["window"], 7);
-    let first = rec["steps"].as_array().unwrap().iter().find(|s| s["id"] == "first/smooth").unwrap().clone();
+    let first = find(&rec, "steps", "id", "first/smooth").clone();
     assert_eq!(first["options"]["window"], 5);
     // Items named by the regex's first capture group.
-    let letters: Vec<&str> = nodes.iter().filter(|n| n["step"] == "letters_raw").map(|n| n["item"].as_str().unwrap()).collect();
+    let letters: Vec<&str> = nodes
+        .iter()
+        .filter(|n| n["step"] == "letters_raw")
+        .map(|n| n["item"].as_str().unwrap())
+        .collect();
     assert_eq!(letters, ["a", "b", "c"]);
     // Checks of included recipes run in their namespace.
     assert_eq!(rec["checks"].as_array().unwrap().len(), 3);
@@ -264,7 +433,12 @@ fn the_catalog_lists_every_stage_with_options_units_and_defaults() {
     let r = run(t.path(), &["stages", "--json"]);
     assert_eq!(r.code, 0);
     let v: serde_json::Value = serde_json::from_str(&r.stdout).unwrap();
-    let names: Vec<&str> = v["stages"].as_array().unwrap().iter().map(|s| s["name"].as_str().unwrap()).collect();
+    let names: Vec<&str> = v["stages"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|s| s["name"].as_str().unwrap())
+        .collect();
     for s in stages::CATALOG {
         assert!(names.contains(&s.info().name));
     }
@@ -293,7 +467,41 @@ fn a_failed_run_keeps_the_previous_output() {
     let t = fixture("basic");
     assert_eq!(run(t.path(), &["run", "recipe.yaml"]).code, 0);
     let before = results(&t.path().join("out"));
-    std::fs::write(t.path().join("recipe.yaml"), "id: broken\nsteps:\n  a: { stage: nope.nothing }\n").unwrap();
+    std::fs::write(
+        t.path().join("recipe.yaml"),
+        "id: broken\nsteps:\n  a: { stage: nope.nothing }\n",
+    )
+    .unwrap();
     assert_eq!(run(t.path(), &["run", "recipe.yaml"]).code, 2);
     assert_eq!(results(&t.path().join("out")), before);
+}
+
+#[test]
+fn an_output_folder_that_is_not_ours_is_never_replaced() {
+    let t = fixture("basic");
+    for out in [".", "data"] {
+        let r = run(t.path(), &["run", "recipe.yaml", "--out", out]);
+        assert_eq!(r.code, 2, "--out {out} must be refused");
+    }
+    assert!(t.path().join("recipe.yaml").is_file());
+    assert!(t.path().join("data/film_a.csv").is_file());
+    let r = run(t.path(), &["run", "recipe.yaml", "--out", "data"]);
+    assert!(r.stderr.contains("is not a retort output folder"));
+}
+
+#[test]
+fn temporary_folders_left_by_a_killed_run_are_cleaned_up() {
+    let t = fixture("basic");
+    // A process id that cannot be running (above the kernel's pid_max limit).
+    let stale = t.path().join(".out.tmp-4294967295-abc");
+    std::fs::create_dir_all(&stale).unwrap();
+    assert_eq!(run(t.path(), &["run", "recipe.yaml"]).code, 0);
+    assert!(!stale.exists());
+    let left: Vec<_> = std::fs::read_dir(t.path())
+        .unwrap()
+        .flatten()
+        .map(|e| e.file_name().to_string_lossy().to_string())
+        .filter(|n| n.starts_with(".out."))
+        .collect();
+    assert!(left.is_empty(), "{left:?}");
 }

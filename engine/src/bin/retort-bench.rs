@@ -44,8 +44,20 @@ impl TypedStage for Pass {
         "Nothing was done.".into()
     }
     fn run(&self, inputs: &Inputs, o: &PassOptions) -> Result<Artifact, StageError> {
-        let n = inputs.one(0)?.results.first().and_then(|r| r.as_number()).unwrap_or(0.0);
-        Ok(Artifact::new(Value::Summary).with_results(vec![Record::number("n", n + 1.0 + o.offset, None, "")]))
+        let n = inputs
+            .one(0)?
+            .results
+            .first()
+            .and_then(|r| r.as_number())
+            .unwrap_or(0.0);
+        Ok(
+            Artifact::new(Value::Summary).with_results(vec![Record::number(
+                "n",
+                n + 1.0 + o.offset,
+                None,
+                "",
+            )]),
+        )
     }
 }
 
@@ -84,7 +96,9 @@ fn replan(files: usize) {
     for _ in 0..5 {
         let t0 = Instant::now();
         let p1 = engine::plan::build(&recipe, &[], false, stages::CATALOG);
-        let Some(plan) = p1.plan else { panic!("plan failed") };
+        let Some(plan) = p1.plan else {
+            panic!("plan failed")
+        };
         let t1 = Instant::now();
         let cache = Cache::open(&t.path().join(".retort"), true).unwrap_or_else(|e| panic!("{e}"));
         let mut idx = cache.stat_index();
@@ -99,7 +113,11 @@ fn replan(files: usize) {
             parts = (t1 - t0, t2 - t1, t3 - t2);
         }
     }
-    println!("re-plan, {files} input files, {} nodes (first run {:.2} s):", files * 2, first.as_secs_f64());
+    println!(
+        "re-plan, {files} input files, {} nodes (first run {:.2} s):",
+        files * 2,
+        first.as_secs_f64()
+    );
     println!("  no-op re-plan      {:>8.1} ms   (recipe + plan {:.1} ms, graph + stat index {:.1} ms, cache lookups {:.1} ms; goal < 200 ms)", ms(best), ms(parts.0), ms(parts.1), ms(parts.2));
 }
 
@@ -110,9 +128,14 @@ fn ms(d: Duration) -> f64 {
 fn overhead(items: usize, steps: usize) {
     let t = tempfile::tempdir().unwrap_or_else(|e| panic!("{e}"));
     write_files(t.path(), items);
-    let mut y = String::from("id: overhead\nsamples:\n  s: data/*.csv\nsteps:\n  p0: { stage: bench.pass, from: s }\n");
+    let mut y = String::from(
+        "id: overhead\nsamples:\n  s: data/*.csv\nsteps:\n  p0: { stage: bench.pass, from: s }\n",
+    );
     for k in 1..steps {
-        y.push_str(&format!("  p{k}: {{ stage: bench.pass, from: p{} }}\n", k - 1));
+        y.push_str(&format!(
+            "  p{k}: {{ stage: bench.pass, from: p{} }}\n",
+            k - 1
+        ));
     }
     let recipe = t.path().join("r.yaml");
     std::fs::write(&recipe, y).unwrap_or_else(|e| panic!("{e}"));
@@ -120,13 +143,23 @@ fn overhead(items: usize, steps: usize) {
     let nodes = items * steps;
     let r = recipe.display().to_string();
     println!("engine overhead, {nodes} nodes of a trivial stage ({items} items x {steps} steps):");
-    for (label, extra) in [("durable cache (fsync)", vec![]), ("throwaway cache (--no-cache)", vec!["--no-cache"]), ("second run, all cached", vec![])] {
-        let mut args: Vec<String> = ["retort", "run", &r, "--quiet"].iter().map(|s| s.to_string()).collect();
+    for (label, extra) in [
+        ("durable cache (fsync)", vec![]),
+        ("throwaway cache (--no-cache)", vec!["--no-cache"]),
+        ("second run, all cached", vec![]),
+    ] {
+        let mut args: Vec<String> = ["retort", "run", &r, "--quiet"]
+            .iter()
+            .map(|s| s.to_string())
+            .collect();
         args.extend(extra.iter().map(|s| s.to_string()));
         let t0 = Instant::now();
         let code = engine::cli::main_with(args, catalog);
         let wall = t0.elapsed();
-        let rec: engine::record::RunRecord = serde_json::from_str(&std::fs::read_to_string(t.path().join("out/run.json")).unwrap_or_default()).unwrap_or_else(|e| panic!("{e}"));
+        let rec: engine::record::RunRecord = serde_json::from_str(
+            &std::fs::read_to_string(t.path().join("out/run.json")).unwrap_or_default(),
+        )
+        .unwrap_or_else(|e| panic!("{e}"));
         let in_stage: f64 = rec.nodes.iter().map(|n| n.duration_ms).sum::<f64>() / 1000.0;
         let per = (wall.as_secs_f64() - in_stage) / nodes as f64 * 1e6;
         println!("  {label:<30} wall {:>7.2} s, in stages {:>6.3} s, overhead {per:>7.1} us/node (exit {:?}; goal < 50 us)", wall.as_secs_f64(), in_stage, code);
@@ -135,8 +168,15 @@ fn overhead(items: usize, steps: usize) {
 
 fn main() {
     let smoke = std::env::args().any(|a| a == "--smoke");
-    let cores = std::thread::available_parallelism().map(|n| n.get()).unwrap_or(1);
-    println!("retort-bench {} ({} cores{})", engine::VERSION, cores, if smoke { ", smoke mode" } else { "" });
+    let cores = std::thread::available_parallelism()
+        .map(|n| n.get())
+        .unwrap_or(1);
+    println!(
+        "retort-bench {} ({} cores{})",
+        engine::VERSION,
+        cores,
+        if smoke { ", smoke mode" } else { "" }
+    );
     if smoke {
         replan(20);
         overhead(10, 5);

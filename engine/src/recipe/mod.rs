@@ -66,25 +66,45 @@ impl PathPolicy {
 /// Every recipe read, with its text (also those that did not parse), for diagnostics.
 pub type Sources = Vec<(String, String)>;
 
-pub fn load_tree(top: &Path, allow_outside: bool) -> (Vec<Loaded>, PathPolicy, Vec<Diagnostic>, Sources) {
+pub fn load_tree(
+    top: &Path,
+    allow_outside: bool,
+) -> (Vec<Loaded>, PathPolicy, Vec<Diagnostic>, Sources) {
     let mut diags = Vec::new();
     let shown_top = top.display().to_string();
     let canonical = match top.canonicalize() {
         Ok(c) => c,
         Err(e) => {
             diags.push(Diagnostic::error(
-                Problem::ReadRecipe { message: e.to_string() },
+                Problem::ReadRecipe {
+                    message: e.to_string(),
+                },
                 Some(&shown_top),
                 None,
             ));
-            let policy = PathPolicy { root: PathBuf::from("."), allow_outside };
+            let policy = PathPolicy {
+                root: PathBuf::from("."),
+                allow_outside,
+            };
             return (Vec::new(), policy, diags, Vec::new());
         }
     };
-    let root = canonical.parent().map(Path::to_path_buf).unwrap_or_default();
-    let policy = PathPolicy { root, allow_outside };
+    let root = canonical
+        .parent()
+        .map(Path::to_path_buf)
+        .unwrap_or_default();
+    let policy = PathPolicy {
+        root,
+        allow_outside,
+    };
     let mut out = Vec::new();
-    let mut ctx = Ctx { policy: &policy, chain: Vec::new(), out: &mut out, diags: &mut diags, sources: Vec::new() };
+    let mut ctx = Ctx {
+        policy: &policy,
+        chain: Vec::new(),
+        out: &mut out,
+        diags: &mut diags,
+        sources: Vec::new(),
+    };
     load_one(&canonical, None, String::new(), Vec::new(), &mut ctx);
     let sources = ctx.sources;
     (out, policy, diags, sources)
@@ -100,7 +120,13 @@ struct Ctx<'a> {
 
 type Passed = Vec<(String, serde_yaml::Value, Vec<Seg>)>;
 
-fn load_one(abs: &Path, parent: Option<usize>, prefix: String, passed: Passed, ctx: &mut Ctx) -> Option<usize> {
+fn load_one(
+    abs: &Path,
+    parent: Option<usize>,
+    prefix: String,
+    passed: Passed,
+    ctx: &mut Ctx,
+) -> Option<usize> {
     let policy = ctx.policy;
     let shown = policy.shown(abs);
     let diags = &mut *ctx.diags;
@@ -108,7 +134,9 @@ fn load_one(abs: &Path, parent: Option<usize>, prefix: String, passed: Passed, c
         Ok(t) => t,
         Err(e) => {
             diags.push(Diagnostic::error(
-                Problem::ReadRecipe { message: e.to_string() },
+                Problem::ReadRecipe {
+                    message: e.to_string(),
+                },
                 Some(&shown),
                 None,
             ));
@@ -123,7 +151,10 @@ fn load_one(abs: &Path, parent: Option<usize>, prefix: String, passed: Passed, c
             _ => String::new(),
         };
         diags.push(Diagnostic::error(
-            Problem::DuplicateKey { key, first_line: d.first.line },
+            Problem::DuplicateKey {
+                key,
+                first_line: d.first.line,
+            },
             Some(&shown),
             Some(d.at),
         ));
@@ -132,7 +163,8 @@ fn load_one(abs: &Path, parent: Option<usize>, prefix: String, passed: Passed, c
         Ok(r) => r,
         Err(e) => {
             let message = e.to_string();
-            if !(spans.duplicates.is_empty() || !message.contains("duplicate")) {
+            // serde_yaml's duplicate-key error has no useful position; ours are reported.
+            if !spans.duplicates.is_empty() && message.contains("duplicate") {
                 return None;
             }
             diags.push(yaml_error(&message, e.location(), &spans, &shown));
@@ -167,19 +199,30 @@ fn load_one(abs: &Path, parent: Option<usize>, prefix: String, passed: Passed, c
         let (path, set, alias) = match parse_include(inc) {
             Ok(v) => v,
             Err(message) => {
-                diags.push(Diagnostic::error(Problem::BadInclude { message }, Some(&shown), loc));
+                diags.push(Diagnostic::error(
+                    Problem::BadInclude { message },
+                    Some(&shown),
+                    loc,
+                ));
                 continue;
             }
         };
         if !policy.written_ok(&path) {
-            diags.push(Diagnostic::error(Problem::OutsideTree { path }, Some(&shown), loc));
+            diags.push(Diagnostic::error(
+                Problem::OutsideTree { path },
+                Some(&shown),
+                loc,
+            ));
             continue;
         }
         let target = match dir.join(&path).canonicalize() {
             Ok(t) => t,
             Err(e) => {
                 diags.push(Diagnostic::error(
-                    Problem::MissingInclude { path, message: e.to_string() },
+                    Problem::MissingInclude {
+                        path,
+                        message: e.to_string(),
+                    },
                     Some(&shown),
                     loc,
                 ));
@@ -187,13 +230,21 @@ fn load_one(abs: &Path, parent: Option<usize>, prefix: String, passed: Passed, c
             }
         };
         if !policy.permits(&target) {
-            diags.push(Diagnostic::error(Problem::OutsideTree { path }, Some(&shown), loc));
+            diags.push(Diagnostic::error(
+                Problem::OutsideTree { path },
+                Some(&shown),
+                loc,
+            ));
             continue;
         }
         if let Some(k) = ctx.chain.iter().position(|c| *c == target) {
             let mut names: Vec<String> = ctx.chain[k..].iter().map(|c| policy.shown(c)).collect();
             names.push(policy.shown(&target));
-            diags.push(Diagnostic::error(Problem::IncludeCycle { chain: names }, Some(&shown), loc));
+            diags.push(Diagnostic::error(
+                Problem::IncludeCycle { chain: names },
+                Some(&shown),
+                loc,
+            ));
             continue;
         }
         let passed: Vec<_> = set
@@ -269,12 +320,21 @@ fn parse_include(v: &serde_yaml::Value) -> Result<IncludeSpec, String> {
 }
 
 /// A serde_yaml error, located by its own position or, for unknown fields, by the key.
-fn yaml_error(message: &str, loc: Option<serde_yaml::Location>, spans: &Spans, shown: &str) -> Diagnostic {
+fn yaml_error(
+    message: &str,
+    loc: Option<serde_yaml::Location>,
+    spans: &Spans,
+    shown: &str,
+) -> Diagnostic {
     let mut text = message.to_string();
     if let Some(i) = text.rfind(" at line ") {
         text.truncate(i);
     }
-    let mut pos = loc.map(|l| Pos { line: l.line(), col: l.column(), len: 1 });
+    let mut pos = loc.map(|l| Pos {
+        line: l.line(),
+        col: l.column(),
+        len: 1,
+    });
     let mut suggestion = None;
     if let Some(i) = text.find("unknown field `") {
         let rest = &text[i + "unknown field `".len()..];
@@ -305,5 +365,12 @@ fn yaml_error(message: &str, loc: Option<serde_yaml::Location>, spans: &Spans, s
             }
         }
     }
-    Diagnostic::error(Problem::Yaml { message: text, suggestion }, Some(shown), pos)
+    Diagnostic::error(
+        Problem::Yaml {
+            message: text,
+            suggestion,
+        },
+        Some(shown),
+        pos,
+    )
 }

@@ -64,7 +64,13 @@ impl Spans {
             }
             match p.split_last() {
                 Some((_, rest)) => p = rest,
-                None => return Pos { line: 1, col: 1, len: 1 },
+                None => {
+                    return Pos {
+                        line: 1,
+                        col: 1,
+                        len: 1,
+                    }
+                }
             }
         }
     }
@@ -104,6 +110,17 @@ struct Container {
     next_index: usize,
 }
 
+impl Container {
+    fn new(indent: usize, path: Vec<Seg>, kind: Kind) -> Self {
+        Container {
+            indent,
+            path,
+            kind,
+            next_index: 0,
+        }
+    }
+}
+
 struct Scanner<'a> {
     lines: &'a [Vec<char>],
     spans: Spans,
@@ -140,19 +157,18 @@ impl Scanner<'_> {
         path.push(Seg::key(key));
         if !seen.insert(key.to_string()) {
             let first = self.spans.key(&path);
-            self.spans.duplicates.push(Duplicate { path: path.clone(), at, first });
+            self.spans.duplicates.push(Duplicate {
+                path: path.clone(),
+                at,
+                first,
+            });
             path.push(Seg::Index(usize::MAX - self.spans.duplicates.len()));
         }
         path
     }
 
     fn block(&mut self) {
-        let mut stack: Vec<Container> = vec![Container {
-            indent: 0,
-            path: Vec::new(),
-            kind: Kind::Map,
-            next_index: 0,
-        }];
+        let mut stack: Vec<Container> = vec![Container::new(0, Vec::new(), Kind::Map)];
         let mut li = 0;
         while li < self.lines.len() {
             let line = &self.lines[li];
@@ -162,12 +178,15 @@ impl Scanner<'_> {
             }
             let ind = indent_of(line);
             // Find the container this line belongs to.
-            loop {
-                let Some(top) = stack.last_mut() else { break };
+            while let Some(top) = stack.last_mut() {
                 match top.kind {
                     Kind::Pending => {
                         if ind > top.indent {
-                            top.kind = if is_item(line, ind) { Kind::Seq } else { Kind::Map };
+                            top.kind = if is_item(line, ind) {
+                                Kind::Seq
+                            } else {
+                                Kind::Map
+                            };
                             top.indent = ind;
                             break;
                         } else if ind == top.indent && is_item(line, ind) {
@@ -177,7 +196,9 @@ impl Scanner<'_> {
                         stack.pop();
                     }
                     Kind::Map | Kind::Seq => {
-                        if ind < top.indent || (ind == top.indent && top.kind == Kind::Seq && !is_item(line, ind)) {
+                        if ind < top.indent
+                            || (ind == top.indent && top.kind == Kind::Seq && !is_item(line, ind))
+                        {
                             if stack.len() == 1 {
                                 break;
                             }
@@ -217,32 +238,17 @@ impl Scanner<'_> {
             if j >= line.len() || line.get(j) == Some(&'#') {
                 // Item content on the following lines.
                 self.record(path.clone(), pos(li, at, 1), None);
-                stack.push(Container {
-                    indent: at,
-                    path,
-                    kind: Kind::Pending,
-                    next_index: 0,
-                });
+                stack.push(Container::new(at, path, Kind::Pending));
                 return li + 1;
             }
             let item_pos = pos(li, j, scalar_len(line, j, false));
             self.record(path.clone(), item_pos, Some(item_pos));
             if is_item(line, j) {
-                stack.push(Container {
-                    indent: j,
-                    path,
-                    kind: Kind::Seq,
-                    next_index: 0,
-                });
+                stack.push(Container::new(j, path, Kind::Seq));
                 return self.node_line(stack, li, j);
             }
             if key_end(line, j).is_some() {
-                stack.push(Container {
-                    indent: j,
-                    path,
-                    kind: Kind::Map,
-                    next_index: 0,
-                });
+                stack.push(Container::new(j, path, Kind::Map));
                 return self.node_line(stack, li, j);
             }
             return self.inline_value(&path, li, j, at);
@@ -262,12 +268,7 @@ impl Scanner<'_> {
         }
         if j >= line.len() || line.get(j) == Some(&'#') {
             self.record(path.clone(), key_pos, None);
-            stack.push(Container {
-                indent: at,
-                path,
-                kind: Kind::Pending,
-                next_index: 0,
-            });
+            stack.push(Container::new(at, path, Kind::Pending));
             return li + 1;
         }
         let vpos = pos(li, j, scalar_len(line, j, false));
@@ -305,7 +306,9 @@ impl Scanner<'_> {
 
     fn skip_ws(&self, cur: &mut (usize, usize)) {
         loop {
-            let Some(l) = self.lines.get(cur.0) else { return };
+            let Some(l) = self.lines.get(cur.0) else {
+                return;
+            };
             match l.get(cur.1) {
                 Some(' ') | Some('\t') => cur.1 += 1,
                 Some('#') | None => {
@@ -317,26 +320,30 @@ impl Scanner<'_> {
         }
     }
 
+    /// Moves to the next entry of a flow collection closed by `close`; false at its
+    /// end (the closer consumed) or at the end of the text.
+    fn next_entry(&self, cur: &mut (usize, usize), close: char) -> bool {
+        loop {
+            self.skip_ws(cur);
+            match self.peek(*cur) {
+                None => return false,
+                Some(c) if c == close => {
+                    cur.1 += 1;
+                    return false;
+                }
+                Some(',') => cur.1 += 1,
+                Some(_) => return true,
+            }
+        }
+    }
+
     /// Parses a flow collection or scalar at `cur`, recording positions under `path`.
     fn flow(&mut self, path: &[Seg], cur: &mut (usize, usize)) {
         self.skip_ws(cur);
         match self.peek(*cur) {
             Some('{') => {
                 cur.1 += 1;
-                loop {
-                    self.skip_ws(cur);
-                    match self.peek(*cur) {
-                        None => return,
-                        Some('}') => {
-                            cur.1 += 1;
-                            return;
-                        }
-                        Some(',') => {
-                            cur.1 += 1;
-                            continue;
-                        }
-                        _ => {}
-                    }
+                while self.next_entry(cur, '}') {
                     let line = &self.lines[cur.0];
                     let start = cur.1;
                     let (key, end) = flow_key(line, start);
@@ -358,20 +365,7 @@ impl Scanner<'_> {
             Some('[') => {
                 cur.1 += 1;
                 let mut idx = 0;
-                loop {
-                    self.skip_ws(cur);
-                    match self.peek(*cur) {
-                        None => return,
-                        Some(']') => {
-                            cur.1 += 1;
-                            return;
-                        }
-                        Some(',') => {
-                            cur.1 += 1;
-                            continue;
-                        }
-                        _ => {}
-                    }
+                while self.next_entry(cur, ']') {
                     let line = &self.lines[cur.0];
                     let ipos = pos(cur.0, cur.1, scalar_len(line, cur.1, true));
                     let mut p = path.to_vec();
@@ -410,7 +404,7 @@ fn key_end(line: &[char], at: usize) -> Option<(String, usize)> {
         }
         return (line.get(k) == Some(&':')).then_some((key, k));
     }
-    if matches!(first, '{' | '[' | '-' | '#' | '|' | '>') && !(first == '-' && !is_item(line, at)) {
+    if matches!(first, '{' | '[' | '#' | '|' | '>') || (first == '-' && is_item(line, at)) {
         return None;
     }
     let mut i = at;
@@ -430,7 +424,9 @@ fn key_end(line: &[char], at: usize) -> Option<(String, usize)> {
 /// A key inside a flow mapping: text and the index just after it.
 fn flow_key(line: &[char], at: usize) -> (String, usize) {
     if let Some(q) = line.get(at).filter(|c| **c == '"' || **c == '\'') {
-        let close = (at + 1..line.len()).find(|&i| line[i] == *q).unwrap_or(line.len());
+        let close = (at + 1..line.len())
+            .find(|&i| line[i] == *q)
+            .unwrap_or(line.len());
         let key: String = line[at + 1..close.min(line.len())].iter().collect();
         return (key, (close + 1).min(line.len()));
     }
@@ -491,19 +487,48 @@ mod tests {
     #[test]
     fn block_and_flow_keys_are_located() {
         let s = Spans::scan(DOC);
-        assert_eq!(s.key(&k(&["steps", "raw"])), Pos { line: 3, col: 3, len: 3 });
+        assert_eq!(
+            s.key(&k(&["steps", "raw"])),
+            Pos {
+                line: 3,
+                col: 3,
+                len: 3
+            }
+        );
         assert_eq!(
             s.value(&k(&["steps", "raw", "stage"])),
-            Pos { line: 3, col: 17, len: 16 }
+            Pos {
+                line: 3,
+                col: 17,
+                len: 16
+            }
         );
         assert_eq!(s.value(&k(&["steps", "raw", "from"])).col, 41);
         assert_eq!(
             s.value(&k(&["steps", "smooth", "stage"])),
-            Pos { line: 5, col: 12, len: 21 }
+            Pos {
+                line: 5,
+                col: 12,
+                len: 21
+            }
         );
-        assert_eq!(s.value(&k(&["steps", "smooth", "from", "1"])), Pos { line: 6, col: 17, len: 5 });
+        assert_eq!(
+            s.value(&k(&["steps", "smooth", "from", "1"])),
+            Pos {
+                line: 6,
+                col: 17,
+                len: 5
+            }
+        );
         assert_eq!(s.key(&k(&["steps", "smooth", "options", "window"])).line, 8);
-        assert_eq!(s.value(&k(&["checks", "0", "item"])), Pos { line: 11, col: 11, len: 1 });
+        assert_eq!(
+            s.value(&k(&["checks", "0", "item"])),
+            Pos {
+                line: 11,
+                col: 11,
+                len: 1
+            }
+        );
         assert_eq!(s.value(&k(&["checks", "1", "result"])).line, 12);
         // Unknown paths fall back to the nearest ancestor.
         assert_eq!(s.key(&k(&["steps", "smooth", "options", "nope"])).line, 7);

@@ -71,7 +71,13 @@ pub fn run(dir: &Path, args: &[&str]) -> Ran {
         stdout: String::from_utf8_lossy(&out.stdout).to_string(),
         stderr: String::from_utf8_lossy(&out.stderr).to_string(),
     };
-    eprintln!("$ retort {}\n[exit {}]\n--- stdout\n{}--- stderr\n{}", args.join(" "), r.code, r.stdout, r.stderr);
+    eprintln!(
+        "$ retort {}\n[exit {}]\n--- stdout\n{}--- stderr\n{}",
+        args.join(" "),
+        r.code,
+        r.stdout,
+        r.stderr
+    );
     r
 }
 
@@ -105,4 +111,19 @@ pub fn status(out: &Path, step: &str, item: Option<&str>) -> serde_json::Value {
         .find(|n| n["step"] == step && n["item"].as_str() == item)
         .map(|n| n["status"].clone())
         .unwrap_or_else(|| panic!("no node {step} {item:?}"))
+}
+
+/// The entry of `list` (an array in run.json) whose `field` equals `value`.
+pub fn find<'a>(
+    rec: &'a serde_json::Value,
+    list: &str,
+    field: &str,
+    value: &str,
+) -> &'a serde_json::Value {
+    rec[list]
+        .as_array()
+        .unwrap()
+        .iter()
+        .find(|e| e[field] == value)
+        .unwrap_or_else(|| panic!("no {list} entry with {field} = {value}"))
 }
