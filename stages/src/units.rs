@@ -181,8 +181,8 @@ mod tests {
     #[test]
     fn hc_matches_codata_2018() {
         // NIST CODATA 2018: hc = 1239.841 984... eV nm (exact).
-        assert!((HC_EV_NM - 1239.841_984).abs() < 1e-6);
-        assert!((ev_from_nm(1.0) - 1239.841_984).abs() < 1e-6);
+        assert!((HC_EV_NM - 1_239.841_984).abs() < 1e-6);
+        assert!((ev_from_nm(1.0) - 1_239.841_984).abs() < 1e-6);
     }
 
     #[test]

@@ -247,7 +247,9 @@ fn read_grid(name: &str, bytes: &[u8], o: &Options) -> Result<Grid, StageError> 
             .collect()
     };
     let first = fields(body[0].1);
-    let has_header = first.iter().any(|f| parse_number(f, decimal_comma).is_none());
+    let has_header = first
+        .iter()
+        .any(|f| parse_number(f, decimal_comma).is_none());
     let header: Vec<String> = if has_header { first } else { Vec::new() };
     let preamble = lines[..head_from]
         .iter()
@@ -347,7 +349,11 @@ impl Grid {
             .map(|(_, f)| f.len())
             .min()
             .unwrap_or(0)
-            .max(self.header.len().min(self.rows.first().map_or(0, |r| r.1.len())))
+            .max(
+                self.header
+                    .len()
+                    .min(self.rows.first().map_or(0, |r| r.1.len())),
+            )
     }
 }
 
@@ -396,7 +402,10 @@ fn build(name: &str, g: &Grid, o: &Options, yi: usize) -> Result<Spectrum, Stage
         return Err(StageError::data(
             name,
             None,
-            format!("a spectrum needs at least 2 data points, found {}", g.rows.len()),
+            format!(
+                "a spectrum needs at least 2 data points, found {}",
+                g.rows.len()
+            ),
         ));
     }
     // Check every row is wide enough before reading columns, so a short row is
@@ -625,19 +634,37 @@ mod more_tests {
 
     #[test]
     fn poisson_sigma_for_counts_and_sigma_column() {
-        let s = parse("p.csv", b"BE (eV),counts\n285,0\n284,16\n", &Options::default()).unwrap();
+        let s = parse(
+            "p.csv",
+            b"BE (eV),counts\n285,0\n284,16\n",
+            &Options::default(),
+        )
+        .unwrap();
         // σ = √max(counts, 1): floor 1 at zero counts, 4 at 16 counts.
         assert_eq!(s.sigma, Some(vec![1.0, 4.0]));
         assert_eq!(s.y_axis, Axis::new("intensity", "counts"));
-        let s = parse("q.csv", b"x,y,sigma\n1,5,0.5\n2,6,0.25\n", &Options::default()).unwrap();
+        let s = parse(
+            "q.csv",
+            b"x,y,sigma\n1,5,0.5\n2,6,0.25\n",
+            &Options::default(),
+        )
+        .unwrap();
         assert_eq!(s.sigma, Some(vec![0.5, 0.25]));
-        let all = parse_all("q.csv", b"x,y,sigma\n1,5,0.5\n2,6,0.25\n", &Options::default()).unwrap();
+        let all = parse_all(
+            "q.csv",
+            b"x,y,sigma\n1,5,0.5\n2,6,0.25\n",
+            &Options::default(),
+        )
+        .unwrap();
         assert_eq!(all.len(), 1);
         let o = Options {
             poisson_sigma: PoissonSigma::Off,
             ..Options::default()
         };
-        assert_eq!(parse("p.csv", b"x,counts\n1,4\n2,9\n", &o).unwrap().sigma, None);
+        assert_eq!(
+            parse("p.csv", b"x,counts\n1,4\n2,9\n", &o).unwrap().sigma,
+            None
+        );
     }
 
     #[test]

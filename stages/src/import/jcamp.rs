@@ -59,7 +59,11 @@ impl Default for Options {
 
 pub struct ImportJcamp;
 
-static INPUTS: &[Port] = &[Port::each("file", Kind::File, "a JCAMP-DX file (.jdx, .dx)")];
+static INPUTS: &[Port] = &[Port::each(
+    "file",
+    Kind::File,
+    "a JCAMP-DX file (.jdx, .dx)",
+)];
 
 static REFS: &[Reference] = &[
     Reference {
@@ -193,13 +197,20 @@ pub fn parse(name: &str, bytes: &[u8], o: &Options) -> Result<(Spectrum, Vec<Str
         .unwrap_or_else(|_| bytes.iter().map(|&b| b as char).collect());
     let recs = records(name, &text)?;
     if recs.is_empty() {
-        return Err(StageError::data(name, None, "no labelled-data records: not a JCAMP-DX file"));
+        return Err(StageError::data(
+            name,
+            None,
+            "no labelled-data records: not a JCAMP-DX file",
+        ));
     }
     if recs[0].label != "TITLE" {
         return Err(StageError::data(
             name,
             Some(recs[0].line),
-            format!("the first record must be ##TITLE=, found ##{}=", recs[0].label),
+            format!(
+                "the first record must be ##TITLE=, found ##{}=",
+                recs[0].label
+            ),
         ));
     }
     if let Some(b) = recs.iter().find(|r| r.label == "BLOCKS") {
@@ -251,7 +262,10 @@ pub fn parse(name: &str, bytes: &[u8], o: &Options) -> Result<(Spectrum, Vec<Str
             return Err(StageError::data(
                 name,
                 Some(table.line),
-                format!("XYDATA form '{}' is not supported (only (X++(Y..Y)))", table.value),
+                format!(
+                    "XYDATA form '{}' is not supported (only (X++(Y..Y)))",
+                    table.value
+                ),
             ));
         }
         let req = |label: &str| -> Result<f64, StageError> {
@@ -320,7 +334,10 @@ pub fn parse(name: &str, bytes: &[u8], o: &Options) -> Result<(Spectrum, Vec<Str
                 return Err(StageError::data(
                     name,
                     Some(table.line),
-                    format!("table form '{}' is not supported (only (XY..XY), (XYW..XYW))", table.value),
+                    format!(
+                        "table form '{}' is not supported (only (XY..XY), (XYW..XYW))",
+                        table.value
+                    ),
                 ))
             }
         };
@@ -333,7 +350,7 @@ pub fn parse(name: &str, bytes: &[u8], o: &Options) -> Result<(Spectrum, Vec<Str
                     .filter(|t| !t.is_empty())
                     .collect();
                 // Pairs may also be written as a whitespace-separated run: x, y  x, y.
-                if vals.len() % per != 0 {
+                if !vals.len().is_multiple_of(per) {
                     return Err(StageError::data(
                         name,
                         Some(*line),
@@ -360,7 +377,11 @@ pub fn parse(name: &str, bytes: &[u8], o: &Options) -> Result<(Spectrum, Vec<Str
             }
         }
         if x.is_empty() {
-            return Err(StageError::data(name, Some(table.line), "the table holds no points"));
+            return Err(StageError::data(
+                name,
+                Some(table.line),
+                "the table holds no points",
+            ));
         }
         (x, y)
     };
@@ -744,7 +765,10 @@ mod tests {
         ] {
             assert!(read(bad).is_err(), "{bad:?} should fail");
         }
-        let e = read("##TITLE=x\n##FIRSTX=1\n##LASTX=9\n##NPOINTS=3\n##XYDATA=(X++(Y..Y))\n1 2 3\n5 4\n").unwrap_err();
+        let e = read(
+            "##TITLE=x\n##FIRSTX=1\n##LASTX=9\n##NPOINTS=3\n##XYDATA=(X++(Y..Y))\n1 2 3\n5 4\n",
+        )
+        .unwrap_err();
         assert!(e.to_string().contains(":7:"), "{e}");
     }
 }
