@@ -142,15 +142,12 @@ impl TypedStage for CalibrateShift {
         out.metadata
             .insert("x_shift".into(), format!("{shift} (reference: {source})"));
         let xu = s.x_axis.unit.as_str();
-        let mut a = Artifact::new(Value::Spectrum(out)).with_results(vec![
+        let a = Artifact::new(Value::Spectrum(out)).with_results(vec![
             Record::number("measured", measured, None, xu),
             Record::number("target", target, None, xu),
             Record::number("shift", shift, None, xu),
             Record::text("reference", source),
         ]);
-        if shift.abs() > 2.0 * o.window.max(1.0) * 10.0 {
-            a.warn(format!("the shift of {shift} {xu} is unusually large"));
-        }
         Ok(a)
     }
 }

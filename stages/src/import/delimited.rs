@@ -151,15 +151,7 @@ impl TypedStage for ImportDelimited {
     }
 
     fn run(&self, inputs: &crate::stage::Inputs, o: &Options) -> Result<Artifact, StageError> {
-        let file = match &inputs.one(0)?.value {
-            Value::File(f) => f,
-            other => {
-                return Err(StageError::input(format!(
-                    "expected a file, got a {}",
-                    other.kind().name()
-                )))
-            }
-        };
+        let file = super::input_file(inputs)?;
         let spectrum = parse(&file.name, &file.bytes, o)?;
         let mut a = Artifact::new(Value::Spectrum(spectrum));
         if let Value::Spectrum(s) = &a.value {

@@ -111,15 +111,7 @@ impl TypedStage for ImportJcamp {
     }
 
     fn run(&self, inputs: &Inputs, o: &Options) -> Result<Artifact, StageError> {
-        let file = match &inputs.one(0)?.value {
-            Value::File(f) => f,
-            other => {
-                return Err(StageError::input(format!(
-                    "expected a file, got a {}",
-                    other.kind().name()
-                )))
-            }
-        };
+        let file = super::input_file(inputs)?;
         let (spectrum, warnings) = parse(&file.name, &file.bytes, o)?;
         let n = spectrum.len();
         let mut a = Artifact::new(Value::Spectrum(spectrum));
@@ -195,7 +187,17 @@ pub fn parse(name: &str, bytes: &[u8], o: &Options) -> Result<(Spectrum, Vec<Str
         .map(str::to_string)
         // Older files are often Latin-1: read bytes as code points rather than fail.
         .unwrap_or_else(|_| bytes.iter().map(|&b| b as char).collect());
-    let recs = records(name, &text)?;
+    let mut recs = records(name, &text)?;
+    let mut warnings = Vec::new();
+    if let Some(end) = recs.iter().position(|r| r.label == "END") {
+        if recs.len() > end + 1 {
+            warnings.push(format!(
+                "records after ##END= (line {}) were ignored: one spectrum per file",
+                recs[end].line
+            ));
+        }
+        recs.truncate(end);
+    }
     if recs.is_empty() {
         return Err(StageError::data(
             name,
@@ -211,6 +213,13 @@ pub fn parse(name: &str, bytes: &[u8], o: &Options) -> Result<(Spectrum, Vec<Str
                 "the first record must be ##TITLE=, found ##{}=",
                 recs[0].label
             ),
+        ));
+    }
+    if let Some(b) = recs.iter().find(|r| r.label == "NTUPLES") {
+        return Err(StageError::data(
+            name,
+            Some(b.line),
+            "##NTUPLES= (multi-page data such as complex NMR FIDs) is not supported; export a single XYDATA spectrum",
         ));
     }
     if let Some(b) = recs.iter().find(|r| r.label == "BLOCKS") {
@@ -255,7 +264,6 @@ pub fn parse(name: &str, bytes: &[u8], o: &Options) -> Result<(Spectrum, Vec<Str
                 format!("no ##{}= data table in the file", wanted.join("=, ##")),
             )
         })?;
-    let mut warnings = Vec::new();
     let (x, y) = if table.label == "XYDATA" {
         let form = table.value.replace(' ', "").to_ascii_uppercase();
         if form != "(X++(Y..Y))" {
