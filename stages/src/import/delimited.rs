@@ -378,10 +378,17 @@ pub fn parse_all(name: &str, bytes: &[u8], o: &Options) -> Result<Vec<Spectrum>,
         Some(c) => Some(g.resolve(name, c, "sigma")?),
         None => g.sigma_column(),
     };
-    (0..g.width())
+    let ys: Vec<usize> = (0..g.width())
         .filter(|&i| i != xi && Some(i) != si)
-        .map(|yi| build(name, &g, o, yi))
-        .collect()
+        .collect();
+    if ys.is_empty() {
+        return Err(StageError::data(
+            name,
+            Some(g.header_line),
+            "no y column: every data line needs an x and at least one y value",
+        ));
+    }
+    ys.into_iter().map(|yi| build(name, &g, o, yi)).collect()
 }
 
 fn build(name: &str, g: &Grid, o: &Options, yi: usize) -> Result<Spectrum, StageError> {
@@ -664,5 +671,21 @@ mod more_tests {
         let s = parse("w.txt", b"1,5 2,5\n2,5 3,5\n", &Options::default()).unwrap();
         assert_eq!(s.x, vec![1.5, 2.5]);
         assert_eq!(s.y, vec![2.5, 3.5]);
+    }
+}
+
+#[cfg(test)]
+mod fuzz {
+    use super::*;
+    use proptest::prelude::*;
+
+    proptest! {
+        #![proptest_config(ProptestConfig::with_cases(400))]
+        // Never a panic on arbitrary delimited-looking text.
+        #[test]
+        fn arbitrary_text_never_panics(text in "[0-9a-z,;.\t \n#%()\\-e]{0,300}") {
+            let _ = parse("f.csv", text.as_bytes(), &Options::default());
+            let _ = parse_all("f.csv", text.as_bytes(), &Options::default());
+        }
     }
 }

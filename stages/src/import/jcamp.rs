@@ -43,8 +43,9 @@ pub enum Table {
 pub struct Options {
     /// Which data table to read.
     pub table: Table,
-    /// Relative tolerance on the check of each line's X against FIRSTX + i·DELTAX,
-    /// as a fraction of one point spacing.
+    /// Tolerance on the check of each line's X against FIRSTX + i·DELTAX, as a
+    /// fraction of one point spacing (at least half an XFACTOR unit, the resolution
+    /// the abscissa is written at).
     pub x_check_tolerance: f64,
 }
 
@@ -105,7 +106,7 @@ impl TypedStage for ImportJcamp {
             Table::PeakTable => "the PEAK TABLE",
         };
         format!(
-            "Spectra were read from JCAMP-DX files [mcdonald1988] [lampen1994] ({t}), decoding compressed ordinates with their Y-check values verified and checking each line's abscissa against FIRSTX and DELTAX to within {} of a point spacing.",
+            "Spectra were read from JCAMP-DX files [mcdonald1988] [lampen1994] ({t}), decoding compressed ordinates with their Y-check values verified and checking each line's abscissa against FIRSTX and DELTAX to within {} of a point spacing (or half an XFACTOR unit).",
             o.x_check_tolerance
         )
     }
@@ -318,7 +319,9 @@ pub fn parse(name: &str, bytes: &[u8], o: &Options) -> Result<(Spectrum, Vec<Str
         for (line, start, xl) in &ys.line_x {
             let expect = firstx + step * *start as f64;
             let got = xl * xfactor;
-            if (got - expect).abs() > o.x_check_tolerance * step.abs() {
+            // The abscissa is written in XFACTOR units, so it may be rounded to half one.
+            let allowed = (o.x_check_tolerance * step.abs()).max(0.5 * xfactor.abs());
+            if (got - expect).abs() > allowed {
                 return Err(StageError::data(
                     name,
                     Some(*line),
@@ -778,5 +781,23 @@ mod tests {
         )
         .unwrap_err();
         assert!(e.to_string().contains(":7:"), "{e}");
+    }
+}
+
+#[cfg(test)]
+mod fuzz {
+    use super::*;
+    use proptest::prelude::*;
+
+    proptest! {
+        #![proptest_config(ProptestConfig::with_cases(400))]
+        // Never a panic: arbitrary text made of JCAMP-DX characters is either read or
+        // refused with a data error.
+        #[test]
+        fn arbitrary_jcamp_like_text_never_panics(body in "[0-9A-Za-z@%?+\\-., ;\n]{0,300}") {
+            let text = format!("##TITLE=f\n##FIRSTX=1\n##LASTX=20\n##XYDATA=(X++(Y..Y))\n{body}\n##END=\n");
+            let _ = parse("f.jdx", text.as_bytes(), &Options::default());
+            let _ = parse("g.jdx", body.as_bytes(), &Options::default());
+        }
     }
 }

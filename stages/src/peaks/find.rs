@@ -113,20 +113,30 @@ impl TypedStage for FindPeaks {
         let s = inputs.spectrum(0)?;
         crate::transform::grid::require_monotonic(s, 3)?;
         let y: Vec<f64> = match (o.subtract_background, crate::transform::grid::background(s)) {
-            (true, Some(b)) => {
-                s.y.iter()
-                    .zip(&b.y)
-                    .map(|(a, b)| if b.is_finite() { a - b } else { f64::NAN })
-                    .collect()
-            }
+            (true, Some(b)) => s.y.iter().zip(&b.y).map(|(a, b)| a - b).collect(),
             _ => s.y.clone(),
         };
-        // NaN (outside a background's range) can never be a peak: treat as −∞.
-        let y: Vec<f64> = y
-            .iter()
-            .map(|v| if v.is_nan() { f64::NEG_INFINITY } else { *v })
-            .collect();
-        let found = find_peaks(&s.x, &y, o);
+        // A background computed over a range is NaN outside it: search where it exists.
+        let first = y.iter().position(|v| v.is_finite());
+        let last = y.iter().rposition(|v| v.is_finite());
+        let (lo, hi) = match (first, last) {
+            (Some(a), Some(b)) if b >= a + 2 => (a, b),
+            _ => {
+                return Err(StageError::input(
+                    "fewer than 3 points where the background is defined",
+                ))
+            }
+        };
+        if y[lo..=hi].iter().any(|v| !v.is_finite()) {
+            return Err(StageError::input(
+                "the background has gaps inside its range",
+            ));
+        }
+        let mut found = find_peaks(&s.x[lo..=hi], &y[lo..=hi], o);
+        for p in &mut found {
+            p.index += lo;
+        }
+        found.retain(|p| p.position.is_finite() && p.prominence.is_finite() && p.fwhm.is_finite());
         let mut a = Artifact::new(Value::Summary);
         a.record(Record::number("peak_count", found.len() as f64, None, ""));
         for (k, p) in found.iter().enumerate() {
