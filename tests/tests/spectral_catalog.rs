@@ -98,5 +98,5 @@ fn methods_sentences_state_the_defaults() {
     let s = stages::find("smooth.savitzky_golay").unwrap();
     let c = s.resolve_options(&serde_json::Value::Null).unwrap();
     let m = s.methods(&c);
-    assert!(m.contains("11-point, order-2"), "{m}");
+    assert!(m.contains("window of 11 points, polynomial order 2"), "{m}");
 }

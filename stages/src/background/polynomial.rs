@@ -75,7 +75,7 @@ impl TypedStage for PolynomialBackground {
 
     fn methods(&self, o: &Options) -> String {
         format!(
-            "An order-{} polynomial background was fitted {} by iterative exclusion of the points above the fit [lieber2003], stopping when the fit changed by at most {} of the intensity range or after {} iterations.",
+            "An order-{} polynomial background was fitted {} by iterative exclusion of the points above the fit [lieber2003], stopping when the fit changed by at most {:e} of the intensity range or after {} iterations.",
             o.order,
             range_text(o.range),
             o.tolerance,

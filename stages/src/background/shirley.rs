@@ -92,7 +92,7 @@ impl TypedStage for ShirleyBackground {
 
     fn methods(&self, o: &Options) -> String {
         format!(
-            "An iterative Shirley background [shirley1972] [proctor1982] was computed {}, with end intensities averaged over {} points, {}, iterated until it changed by at most {} of the step height (at most {} iterations).",
+            "An iterative Shirley background [shirley1972] [proctor1982] was computed {}, with end intensities averaged over {} points, {}, iterated until it changed by at most {:e} of the step height (at most {} iterations).",
             range_text(o.range),
             o.end_points,
             o.side.describe(),

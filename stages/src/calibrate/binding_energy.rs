@@ -74,15 +74,15 @@ impl TypedStage for CalibrateBindingEnergy {
     }
 
     fn methods(&self, o: &Options) -> String {
-        let src = o
-            .source
-            .as_ref()
-            .map_or("(not given)".to_string(), |s| s.describe(EXCITATION));
+        let src = match &o.source {
+            Some(Target::Value(v)) => format!("{v} eV"),
+            Some(t) => t.describe(EXCITATION),
+            None => "(not given)".to_string(),
+        };
         format!(
-            "Kinetic energies were converted to binding energies as BE = hν − KE − φ [briggs1990] with hν = {src} eV and a spectrometer work function φ = {} eV.",
+            "Kinetic energies were converted to binding energies as BE = hν − KE − φ [briggs1990] with hν = {src} and a spectrometer work function φ = {} eV.",
             o.work_function.map_or("(not given)".to_string(), |w| w.to_string())
         )
-        .replace("eV) eV", "eV)")
     }
 
     fn run(&self, inputs: &Inputs, o: &Options) -> Result<Artifact, StageError> {

@@ -109,7 +109,7 @@ impl TypedStage for SavitzkyGolay {
             _ => "differentiated (second derivative, per unit x squared)".to_string(),
         };
         format!(
-            "Spectra were {what} with a {}-point, order-{} Savitzky–Golay filter [savitzky1964] [steinier1972], the polynomial fitted to the first and last windows being evaluated at the edge points.",
+            "Spectra were {what} with a Savitzky–Golay filter (window of {} points, polynomial order {}) [savitzky1964] [steinier1972], the polynomial fitted to the first and last windows being evaluated at the edge points.",
             o.window, o.order
         )
     }
