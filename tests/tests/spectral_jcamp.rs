@@ -232,3 +232,22 @@ fn peak_table_and_xypoints_and_bad_counts() {
         "{e}"
     );
 }
+
+#[test]
+fn nmr_file_in_hz_converts_to_ppm_with_the_observe_frequency() {
+    // JCAMP-DX NMR (Davies & Lampen 1993): XUNITS=HZ with ##.OBSERVE FREQUENCY= in MHz.
+    // 2904 Hz at 400 MHz is 7.26 ppm (δ = Δν/ν₀).
+    let text = "##TITLE=proton\n##JCAMP-DX=5.01\n##DATA TYPE=NMR SPECTRUM\n##.OBSERVE FREQUENCY=400.0\n##.OBSERVE NUCLEUS=^1H\n##XUNITS=HZ\n##YUNITS=ARBITRARY UNITS\n##FIRSTX=2900\n##LASTX=2908\n##NPOINTS=5\n##XYDATA=(X++(Y..Y))\n2900 1 5 20 5 1\n##END=\n";
+    let a = decode(text).unwrap();
+    let s = a.spectrum().unwrap();
+    assert_eq!(s.metadata["observe_frequency_mhz"], "400");
+    let c = run(
+        "convert.axis",
+        &[&a],
+        serde_json::json!({ "to": "chemical_shift" }),
+    )
+    .unwrap();
+    let s = c.spectrum().unwrap();
+    assert!((s.x[2] - 7.26).abs() < 1e-12, "{}", s.x[2]);
+    assert_eq!(s.x_axis, stages::Axis::new("chemical shift", "ppm"));
+}

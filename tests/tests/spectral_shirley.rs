@@ -179,3 +179,51 @@ fn tougaard_recovers_the_constructed_background_with_given_and_fitted_b() {
         .y;
     assert!(max_abs_diff(bg, &truth) < 1e-6);
 }
+
+#[test]
+fn xps_chain_import_reference_background_and_area() {
+    // A full chain through the registered stages: delimited text (binding energy,
+    // counts) → charge referencing to adventitious C 1s (284.8 eV, common practice) →
+    // Shirley background → area with the background subtracted. By construction
+    // y − B = p, so the area must equal ∫p (Simpson reference with 2000 sub-intervals).
+    let (x, y, _) = shirley_data();
+    // The main peak sits at 285.0 eV; recorded 0.6 eV high (charging).
+    let mut text = String::from("# synthetic XPS region\nBinding Energy (eV),Counts\n");
+    for (xv, yv) in x.iter().zip(&y).rev() {
+        text.push_str(&format!("{:.2},{yv:.10}\n", xv + 0.6));
+    }
+    let f = file("c1s.csv", &text);
+    let raw = run("import.delimited", &[&f], serde_json::json!({})).unwrap();
+    let s = raw.spectrum().unwrap();
+    assert!(s.sigma.is_some(), "Poisson σ attached for counts");
+    assert_eq!(s.x_axis, stages::Axis::new("Binding Energy", "eV"));
+    let charged = run(
+        "calibrate.shift",
+        &[&raw],
+        serde_json::json!({ "near": 285.6, "window": 0.5, "to": "adventitious_c1s" }),
+    )
+    .unwrap();
+    let shift = charged.result("shift").unwrap().as_number().unwrap();
+    // The peak is recorded at 285.6 eV, but the maximum of y = p + B sits higher: to
+    // first order a slope B' moves the maximum of a peak with curvature p'' by
+    // B'/|p''|, with B' = (I₁ − I₀)·p(285)/∫p (Shirley) and p'' = −1000/0.6² counts/eV²
+    // (about 0.053 eV here). The shift to 284.8 eV is then −0.8 eV − B'/|p''|, to
+    // within 3 meV (second-order terms and parabolic refinement on a 0.05 eV grid).
+    let slope = 300.0 * peaks(285.0) / peak_integral(280.0, 295.0);
+    let curvature = 1000.0 / 0.36;
+    let expect = -0.8 - slope / curvature;
+    assert!((shift - expect).abs() < 3e-3, "{shift} vs {expect}");
+    let bg = run("background.shirley", &[&charged], serde_json::json!({})).unwrap();
+    let area = run(
+        "integrate.area",
+        &[&bg],
+        serde_json::json!({ "background": "required" }),
+    )
+    .unwrap();
+    let v = area.result("area").unwrap().as_number().unwrap();
+    let exact = peak_integral(280.0, 295.0);
+    // Stated tolerance 1e-4 relative (the Shirley recovery tolerance above).
+    assert!((v / exact - 1.0).abs() < 1e-4, "{v} vs {exact}");
+    assert!(area.result("area").unwrap().uncertainty.is_some());
+    assert_eq!(area.result("area").unwrap().unit, "counts·eV");
+}
