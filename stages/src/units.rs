@@ -62,6 +62,10 @@ impl Quantity {
     pub fn detect(quantity: &str, unit: &str) -> Option<Quantity> {
         let u = unit.trim().to_ascii_lowercase();
         let q = quantity.to_ascii_lowercase();
+        // Electron energies (photoelectron spectra) are not photon energies.
+        if q.contains("binding") || q.contains("kinetic") {
+            return None;
+        }
         match u.as_str() {
             "nm" => return Some(Quantity::Wavelength),
             "ev" => return Some(Quantity::Energy),
@@ -205,6 +209,19 @@ mod tests {
                 assert!((d.abs() - j).abs() < 1e-6 * j, "{a:?}->{b:?}");
             }
         }
+    }
+
+    #[test]
+    fn electron_energies_are_not_photon_energies() {
+        assert_eq!(Quantity::detect("binding energy", "eV"), None);
+        assert_eq!(
+            Quantity::detect("photon energy", "eV"),
+            Some(Quantity::Energy)
+        );
+        assert_eq!(
+            Quantity::detect("Wavelength", ""),
+            Some(Quantity::Wavelength)
+        );
     }
 
     #[test]

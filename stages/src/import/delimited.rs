@@ -203,9 +203,13 @@ fn read_grid(name: &str, bytes: &[u8], o: &Options) -> Result<Grid, StageError> 
     }
     // The first line whose first field reads as a number starts the data; the line
     // just above it is the header; anything above that is a preamble.
+    // The first token (split at any delimiter) of a data line reads as a number,
+    // whatever the decimal mark ("2theta" or "Title" do not).
     let numeric_start = |l: &str| {
-        let t = l.trim_start().trim_start_matches('"');
-        t.starts_with(|c: char| c.is_ascii_digit() || c == '-' || c == '+' || c == '.')
+        l.split(|c: char| c == ',' || c == ';' || c.is_whitespace())
+            .map(|t| t.trim().trim_matches('"'))
+            .find(|t| !t.is_empty())
+            .is_some_and(|t| t.parse::<f64>().is_ok())
     };
     let data_from = lines
         .iter()
@@ -664,6 +668,19 @@ mod more_tests {
             parse("p.csv", b"x,counts\n1,4\n2,9\n", &o).unwrap().sigma,
             None
         );
+    }
+
+    #[test]
+    fn header_starting_with_a_digit_below_a_title() {
+        let s = parse(
+            "x.csv",
+            b"Film 3\n2theta (deg),counts\n10.0,5\n10.1,7\n",
+            &Options::default(),
+        )
+        .unwrap();
+        assert_eq!(s.x, vec![10.0, 10.1]);
+        assert_eq!(s.x_axis, Axis::new("2theta", "deg"));
+        assert_eq!(s.metadata["preamble"], "Film 3");
     }
 
     #[test]
