@@ -334,6 +334,16 @@ pub fn parse(name: &str, bytes: &[u8], o: &Options) -> Result<(Spectrum, Vec<Str
         }
         let x: Vec<f64> = (0..n).map(|i| firstx + step * i as f64).collect();
         let y: Vec<f64> = ys.values.iter().map(|v| v * yfactor).collect();
+        // ##FIRSTY= is the first ordinate in real units; writers round it, so a
+        // disagreement beyond one YFACTOR unit is reported, not fatal.
+        if let Some(fy) = num("FIRSTY")? {
+            if (fy - y[0]).abs() > yfactor.abs() * (1.0 + 1e-9) + 1e-9 * fy.abs() {
+                warnings.push(format!(
+                    "##FIRSTY= {fy} differs from the first decoded ordinate {} (check YFACTOR)",
+                    y[0]
+                ));
+            }
+        }
         (x, y)
     } else {
         let form = table.value.replace(' ', "").to_ascii_uppercase();
@@ -758,6 +768,17 @@ mod tests {
         assert_eq!(s.y, vec![10.0, 20.0, 30.0]);
         assert_eq!(s.metadata["observe_frequency_mhz"], "400.13");
         assert_eq!(s.x_axis.quantity, "frequency offset");
+    }
+
+    #[test]
+    fn firsty_disagreement_is_a_warning() {
+        let text =
+            format!("{HEAD}##FIRSTY=0.5\n##XYDATA=(X++(Y..Y))\n100A0JTj@%\n105@B5k2\n##END=\n");
+        let (_, w) = read(&text).unwrap();
+        assert!(w.iter().any(|m| m.contains("FIRSTY")), "{w:?}");
+        let text =
+            format!("{HEAD}##FIRSTY=0.010\n##XYDATA=(X++(Y..Y))\n100A0JTj@%\n105@B5k2\n##END=\n");
+        assert!(read(&text).unwrap().1.is_empty());
     }
 
     #[test]
