@@ -33,10 +33,12 @@ fn parse_table(text: &str) -> Result<Vec<ReferenceValue>, String> {
                 rec.len()
             ));
         }
-        let value: f64 = rec[2]
-            .trim()
-            .parse()
-            .map_err(|_| format!("reference_energies.csv:{line}: value '{}' is not a number", &rec[2]))?;
+        let value: f64 = rec[2].trim().parse().map_err(|_| {
+            format!(
+                "reference_energies.csv:{line}: value '{}' is not a number",
+                &rec[2]
+            )
+        })?;
         out.push(ReferenceValue {
             name: rec[0].trim().to_string(),
             kind: rec[1].trim().to_string(),
@@ -70,7 +72,9 @@ pub fn table_error() -> Option<&'static str> {
 
 /// The row with this name (case-insensitive).
 pub fn lookup(name: &str) -> Option<&'static ReferenceValue> {
-    table().iter().find(|r| r.name.eq_ignore_ascii_case(name.trim()))
+    table()
+        .iter()
+        .find(|r| r.name.eq_ignore_ascii_case(name.trim()))
 }
 
 /// The row with this name and one of the given kinds, or an error listing the names

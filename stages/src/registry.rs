@@ -132,9 +132,7 @@ mod tests {
             assert!(!info.summary.is_empty(), "{} has no summary", info.name);
             assert!(info.version >= 1, "{} version must start at 1", info.name);
             // The default options must be valid and give a methods sentence.
-            let canonical = s
-                .resolve_options(&serde_json::Value::Null)
-                .or_else(|_| Err(()));
+            let canonical = s.resolve_options(&serde_json::Value::Null).map_err(|_| ());
             if let Ok(c) = canonical {
                 let m = s.methods(&c);
                 assert!(

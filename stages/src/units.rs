@@ -62,6 +62,10 @@ impl Quantity {
     pub fn detect(quantity: &str, unit: &str) -> Option<Quantity> {
         let u = unit.trim().to_ascii_lowercase();
         let q = quantity.to_ascii_lowercase();
+        // Electron energies (photoelectron spectra) are not photon energies.
+        if q.contains("binding") || q.contains("kinetic") {
+            return None;
+        }
         match u.as_str() {
             "nm" => return Some(Quantity::Wavelength),
             "ev" => return Some(Quantity::Energy),
@@ -181,8 +185,8 @@ mod tests {
     #[test]
     fn hc_matches_codata_2018() {
         // NIST CODATA 2018: hc = 1239.841 984... eV nm (exact).
-        assert!((HC_EV_NM - 1239.841_984).abs() < 1e-6);
-        assert!((ev_from_nm(1.0) - 1239.841_984).abs() < 1e-6);
+        assert!((HC_EV_NM - 1_239.841_984).abs() < 1e-6);
+        assert!((ev_from_nm(1.0) - 1_239.841_984).abs() < 1e-6);
     }
 
     #[test]
@@ -205,6 +209,19 @@ mod tests {
                 assert!((d.abs() - j).abs() < 1e-6 * j, "{a:?}->{b:?}");
             }
         }
+    }
+
+    #[test]
+    fn electron_energies_are_not_photon_energies() {
+        assert_eq!(Quantity::detect("binding energy", "eV"), None);
+        assert_eq!(
+            Quantity::detect("photon energy", "eV"),
+            Some(Quantity::Energy)
+        );
+        assert_eq!(
+            Quantity::detect("Wavelength", ""),
+            Some(Quantity::Wavelength)
+        );
     }
 
     #[test]

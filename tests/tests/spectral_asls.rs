@@ -36,13 +36,23 @@ fn asls_recovers_the_known_background_through_the_stage() {
     let y = floats(&d["y"]);
     let truth = floats(&d["true_background"]);
     let a = spectrum(x, y.clone(), "wavenumber", "cm-1", "intensity", "");
-    let out = run("background.asls", &[&a], serde_json::json!({ "lambda": 1e6, "p": 0.01 })).unwrap();
+    let out = run(
+        "background.asls",
+        &[&a],
+        serde_json::json!({ "lambda": 1e6, "p": 0.01 }),
+    )
+    .unwrap();
     let s = out.spectrum().unwrap();
     assert_eq!(s.y, y, "a background stage never changes y");
     let bg = &s.curve(stages::CurveRole::Background).unwrap().y;
     let err = max_abs_diff(bg, &truth);
     eprintln!("AsLS max deviation from the true background: {err}");
     assert!(err < 1.5, "max deviation {err}");
-    let mean = bg.iter().zip(&truth).map(|(a, b)| (a - b).abs()).sum::<f64>() / bg.len() as f64;
+    let mean = bg
+        .iter()
+        .zip(&truth)
+        .map(|(a, b)| (a - b).abs())
+        .sum::<f64>()
+        / bg.len() as f64;
     assert!(mean < 0.3, "mean deviation {mean}");
 }

@@ -11,7 +11,11 @@ fn ordinates() -> Vec<i64> {
     (0..137i64)
         .map(|i| {
             let peak = (1000.0 * (-((i - 60) as f64).powi(2) / 200.0).exp()).round() as i64;
-            let ramp = if (90..110).contains(&i) { 7 * (i - 90) } else { 0 };
+            let ramp = if (90..110).contains(&i) {
+                7 * (i - 90)
+            } else {
+                0
+            };
             peak + ramp - 300 + if i > 120 { 12345 } else { 0 }
         })
         .collect()
@@ -34,11 +38,21 @@ fn lead(v: i64, pos: &[char; 9], neg: &[char; 9], zero: char) -> String {
 }
 
 fn sqz(v: i64) -> String {
-    lead(v, &['A', 'B', 'C', 'D', 'E', 'F', 'G', 'H', 'I'], &['a', 'b', 'c', 'd', 'e', 'f', 'g', 'h', 'i'], '@')
+    lead(
+        v,
+        &['A', 'B', 'C', 'D', 'E', 'F', 'G', 'H', 'I'],
+        &['a', 'b', 'c', 'd', 'e', 'f', 'g', 'h', 'i'],
+        '@',
+    )
 }
 
 fn dif(v: i64) -> String {
-    lead(v, &['J', 'K', 'L', 'M', 'N', 'O', 'P', 'Q', 'R'], &['j', 'k', 'l', 'm', 'n', 'o', 'p', 'q', 'r'], '%')
+    lead(
+        v,
+        &['J', 'K', 'L', 'M', 'N', 'O', 'P', 'Q', 'R'],
+        &['j', 'k', 'l', 'm', 'n', 'o', 'p', 'q', 'r'],
+        '%',
+    )
 }
 
 fn dup(n: usize) -> String {
@@ -117,7 +131,10 @@ fn file_text(y: &[i64], form: Form) -> String {
     t.push_str("##JCAMP-DX=5.01\n##DATA TYPE=UV/VIS SPECTRUM\n");
     t.push_str("##XUNITS=NANOMETERS\n##YUNITS=ABSORBANCE\n");
     t.push_str("##XFACTOR=0.5\n##YFACTOR=0.01\n");
-    t.push_str(&format!("##FIRSTX=400\n##LASTX={}\n##DELTAX=0.5\n", 400.0 + 0.5 * (y.len() - 1) as f64));
+    t.push_str(&format!(
+        "##FIRSTX=400\n##LASTX={}\n##DELTAX=0.5\n",
+        400.0 + 0.5 * (y.len() - 1) as f64
+    ));
     t.push_str(&format!("##NPOINTS={}\n", y.len()));
     t.push_str("##XYDATA=(X++(Y..Y))\n");
     for l in body(y, form) {
@@ -164,12 +181,20 @@ fn corrupted_y_check_is_reported_with_its_line() {
     let y = ordinates();
     let text = file_text(&y, Form::Dif);
     let lines: Vec<&str> = text.lines().collect();
-    let first_data = lines.iter().position(|l| l.starts_with("##XYDATA")).unwrap() + 1;
+    let first_data = lines
+        .iter()
+        .position(|l| l.starts_with("##XYDATA"))
+        .unwrap()
+        + 1;
     // The second data line opens with the Y-check value (SQZ) after its abscissa.
     let target = first_data + 1;
     let line = lines[target];
     let x_end = line.find(|c: char| !c.is_ascii_digit()).unwrap();
-    let check_end = x_end + 1 + line[x_end + 1..].find(|c: char| !c.is_ascii_digit()).unwrap_or(line.len() - x_end - 1);
+    let check_end = x_end
+        + 1
+        + line[x_end + 1..]
+            .find(|c: char| !c.is_ascii_digit())
+            .unwrap_or(line.len() - x_end - 1);
     let bad_check = y[PER_LINE - 1] + 1;
     let corrupted = format!("{}{}{}", &line[..x_end], sqz(bad_check), &line[check_end..]);
     let mut out: Vec<String> = lines.iter().map(|s| s.to_string()).collect();
@@ -177,7 +202,11 @@ fn corrupted_y_check_is_reported_with_its_line() {
     let e = decode(&(out.join("\n") + "\n")).unwrap_err();
     let line_no = target + 1; // 1-based
     match &e {
-        stages::StageError::Data { file, line, message } => {
+        stages::StageError::Data {
+            file,
+            line,
+            message,
+        } => {
             assert_eq!(file, "synthetic.jdx");
             assert_eq!(*line, Some(line_no), "{message}");
             assert!(message.contains("Y-check"), "{message}");
@@ -198,5 +227,27 @@ fn peak_table_and_xypoints_and_bad_counts() {
     let y = ordinates();
     let text = file_text(&y, Form::Sqz).replace("##NPOINTS=137", "##NPOINTS=138");
     let e = decode(&text).unwrap_err().to_string();
-    assert!(e.contains("synthetic.jdx:12:") && e.contains("NPOINTS"), "{e}");
+    assert!(
+        e.contains("synthetic.jdx:12:") && e.contains("NPOINTS"),
+        "{e}"
+    );
+}
+
+#[test]
+fn nmr_file_in_hz_converts_to_ppm_with_the_observe_frequency() {
+    // JCAMP-DX NMR (Davies & Lampen 1993): XUNITS=HZ with ##.OBSERVE FREQUENCY= in MHz.
+    // 2904 Hz at 400 MHz is 7.26 ppm (δ = Δν/ν₀).
+    let text = "##TITLE=proton\n##JCAMP-DX=5.01\n##DATA TYPE=NMR SPECTRUM\n##.OBSERVE FREQUENCY=400.0\n##.OBSERVE NUCLEUS=^1H\n##XUNITS=HZ\n##YUNITS=ARBITRARY UNITS\n##FIRSTX=2900\n##LASTX=2908\n##NPOINTS=5\n##XYDATA=(X++(Y..Y))\n2900 1 5 20 5 1\n##END=\n";
+    let a = decode(text).unwrap();
+    let s = a.spectrum().unwrap();
+    assert_eq!(s.metadata["observe_frequency_mhz"], "400");
+    let c = run(
+        "convert.axis",
+        &[&a],
+        serde_json::json!({ "to": "chemical_shift" }),
+    )
+    .unwrap();
+    let s = c.spectrum().unwrap();
+    assert!((s.x[2] - 7.26).abs() < 1e-12, "{}", s.x[2]);
+    assert_eq!(s.x_axis, stages::Axis::new("chemical shift", "ppm"));
 }

@@ -26,13 +26,27 @@ fn peaks_prominences_and_widths_match_scipy() {
             _ => panic!("peaks.find must give a peak list"),
         };
         let idx: Vec<u64> = list.peaks.iter().map(|p| p.index as u64).collect();
-        let expect: Vec<u64> = case["peaks"].as_array().unwrap().iter().map(|v| v.as_u64().unwrap()).collect();
+        let expect: Vec<u64> = case["peaks"]
+            .as_array()
+            .unwrap()
+            .iter()
+            .map(|v| v.as_u64().unwrap())
+            .collect();
         assert_eq!(idx, expect, "peak indices for {opts}");
         let prom: Vec<f64> = list.peaks.iter().map(|p| p.prominence).collect();
         let widths: Vec<f64> = list.peaks.iter().map(|p| p.fwhm).collect();
-        assert!(max_abs_diff(&prom, &floats(&case["prominences"])) < 1e-12, "prominences for {opts}");
-        assert!(max_abs_diff(&widths, &floats(&case["widths"])) < 1e-9, "widths for {opts}");
-        assert_eq!(out.result("peak_count").unwrap().as_number(), Some(expect.len() as f64));
+        assert!(
+            max_abs_diff(&prom, &floats(&case["prominences"])) < 1e-12,
+            "prominences for {opts}"
+        );
+        assert!(
+            max_abs_diff(&widths, &floats(&case["widths"])) < 1e-9,
+            "widths for {opts}"
+        );
+        assert_eq!(
+            out.result("peak_count").unwrap().as_number(),
+            Some(expect.len() as f64)
+        );
     }
 }
 
@@ -42,13 +56,24 @@ fn refined_position_of_a_sampled_gaussian() {
     // parabola through the top three samples locates it within 0.01 (the parabolic
     // vertex bias for σ = 4 samples is below 1 % of the spacing).
     let x: Vec<f64> = (0..100).map(|i| i as f64).collect();
-    let y: Vec<f64> = x.iter().map(|v| 10.0 * (-(v - 50.3f64).powi(2) / 32.0).exp()).collect();
+    let y: Vec<f64> = x
+        .iter()
+        .map(|v| 10.0 * (-(v - 50.3f64).powi(2) / 32.0).exp())
+        .collect();
     let a = spectrum(x, y, "x", "", "y", "");
-    let out = run("peaks.find", &[&a], serde_json::json!({ "min_prominence": 1.0 })).unwrap();
+    let out = run(
+        "peaks.find",
+        &[&a],
+        serde_json::json!({ "min_prominence": 1.0 }),
+    )
+    .unwrap();
     let p = out.result("peak1.position").unwrap().as_number().unwrap();
     assert!((p - 50.3).abs() < 0.01, "{p}");
     // FWHM of a Gaussian is 2√(2 ln 2) σ = 9.4190; linear interpolation of the
     // half-height crossings on unit spacing is within 0.05.
     let w = out.result("peak1.fwhm").unwrap().as_number().unwrap();
-    assert!((w - 2.0 * (2.0 * 2f64.ln()).sqrt() * 4.0).abs() < 0.05, "{w}");
+    assert!(
+        (w - 2.0 * (2.0 * 2f64.ln()).sqrt() * 4.0).abs() < 0.05,
+        "{w}"
+    );
 }

@@ -1,7 +1,7 @@
 //! Savitzky–Golay weights and filters against the published tables and scipy.
 mod spectral_common;
 use spectral_common::*;
-use stages::smooth::savitzky_golay::{sg_coefficients, savitzky_golay_delta};
+use stages::smooth::savitzky_golay::{savitzky_golay_delta, sg_coefficients};
 
 /// (window, order, derivative, integer convolutes, normaliser). Source: Savitzky &
 /// Golay, Anal. Chem. 1964, 36, 1627, Tables I–III (smoothing, first and second
@@ -11,14 +11,40 @@ use stages::smooth::savitzky_golay::{sg_coefficients, savitzky_golay_delta};
 const TABLES: &[(usize, usize, usize, &[f64], f64)] = &[
     (5, 2, 0, &[-3.0, 12.0, 17.0, 12.0, -3.0], 35.0),
     (7, 2, 0, &[-2.0, 3.0, 6.0, 7.0, 6.0, 3.0, -2.0], 21.0),
-    (9, 2, 0, &[-21.0, 14.0, 39.0, 54.0, 59.0, 54.0, 39.0, 14.0, -21.0], 231.0),
-    (11, 3, 0, &[-36.0, 9.0, 44.0, 69.0, 84.0, 89.0, 84.0, 69.0, 44.0, 9.0, -36.0], 429.0),
+    (
+        9,
+        2,
+        0,
+        &[-21.0, 14.0, 39.0, 54.0, 59.0, 54.0, 39.0, 14.0, -21.0],
+        231.0,
+    ),
+    (
+        11,
+        3,
+        0,
+        &[
+            -36.0, 9.0, 44.0, 69.0, 84.0, 89.0, 84.0, 69.0, 44.0, 9.0, -36.0,
+        ],
+        429.0,
+    ),
     (7, 4, 0, &[5.0, -30.0, 75.0, 131.0, 75.0, -30.0, 5.0], 231.0),
-    (9, 4, 0, &[15.0, -55.0, 30.0, 135.0, 179.0, 135.0, 30.0, -55.0, 15.0], 429.0),
+    (
+        9,
+        4,
+        0,
+        &[15.0, -55.0, 30.0, 135.0, 179.0, 135.0, 30.0, -55.0, 15.0],
+        429.0,
+    ),
     (5, 2, 1, &[-2.0, -1.0, 0.0, 1.0, 2.0], 10.0),
     (7, 2, 1, &[-3.0, -2.0, -1.0, 0.0, 1.0, 2.0, 3.0], 28.0),
     (5, 3, 1, &[1.0, -8.0, 0.0, 8.0, -1.0], 12.0),
-    (7, 3, 1, &[22.0, -67.0, -58.0, 0.0, 58.0, 67.0, -22.0], 252.0),
+    (
+        7,
+        3,
+        1,
+        &[22.0, -67.0, -58.0, 0.0, 58.0, 67.0, -22.0],
+        252.0,
+    ),
     (5, 2, 2, &[2.0, -1.0, -2.0, -1.0, 2.0], 7.0),
     (7, 2, 2, &[5.0, 0.0, -3.0, -4.0, -3.0, 0.0, 5.0], 42.0),
 ];
@@ -30,7 +56,11 @@ fn convolution_weights_match_the_published_tables() {
         // The second-derivative tables give the convolute for d²y/di² / 2! in some
         // printings; the entries above are the true second derivative weights ×norm.
         for (a, b) in c.iter().zip(ints) {
-            assert!((a - b / norm).abs() < 1e-13, "window {w} order {o} deriv {d}: {a} vs {}", b / norm);
+            assert!(
+                (a - b / norm).abs() < 1e-13,
+                "window {w} order {o} deriv {d}: {a} vs {}",
+                b / norm
+            );
         }
     }
 }
@@ -49,7 +79,10 @@ fn weights_match_scipy_savgol_coeffs() {
         let c = sg_coefficients(w, o, dv).unwrap();
         let expect = floats(&case["c"]);
         let err = max_abs_diff(&c, &expect);
-        assert!(err < 1e-12, "window {w} order {o} deriv {dv}: max diff {err}");
+        assert!(
+            err < 1e-12,
+            "window {w} order {o} deriv {dv}: max diff {err}"
+        );
     }
 }
 
@@ -73,7 +106,10 @@ fn filtered_signals_and_edges_match_scipy_mode_interp() {
         // Stated tolerance 1e-9 relative to the largest value: scipy fits the edge
         // windows with numpy.polyfit on unscaled offsets, and derivatives divide
         // rounding by δ^d (δ² = 0.0025).
-        assert!(err < 1e-9 * scale, "window {w} order {o} deriv {dv}: max diff {err} (scale {scale})");
+        assert!(
+            err < 1e-9 * scale,
+            "window {w} order {o} deriv {dv}: max diff {err} (scale {scale})"
+        );
         // The same through the registered stage (delta taken from the x grid).
         let a = spectrum(x.clone(), y.clone(), "energy", "eV", "intensity", "counts");
         let out = run(
@@ -84,6 +120,9 @@ fn filtered_signals_and_edges_match_scipy_mode_interp() {
         .unwrap();
         let s = out.spectrum().unwrap();
         let err = max_abs_diff(&s.y, &expect);
-        assert!(err < 1e-8 * scale, "stage: window {w} order {o} deriv {dv}: max diff {err}");
+        assert!(
+            err < 1e-8 * scale,
+            "stage: window {w} order {o} deriv {dv}: max diff {err}"
+        );
     }
 }

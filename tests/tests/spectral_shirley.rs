@@ -47,13 +47,26 @@ fn shirley_recovers_the_exact_background_on_ascending_and_descending_axes() {
     // of the algorithm's cumulative area on a 0.05 eV grid under 0.6 eV wide peaks
     // (measured: 0.034 counts, 10 iterations).
     let tol = 0.05;
-    let a = spectrum(x.clone(), y.clone(), "binding energy", "eV", "intensity", "counts");
+    let a = spectrum(
+        x.clone(),
+        y.clone(),
+        "binding energy",
+        "eV",
+        "intensity",
+        "counts",
+    );
     let out = run("background.shirley", &[&a], serde_json::json!({})).unwrap();
     let s = out.spectrum().unwrap();
     assert_eq!(s.y, y, "y unchanged");
     let bg = s.curve(stages::CurveRole::Background).unwrap().y.clone();
     let err = max_abs_diff(&bg, &truth);
-    eprintln!("Shirley (ascending BE): max deviation {err} counts, {} iterations", out.result("background.iterations").unwrap().as_number().unwrap());
+    eprintln!(
+        "Shirley (ascending BE): max deviation {err} counts, {} iterations",
+        out.result("background.iterations")
+            .unwrap()
+            .as_number()
+            .unwrap()
+    );
     assert!(err < tol, "ascending: {err}");
 
     // The same spectrum recorded high-to-low binding energy.
@@ -62,7 +75,12 @@ fn shirley_recovers_the_exact_background_on_ascending_and_descending_axes() {
     let tr: Vec<f64> = truth.iter().rev().copied().collect();
     let a = spectrum(xr, yr, "binding energy", "eV", "intensity", "counts");
     let out = run("background.shirley", &[&a], serde_json::json!({})).unwrap();
-    let bg = &out.spectrum().unwrap().curve(stages::CurveRole::Background).unwrap().y;
+    let bg = &out
+        .spectrum()
+        .unwrap()
+        .curve(stages::CurveRole::Background)
+        .unwrap()
+        .y;
     assert!(max_abs_diff(bg, &tr) < tol, "descending");
 
     // On a kinetic-energy axis (KE = 1486.6 − BE; ascending KE) the background rises
@@ -71,7 +89,12 @@ fn shirley_recovers_the_exact_background_on_ascending_and_descending_axes() {
     let yk: Vec<f64> = y.iter().rev().copied().collect();
     let a = spectrum(ke, yk, "kinetic energy", "eV", "intensity", "counts");
     let out = run("background.shirley", &[&a], serde_json::json!({})).unwrap();
-    let bg = &out.spectrum().unwrap().curve(stages::CurveRole::Background).unwrap().y;
+    let bg = &out
+        .spectrum()
+        .unwrap()
+        .curve(stages::CurveRole::Background)
+        .unwrap()
+        .y;
     assert!(max_abs_diff(bg, &tr) < tol, "kinetic energy");
 }
 
@@ -79,7 +102,12 @@ fn shirley_recovers_the_exact_background_on_ascending_and_descending_axes() {
 fn shirley_range_leaves_nan_outside() {
     let (x, y, _) = shirley_data();
     let a = spectrum(x, y, "binding energy", "eV", "intensity", "counts");
-    let out = run("background.shirley", &[&a], serde_json::json!({ "range": [282.0, 292.0] })).unwrap();
+    let out = run(
+        "background.shirley",
+        &[&a],
+        serde_json::json!({ "range": [282.0, 292.0] }),
+    )
+    .unwrap();
     let s = out.spectrum().unwrap();
     let bg = &s.curve(stages::CurveRole::Background).unwrap().y;
     for (xv, b) in s.x.iter().zip(bg) {
@@ -106,7 +134,11 @@ fn tougaard_data(b: f64) -> (Vec<f64>, Vec<f64>, Vec<f64>) {
             let h = x[m + 1] - x[m];
             let g0 = k(x[n] - x[m]) * (j[m] - i0);
             // The m + 1 = n term has K(0) = 0.
-            let g1 = if m + 1 == n { 0.0 } else { k(x[n] - x[m + 1]) * (j[m + 1] - i0) };
+            let g1 = if m + 1 == n {
+                0.0
+            } else {
+                k(x[n] - x[m + 1]) * (j[m + 1] - i0)
+            };
             acc += 0.5 * h * (g0 + g1);
         }
         j.push(i0 + f[n] + b * acc);
@@ -120,8 +152,18 @@ fn tougaard_recovers_the_constructed_background_with_given_and_fitted_b() {
     let (x, y, truth) = tougaard_data(2866.0);
     let a = spectrum(x, y, "binding energy", "eV", "intensity", "counts");
     // Given B: exact up to rounding (stated 1e-9 counts on a background of 100–400).
-    let out = run("background.tougaard", &[&a], serde_json::json!({ "b": 2866.0, "end_points": 1 })).unwrap();
-    let bg = &out.spectrum().unwrap().curve(stages::CurveRole::Background).unwrap().y;
+    let out = run(
+        "background.tougaard",
+        &[&a],
+        serde_json::json!({ "b": 2866.0, "end_points": 1 }),
+    )
+    .unwrap();
+    let bg = &out
+        .spectrum()
+        .unwrap()
+        .curve(stages::CurveRole::Background)
+        .unwrap()
+        .y;
     let err = max_abs_diff(bg, &truth);
     assert!(err < 1e-9, "given B: {err}");
     // Fitted B: the peaks have vanished at the loss end, so B = 2866 eV² is recovered
@@ -129,6 +171,59 @@ fn tougaard_recovers_the_constructed_background_with_given_and_fitted_b() {
     let out = run("background.tougaard", &[&a], serde_json::json!({})).unwrap();
     let bfit = out.result("background.b").unwrap().as_number().unwrap();
     assert!((bfit / 2866.0 - 1.0).abs() < 1e-9, "fitted B {bfit}");
-    let bg = &out.spectrum().unwrap().curve(stages::CurveRole::Background).unwrap().y;
+    let bg = &out
+        .spectrum()
+        .unwrap()
+        .curve(stages::CurveRole::Background)
+        .unwrap()
+        .y;
     assert!(max_abs_diff(bg, &truth) < 1e-6);
+}
+
+#[test]
+fn xps_chain_import_reference_background_and_area() {
+    // A full chain through the registered stages: delimited text (binding energy,
+    // counts) → charge referencing to adventitious C 1s (284.8 eV, common practice) →
+    // Shirley background → area with the background subtracted. By construction
+    // y − B = p, so the area must equal ∫p (Simpson reference with 2000 sub-intervals).
+    let (x, y, _) = shirley_data();
+    // The main peak sits at 285.0 eV; recorded 0.6 eV high (charging).
+    let mut text = String::from("# synthetic XPS region\nBinding Energy (eV),Counts\n");
+    for (xv, yv) in x.iter().zip(&y).rev() {
+        text.push_str(&format!("{:.2},{yv:.10}\n", xv + 0.6));
+    }
+    let f = file("c1s.csv", &text);
+    let raw = run("import.delimited", &[&f], serde_json::json!({})).unwrap();
+    let s = raw.spectrum().unwrap();
+    assert!(s.sigma.is_some(), "Poisson σ attached for counts");
+    assert_eq!(s.x_axis, stages::Axis::new("Binding Energy", "eV"));
+    let charged = run(
+        "calibrate.shift",
+        &[&raw],
+        serde_json::json!({ "near": 285.6, "window": 0.5, "to": "adventitious_c1s" }),
+    )
+    .unwrap();
+    let shift = charged.result("shift").unwrap().as_number().unwrap();
+    // The peak is recorded at 285.6 eV, but the maximum of y = p + B sits higher: to
+    // first order a slope B' moves the maximum of a peak with curvature p'' by
+    // B'/|p''|, with B' = (I₁ − I₀)·p(285)/∫p (Shirley) and p'' = −1000/0.6² counts/eV²
+    // (about 0.053 eV here). The shift to 284.8 eV is then −0.8 eV − B'/|p''|, to
+    // within 3 meV (second-order terms and parabolic refinement on a 0.05 eV grid).
+    let slope = 300.0 * peaks(285.0) / peak_integral(280.0, 295.0);
+    let curvature = 1000.0 / 0.36;
+    let expect = -0.8 - slope / curvature;
+    assert!((shift - expect).abs() < 3e-3, "{shift} vs {expect}");
+    let bg = run("background.shirley", &[&charged], serde_json::json!({})).unwrap();
+    let area = run(
+        "integrate.area",
+        &[&bg],
+        serde_json::json!({ "background": "required" }),
+    )
+    .unwrap();
+    let v = area.result("area").unwrap().as_number().unwrap();
+    let exact = peak_integral(280.0, 295.0);
+    // Stated tolerance 1e-4 relative (the Shirley recovery tolerance above).
+    assert!((v / exact - 1.0).abs() < 1e-4, "{v} vs {exact}");
+    assert!(area.result("area").unwrap().uncertainty.is_some());
+    assert_eq!(area.result("area").unwrap().unit, "counts·eV");
 }

@@ -88,7 +88,12 @@ impl TypedStage for AslsBackground {
         let w = in_range(s, o.range, 3)?;
         let r = asls(&w.y, o.lambda, o.p, o.max_iterations)?;
         let mut a = with_background(s, &w, "asymmetric least squares baseline", &r.baseline)?;
-        a.record(Record::number("background.iterations", r.iterations as f64, None, ""));
+        a.record(Record::number(
+            "background.iterations",
+            r.iterations as f64,
+            None,
+            "",
+        ));
         if !r.converged {
             a.warn(format!(
                 "the AsLS weights were still changing after {} iterations",
@@ -131,10 +136,18 @@ pub fn asls(y: &[f64], lambda: f64, p: f64, max_iter: usize) -> Result<AslsResul
             }
         }
         if !changed {
-            return Ok(AslsResult { baseline: z, iterations: it, converged: true });
+            return Ok(AslsResult {
+                baseline: z,
+                iterations: it,
+                converged: true,
+            });
         }
     }
-    Ok(AslsResult { baseline: z, iterations: max_iter, converged: false })
+    Ok(AslsResult {
+        baseline: z,
+        iterations: max_iter,
+        converged: false,
+    })
 }
 
 /// The three distinct diagonals of DᵀD for the (n−2)×n second-difference matrix D:
@@ -158,7 +171,12 @@ pub fn second_difference_gram(n: usize) -> (Vec<f64>, Vec<f64>, Vec<f64>) {
 
 /// Solves a symmetric positive-definite pentadiagonal system by banded LDLᵀ:
 /// main diagonal a0, first off-diagonal a1 (a1[i] = A[i][i+1]), second a2.
-pub fn solve_pentadiagonal(a0: &[f64], a1: &[f64], a2: &[f64], b: &[f64]) -> Result<Vec<f64>, StageError> {
+pub fn solve_pentadiagonal(
+    a0: &[f64],
+    a1: &[f64],
+    a2: &[f64],
+    b: &[f64],
+) -> Result<Vec<f64>, StageError> {
     let n = a0.len();
     let mut d = vec![0.0; n];
     // l1[i] = L[i][i−1], l2[i] = L[i][i−2].
@@ -182,7 +200,7 @@ pub fn solve_pentadiagonal(a0: &[f64], a1: &[f64], a2: &[f64], b: &[f64]) -> Res
         if i >= 2 {
             di -= l2[i] * l2[i] * d[i - 2];
         }
-        if !(di > 0.0) || !di.is_finite() {
+        if di.is_nan() || di <= 0.0 || !di.is_finite() {
             return Err(StageError::numeric(format!(
                 "the banded system is not positive definite (pivot {i} = {di})"
             )));
@@ -225,7 +243,11 @@ mod tests {
         // A random-ish SPD pentadiagonal matrix; compare with nalgebra's dense LU.
         let n = 9;
         let (d0, d1, d2) = second_difference_gram(n);
-        let a0: Vec<f64> = d0.iter().enumerate().map(|(i, v)| 3.0 * v + 1.0 + 0.1 * i as f64).collect();
+        let a0: Vec<f64> = d0
+            .iter()
+            .enumerate()
+            .map(|(i, v)| 3.0 * v + 1.0 + 0.1 * i as f64)
+            .collect();
         let a1: Vec<f64> = d1.iter().map(|v| 3.0 * v).collect();
         let a2: Vec<f64> = d2.iter().map(|v| 3.0 * v).collect();
         let b: Vec<f64> = (0..n).map(|i| (i as f64).sin() + 2.0).collect();

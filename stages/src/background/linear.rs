@@ -37,7 +37,8 @@ impl TypedStage for LinearBackground {
     const INFO: &'static StageInfo = &StageInfo {
         name: "background.linear",
         version: 1,
-        summary: "Straight-line background between the means of a few points at each end of a range",
+        summary:
+            "Straight-line background between the means of a few points at each end of a range",
         inputs: INPUTS,
         output: Kind::Spectrum,
         references: &[],
@@ -45,7 +46,10 @@ impl TypedStage for LinearBackground {
 
     fn check(&self, o: &Options) -> Result<(), OptionError> {
         if o.end_points == 0 {
-            return Err(OptionError::new("end_points", "at least 1 point at each end"));
+            return Err(OptionError::new(
+                "end_points",
+                "at least 1 point at each end",
+            ));
         }
         check_range("range", o.range)
     }
@@ -65,7 +69,16 @@ impl TypedStage for LinearBackground {
         let xu = &s.x_axis.unit;
         let yu = &s.y_axis.unit;
         let mut a = with_background(s, &w, "linear background", &b)?;
-        a.record(Record::number("background.slope", slope, None, &if xu.is_empty() { yu.clone() } else { format!("{yu}/{xu}") }));
+        a.record(Record::number(
+            "background.slope",
+            slope,
+            None,
+            &if xu.is_empty() {
+                yu.clone()
+            } else {
+                format!("{yu}/{xu}")
+            },
+        ));
         a.record(Record::number("background.intercept", icpt, None, yu));
         Ok(a)
     }

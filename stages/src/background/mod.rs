@@ -32,7 +32,9 @@ pub enum LossSide {
 impl LossSide {
     pub fn describe(self) -> &'static str {
         match self {
-            LossSide::Auto => "the loss side taken from the axis (high binding energy, low kinetic energy)",
+            LossSide::Auto => {
+                "the loss side taken from the axis (high binding energy, low kinetic energy)"
+            }
             LossSide::HighX => "the background rising towards high x",
             LossSide::LowX => "the background rising towards low x",
         }
@@ -48,7 +50,12 @@ pub struct Work {
 }
 
 /// Selects the points within `range` and orders them from the no-loss end.
-pub fn loss_ordered(s: &Spectrum, range: Option<[f64; 2]>, side: LossSide, min: usize) -> Result<Work, StageError> {
+pub fn loss_ordered(
+    s: &Spectrum,
+    range: Option<[f64; 2]>,
+    side: LossSide,
+    min: usize,
+) -> Result<Work, StageError> {
     require_monotonic(s, 2)?;
     let (lo, hi) = span(&s.x, range);
     let mut idx = indices_in(&s.x, lo, hi);
@@ -100,7 +107,12 @@ pub fn in_range(s: &Spectrum, range: Option<[f64; 2]>, min: usize) -> Result<Wor
 }
 
 /// A copy of `s` with the background `b` (values for `w.idx`, NaN elsewhere).
-pub fn with_background(s: &Spectrum, w: &Work, name: &str, b: &[f64]) -> Result<Artifact, StageError> {
+pub fn with_background(
+    s: &Spectrum,
+    w: &Work,
+    name: &str,
+    b: &[f64],
+) -> Result<Artifact, StageError> {
     if let Some(i) = b.iter().position(|v| !v.is_finite()) {
         return Err(StageError::numeric(format!(
             "the background is not finite at x = {}",

@@ -46,7 +46,11 @@ impl Default for Options {
 
 pub struct ShirleyBackground;
 
-static INPUTS: &[Port] = &[Port::each("spectrum", Kind::Spectrum, "a photoelectron spectrum")];
+static INPUTS: &[Port] = &[Port::each(
+    "spectrum",
+    Kind::Spectrum,
+    "a photoelectron spectrum",
+)];
 
 static REFS: &[Reference] = &[
     Reference {
@@ -72,9 +76,12 @@ impl TypedStage for ShirleyBackground {
 
     fn check(&self, o: &Options) -> Result<(), OptionError> {
         if o.end_points == 0 {
-            return Err(OptionError::new("end_points", "at least 1 point at each end"));
+            return Err(OptionError::new(
+                "end_points",
+                "at least 1 point at each end",
+            ));
         }
-        if !(o.tolerance > 0.0) {
+        if o.tolerance.is_nan() || o.tolerance <= 0.0 {
             return Err(OptionError::new("tolerance", "must be positive"));
         }
         if o.max_iterations == 0 {
@@ -85,7 +92,7 @@ impl TypedStage for ShirleyBackground {
 
     fn methods(&self, o: &Options) -> String {
         format!(
-            "An iterative Shirley background [shirley1972] [proctor1982] was computed {}, with end intensities averaged over {} points, {}, iterated until it changed by at most {} of the step height (at most {} iterations).",
+            "An iterative Shirley background [shirley1972] [proctor1982] was computed {}, with end intensities averaged over {} points, {}, iterated until it changed by at most {:e} of the step height (at most {} iterations).",
             range_text(o.range),
             o.end_points,
             o.side.describe(),
@@ -99,7 +106,12 @@ impl TypedStage for ShirleyBackground {
         let w = loss_ordered(s, o.range, o.side, (2 * o.end_points).max(3))?;
         let r = shirley(&w.x, &w.y, o.end_points, o.tolerance, o.max_iterations)?;
         let mut a = with_background(s, &w, "Shirley background", &r.background)?;
-        a.record(Record::number("background.iterations", r.iterations as f64, None, ""));
+        a.record(Record::number(
+            "background.iterations",
+            r.iterations as f64,
+            None,
+            "",
+        ));
         if !r.converged {
             a.warn(format!(
                 "the Shirley background had not converged after {} iterations",
@@ -120,17 +132,29 @@ pub struct ShirleyResult {
 
 /// Iterative Shirley background on points ordered from the no-loss end to the loss
 /// end (x in either direction; the trapezoid uses |Δx|).
-pub fn shirley(x: &[f64], y: &[f64], end_points: usize, tol: f64, max_iter: usize) -> Result<ShirleyResult, StageError> {
+pub fn shirley(
+    x: &[f64],
+    y: &[f64],
+    end_points: usize,
+    tol: f64,
+    max_iter: usize,
+) -> Result<ShirleyResult, StageError> {
     let n = y.len();
     if n < 3 || x.len() != n {
-        return Err(StageError::input("a Shirley background needs at least 3 points"));
+        return Err(StageError::input(
+            "a Shirley background needs at least 3 points",
+        ));
     }
     let i0 = mean_head(y, end_points);
     let i1 = mean_tail(y, end_points);
     let step = i1 - i0;
     let mut b = vec![i0; n];
     if step == 0.0 {
-        return Ok(ShirleyResult { background: b, iterations: 0, converged: true });
+        return Ok(ShirleyResult {
+            background: b,
+            iterations: 0,
+            converged: true,
+        });
     }
     let limit = tol * step.abs();
     let mut q = vec![0.0; n];
@@ -141,7 +165,7 @@ pub fn shirley(x: &[f64], y: &[f64], end_points: usize, tol: f64, max_iter: usiz
             q[k] = q[k - 1] + 0.5 * h * ((y[k] - b[k]) + (y[k - 1] - b[k - 1]));
         }
         let total = q[n - 1];
-        if !(total.abs() > 0.0) || !total.is_finite() {
+        if total == 0.0 || !total.is_finite() {
             return Err(StageError::numeric(
                 "the signal above the Shirley background integrates to zero: no peak in the range",
             ));
@@ -153,8 +177,16 @@ pub fn shirley(x: &[f64], y: &[f64], end_points: usize, tol: f64, max_iter: usiz
             b[k] = nb;
         }
         if change <= limit {
-            return Ok(ShirleyResult { background: b, iterations: it, converged: true });
+            return Ok(ShirleyResult {
+                background: b,
+                iterations: it,
+                converged: true,
+            });
         }
     }
-    Ok(ShirleyResult { background: b, iterations: max_iter, converged: false })
+    Ok(ShirleyResult {
+        background: b,
+        iterations: max_iter,
+        converged: false,
+    })
 }

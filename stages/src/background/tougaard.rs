@@ -54,7 +54,11 @@ impl Default for Options {
 
 pub struct TougaardBackground;
 
-static INPUTS: &[Port] = &[Port::each("spectrum", Kind::Spectrum, "a photoelectron spectrum on an eV axis")];
+static INPUTS: &[Port] = &[Port::each(
+    "spectrum",
+    Kind::Spectrum,
+    "a photoelectron spectrum on an eV axis",
+)];
 
 static REFS: &[Reference] = &[
     Reference {
@@ -88,7 +92,10 @@ impl TypedStage for TougaardBackground {
             }
         }
         if o.end_points == 0 {
-            return Err(OptionError::new("end_points", "at least 1 point at each end"));
+            return Err(OptionError::new(
+                "end_points",
+                "at least 1 point at each end",
+            ));
         }
         check_range("range", o.range)
     }
@@ -141,10 +148,18 @@ pub fn universal_k(t: f64, c: f64) -> f64 {
 }
 
 /// Tougaard background on points ordered from the no-loss end to the loss end.
-pub fn tougaard(x: &[f64], y: &[f64], b: Option<f64>, c: f64, end_points: usize) -> Result<TougaardResult, StageError> {
+pub fn tougaard(
+    x: &[f64],
+    y: &[f64],
+    b: Option<f64>,
+    c: f64,
+    end_points: usize,
+) -> Result<TougaardResult, StageError> {
     let n = y.len();
     if n < 3 || x.len() != n {
-        return Err(StageError::input("a Tougaard background needs at least 3 points"));
+        return Err(StageError::input(
+            "a Tougaard background needs at least 3 points",
+        ));
     }
     let i0 = mean_head(y, end_points);
     // F[k] = ∫ K(|x_k − x'|) (y(x') − I₀) dx' over points 0..=k (trapezoid).
@@ -165,7 +180,9 @@ pub fn tougaard(x: &[f64], y: &[f64], b: Option<f64>, c: f64, end_points: usize)
             let ft = mean_tail(&f, end_points);
             let yt = mean_tail(y, end_points) - i0;
             if ft == 0.0 || !ft.is_finite() {
-                return Err(StageError::numeric("the loss integral is zero: B cannot be fitted"));
+                return Err(StageError::numeric(
+                    "the loss integral is zero: B cannot be fitted",
+                ));
             }
             yt / ft
         }

@@ -13,7 +13,7 @@ use crate::value::{Artifact, Axis, Kind, Record, Value};
 use schemars::JsonSchema;
 use serde::{Deserialize, Serialize};
 
-#[derive(Clone, Debug, PartialEq, Serialize, Deserialize, JsonSchema)]
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize, JsonSchema, Default)]
 #[serde(deny_unknown_fields, default)]
 pub struct Options {
     /// Excitation energy hν: a number in eV or a source name (`al_ka`, `al_ka_mono`,
@@ -24,15 +24,6 @@ pub struct Options {
     /// calibration; 0 when kinetic energies are already referenced to the Fermi level).
     #[schemars(extend("x-unit" = "eV"))]
     pub work_function: Option<f64>,
-}
-
-impl Default for Options {
-    fn default() -> Self {
-        Options {
-            source: None,
-            work_function: None,
-        }
-    }
 }
 
 pub struct CalibrateBindingEnergy;
@@ -62,28 +53,36 @@ impl TypedStage for CalibrateBindingEnergy {
     };
 
     fn check(&self, o: &Options) -> Result<(), OptionError> {
-        let src = o
-            .source
-            .as_ref()
-            .ok_or_else(|| OptionError::new("source", "give the excitation energy (eV) or a source name such as al_ka_mono"))?;
-        src.resolve(EXCITATION).map_err(|m| OptionError::new("source", m))?;
+        let src = o.source.as_ref().ok_or_else(|| {
+            OptionError::new(
+                "source",
+                "give the excitation energy (eV) or a source name such as al_ka_mono",
+            )
+        })?;
+        src.resolve(EXCITATION)
+            .map_err(|m| OptionError::new("source", m))?;
         match o.work_function {
-            None => Err(OptionError::new("work_function", "give the spectrometer work function in eV")),
-            Some(w) if !w.is_finite() => Err(OptionError::new("work_function", "must be a finite number")),
+            None => Err(OptionError::new(
+                "work_function",
+                "give the spectrometer work function in eV",
+            )),
+            Some(w) if !w.is_finite() => {
+                Err(OptionError::new("work_function", "must be a finite number"))
+            }
             _ => Ok(()),
         }
     }
 
     fn methods(&self, o: &Options) -> String {
-        let src = o
-            .source
-            .as_ref()
-            .map_or("(not given)".to_string(), |s| s.describe(EXCITATION));
+        let src = match &o.source {
+            Some(Target::Value(v)) => format!("{v} eV"),
+            Some(t) => t.describe(EXCITATION),
+            None => "(not given)".to_string(),
+        };
         format!(
-            "Kinetic energies were converted to binding energies as BE = hν − KE − φ [briggs1990] with hν = {src} eV and a spectrometer work function φ = {} eV.",
+            "Kinetic energies were converted to binding energies as BE = hν − KE − φ [briggs1990] with hν = {src} and a spectrometer work function φ = {} eV.",
             o.work_function.map_or("(not given)".to_string(), |w| w.to_string())
         )
-        .replace("eV) eV", "eV)")
     }
 
     fn run(&self, inputs: &Inputs, o: &Options) -> Result<Artifact, StageError> {
@@ -109,7 +108,8 @@ impl TypedStage for CalibrateBindingEnergy {
         let mut out = s.clone();
         out.x = s.x.iter().map(|ke| binding_energy(hv, *ke, phi)).collect();
         out.x_axis = Axis::new("binding energy", "eV");
-        out.metadata.insert("excitation_energy_ev".into(), format!("{hv}"));
+        out.metadata
+            .insert("excitation_energy_ev".into(), format!("{hv}"));
         let mut a = Artifact::new(Value::Spectrum(out)).with_results(vec![
             Record::number("excitation_energy", hv, None, "eV"),
             Record::number("work_function", phi, None, "eV"),
@@ -140,7 +140,13 @@ mod tests {
             work_function: Some(4.5),
         };
         assert!(CalibrateBindingEnergy.check(&o).is_ok());
-        assert!(CalibrateBindingEnergy.methods(&o).contains("1253.6 eV (mg_ka)"), "{}", CalibrateBindingEnergy.methods(&o));
+        assert!(
+            CalibrateBindingEnergy
+                .methods(&o)
+                .contains("1253.6 eV (mg_ka)"),
+            "{}",
+            CalibrateBindingEnergy.methods(&o)
+        );
         let bad = Options {
             source: Some(Target::Named("adventitious_c1s".into())),
             work_function: Some(4.5),

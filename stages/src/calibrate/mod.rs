@@ -31,7 +31,11 @@ impl Target {
                     return Ok((v, String::new(), "given value".to_string()));
                 }
                 let r = reference::lookup_kind(n, kinds)?;
-                Ok((r.value, r.unit.clone(), format!("{} ({})", r.name, r.source)))
+                Ok((
+                    r.value,
+                    r.unit.clone(),
+                    format!("{} ({})", r.name, r.source),
+                ))
             }
         }
     }

@@ -48,7 +48,11 @@ impl Default for Options {
 
 pub struct CalibratePolynomial;
 
-static INPUTS: &[Port] = &[Port::each("spectrum", Kind::Spectrum, "the spectrum to calibrate")];
+static INPUTS: &[Port] = &[Port::each(
+    "spectrum",
+    Kind::Spectrum,
+    "the spectrum to calibrate",
+)];
 
 static REFS: &[Reference] = &[Reference {
     key: "golub2013",
@@ -68,7 +72,10 @@ impl TypedStage for CalibratePolynomial {
 
     fn check(&self, o: &Options) -> Result<(), OptionError> {
         if o.order > 5 {
-            return Err(OptionError::new("order", "polynomial order above 5 is not supported"));
+            return Err(OptionError::new(
+                "order",
+                "polynomial order above 5 is not supported",
+            ));
         }
         if o.pairs.len() < o.order + 1 {
             return Err(OptionError::new(
@@ -87,7 +94,7 @@ impl TypedStage for CalibratePolynomial {
                 .map_err(|m| OptionError::new(format!("pairs.{i}.true_value"), m))?;
         }
         if let Some(w) = o.refine_window {
-            if !(w > 0.0) {
+            if w.is_nan() || w <= 0.0 {
                 return Err(OptionError::new("refine_window", "must be positive"));
             }
         }
@@ -98,7 +105,13 @@ impl TypedStage for CalibratePolynomial {
         let pts: Vec<String> = o
             .pairs
             .iter()
-            .map(|p| format!("{} → {}", p.measured, p.true_value.describe(X_REFERENCE_KINDS)))
+            .map(|p| {
+                format!(
+                    "{} → {}",
+                    p.measured,
+                    p.true_value.describe(X_REFERENCE_KINDS)
+                )
+            })
             .collect();
         let refine = match o.refine_window {
             Some(w) => format!(", each measured position refined as the maximum within ±{w} by parabolic interpolation"),
@@ -122,7 +135,12 @@ impl TypedStage for CalibratePolynomial {
                 None => p.measured,
             };
             measured.push(m);
-            truth.push(p.true_value.resolve(X_REFERENCE_KINDS).map_err(StageError::input)?.0);
+            truth.push(
+                p.true_value
+                    .resolve(X_REFERENCE_KINDS)
+                    .map_err(StageError::input)?
+                    .0,
+            );
         }
         let poly = fit_polynomial(&measured, &truth, o.order)?;
         let mut out = s.clone();
@@ -149,7 +167,12 @@ impl TypedStage for CalibratePolynomial {
         }
         let dof = measured.len() as f64 - (o.order + 1) as f64;
         if dof > 0.0 {
-            recs.push(Record::number("residual_rms", (ss / measured.len() as f64).sqrt(), None, xu));
+            recs.push(Record::number(
+                "residual_rms",
+                (ss / measured.len() as f64).sqrt(),
+                None,
+                xu,
+            ));
         }
         let mut a = Artifact::new(Value::Spectrum(out)).with_results(recs);
         if dof == 0.0 {
@@ -181,11 +204,11 @@ impl Polynomial {
         for (k, a) in self.coef_u.iter().enumerate() {
             let f = a / self.scale.powi(k as i32);
             let mut binom = 1.0;
-            for j in 0..=k {
+            for (j, o) in out.iter_mut().enumerate().take(k + 1) {
                 if j > 0 {
                     binom = binom * (k + 1 - j) as f64 / j as f64;
                 }
-                out[j] += f * binom * (-self.shift).powi((k - j) as i32);
+                *o += f * binom * (-self.shift).powi((k - j) as i32);
             }
         }
         out
@@ -236,9 +259,15 @@ pub fn fit_polynomial_weighted(
         .ok_or_else(|| StageError::numeric("singular least-squares system"))?;
     let coef_u: Vec<f64> = sol.iter().copied().collect();
     if coef_u.iter().any(|c| !c.is_finite()) {
-        return Err(StageError::numeric("polynomial fit gave non-finite coefficients"));
+        return Err(StageError::numeric(
+            "polynomial fit gave non-finite coefficients",
+        ));
     }
-    Ok(Polynomial { shift, scale, coef_u })
+    Ok(Polynomial {
+        shift,
+        scale,
+        coef_u,
+    })
 }
 
 #[cfg(test)]
@@ -255,7 +284,9 @@ mod tests {
         assert!((c[0] - 0.5).abs() < 1e-9 && (c[1] - 1.002).abs() < 1e-12);
         let y2: Vec<f64> = x.iter().map(|v| 1.0 - 2.0 * v + 3e-4 * v * v).collect();
         let c = fit_polynomial(&x, &y2, 2).unwrap().coefficients();
-        assert!((c[0] - 1.0).abs() < 1e-8 && (c[1] + 2.0).abs() < 1e-10 && (c[2] - 3e-4).abs() < 1e-14);
+        assert!(
+            (c[0] - 1.0).abs() < 1e-8 && (c[1] + 2.0).abs() < 1e-10 && (c[2] - 3e-4).abs() < 1e-14
+        );
         assert!(fit_polynomial(&[1.0, 1.0], &[2.0, 3.0], 1).is_err());
     }
 }

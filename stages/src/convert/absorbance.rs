@@ -63,7 +63,9 @@ impl TypedStage for ConvertAbsorbance {
 
     fn methods(&self, o: &Options) -> String {
         let scale = match o.scale {
-            TransmittanceScale::Auto => "transmittance read as percent when so labelled and as a fraction otherwise",
+            TransmittanceScale::Auto => {
+                "transmittance read as percent when so labelled and as a fraction otherwise"
+            }
             TransmittanceScale::Fraction => "transmittance given as a fraction",
             TransmittanceScale::Percent => "transmittance given in percent",
         };
@@ -78,7 +80,10 @@ impl TypedStage for ConvertAbsorbance {
             TransmittanceScale::Auto => {
                 let u = s.y_axis.unit.to_ascii_lowercase();
                 let q = s.y_axis.quantity.to_ascii_lowercase();
-                u.contains('%') || u.contains("percent") || q.contains("%t") || q.contains("percent")
+                u.contains('%')
+                    || u.contains("percent")
+                    || q.contains("%t")
+                    || q.contains("percent")
             }
         };
         let div = if percent { 100.0 } else { 1.0 };

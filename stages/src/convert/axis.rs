@@ -112,7 +112,11 @@ impl Default for Options {
 
 pub struct ConvertAxis;
 
-static INPUTS: &[Port] = &[Port::each("spectrum", Kind::Spectrum, "the spectrum to convert")];
+static INPUTS: &[Port] = &[Port::each(
+    "spectrum",
+    Kind::Spectrum,
+    "the spectrum to convert",
+)];
 
 pub(crate) const CODATA: Reference = Reference {
     key: "codata2018",
@@ -144,7 +148,10 @@ impl TypedStage for ConvertAxis {
         }
         if let Some(f) = o.spectrometer_mhz {
             if !(f > 0.0 && f.is_finite()) {
-                return Err(OptionError::new("spectrometer_mhz", "must be a positive number"));
+                return Err(OptionError::new(
+                    "spectrometer_mhz",
+                    "must be a positive number",
+                ));
             }
         }
         Ok(())
@@ -270,12 +277,20 @@ mod tests {
 
     #[test]
     fn wavelength_to_energy_keeps_point_order() {
-        let s = spec(vec![400.0, 500.0, 600.0], vec![1.0, 2.0, 3.0], "wavelength", "nm");
+        let s = spec(
+            vec![400.0, 500.0, 600.0],
+            vec![1.0, 2.0, 3.0],
+            "wavelength",
+            "nm",
+        );
         let o = Options::default();
         let c = convert_spectrum(&s, &o).unwrap();
         // E = hc/λ (CODATA 2018): 1239.841984/400 = 3.09960496 eV.
-        assert!((c.x[0] - 1239.841_984 / 400.0).abs() < 1e-8);
-        assert!(c.x[0] > c.x[2], "descending energy from ascending wavelength");
+        assert!((c.x[0] - 1_239.841_984 / 400.0).abs() < 1e-8);
+        assert!(
+            c.x[0] > c.x[2],
+            "descending energy from ascending wavelength"
+        );
         assert_eq!(c.y, s.y);
         assert_eq!(c.x_axis, Axis::new("photon energy", "eV"));
     }
@@ -284,7 +299,10 @@ mod tests {
     fn jacobian_conserves_area() {
         // Gaussian band in wavelength; trapezoid areas before and after must agree.
         let x: Vec<f64> = (0..2001).map(|i| 300.0 + 0.2 * i as f64).collect();
-        let y: Vec<f64> = x.iter().map(|v| (-(v - 500.0f64).powi(2) / 800.0).exp()).collect();
+        let y: Vec<f64> = x
+            .iter()
+            .map(|v| (-(v - 500.0f64).powi(2) / 800.0).exp())
+            .collect();
         let s = spec(x, y, "wavelength", "nm");
         let o = Options {
             jacobian: true,
@@ -311,7 +329,8 @@ mod tests {
             ..Options::default()
         };
         assert!(convert_spectrum(&s, &o).is_err());
-        s.metadata.insert("observe_frequency_mhz".into(), "400".into());
+        s.metadata
+            .insert("observe_frequency_mhz".into(), "400".into());
         let c = convert_spectrum(&s, &o).unwrap();
         assert!((c.x[1] - 2904.0).abs() < 1e-9);
     }

@@ -151,15 +151,7 @@ impl TypedStage for ImportDelimited {
     }
 
     fn run(&self, inputs: &crate::stage::Inputs, o: &Options) -> Result<Artifact, StageError> {
-        let file = match &inputs.one(0)?.value {
-            Value::File(f) => f,
-            other => {
-                return Err(StageError::input(format!(
-                    "expected a file, got a {}",
-                    other.kind().name()
-                )))
-            }
-        };
+        let file = super::input_file(inputs)?;
         let spectrum = parse(&file.name, &file.bytes, o)?;
         let mut a = Artifact::new(Value::Spectrum(spectrum));
         if let Value::Spectrum(s) = &a.value {
@@ -211,9 +203,13 @@ fn read_grid(name: &str, bytes: &[u8], o: &Options) -> Result<Grid, StageError> 
     }
     // The first line whose first field reads as a number starts the data; the line
     // just above it is the header; anything above that is a preamble.
+    // The first token (split at any delimiter) of a data line reads as a number,
+    // whatever the decimal mark ("2theta" or "Title" do not).
     let numeric_start = |l: &str| {
-        let t = l.trim_start().trim_start_matches('"');
-        t.starts_with(|c: char| c.is_ascii_digit() || c == '-' || c == '+' || c == '.')
+        l.split(|c: char| c == ',' || c == ';' || c.is_whitespace())
+            .map(|t| t.trim().trim_matches('"'))
+            .find(|t| !t.is_empty())
+            .is_some_and(|t| t.parse::<f64>().is_ok())
     };
     let data_from = lines
         .iter()
@@ -247,7 +243,9 @@ fn read_grid(name: &str, bytes: &[u8], o: &Options) -> Result<Grid, StageError> 
             .collect()
     };
     let first = fields(body[0].1);
-    let has_header = first.iter().any(|f| parse_number(f, decimal_comma).is_none());
+    let has_header = first
+        .iter()
+        .any(|f| parse_number(f, decimal_comma).is_none());
     let header: Vec<String> = if has_header { first } else { Vec::new() };
     let preamble = lines[..head_from]
         .iter()
@@ -347,7 +345,11 @@ impl Grid {
             .map(|(_, f)| f.len())
             .min()
             .unwrap_or(0)
-            .max(self.header.len().min(self.rows.first().map_or(0, |r| r.1.len())))
+            .max(
+                self.header
+                    .len()
+                    .min(self.rows.first().map_or(0, |r| r.1.len())),
+            )
     }
 }
 
@@ -380,10 +382,17 @@ pub fn parse_all(name: &str, bytes: &[u8], o: &Options) -> Result<Vec<Spectrum>,
         Some(c) => Some(g.resolve(name, c, "sigma")?),
         None => g.sigma_column(),
     };
-    (0..g.width())
+    let ys: Vec<usize> = (0..g.width())
         .filter(|&i| i != xi && Some(i) != si)
-        .map(|yi| build(name, &g, o, yi))
-        .collect()
+        .collect();
+    if ys.is_empty() {
+        return Err(StageError::data(
+            name,
+            Some(g.header_line),
+            "no y column: every data line needs an x and at least one y value",
+        ));
+    }
+    ys.into_iter().map(|yi| build(name, &g, o, yi)).collect()
 }
 
 fn build(name: &str, g: &Grid, o: &Options, yi: usize) -> Result<Spectrum, StageError> {
@@ -396,7 +405,10 @@ fn build(name: &str, g: &Grid, o: &Options, yi: usize) -> Result<Spectrum, Stage
         return Err(StageError::data(
             name,
             None,
-            format!("a spectrum needs at least 2 data points, found {}", g.rows.len()),
+            format!(
+                "a spectrum needs at least 2 data points, found {}",
+                g.rows.len()
+            ),
         ));
     }
     // Check every row is wide enough before reading columns, so a short row is
@@ -625,19 +637,50 @@ mod more_tests {
 
     #[test]
     fn poisson_sigma_for_counts_and_sigma_column() {
-        let s = parse("p.csv", b"BE (eV),counts\n285,0\n284,16\n", &Options::default()).unwrap();
+        let s = parse(
+            "p.csv",
+            b"BE (eV),counts\n285,0\n284,16\n",
+            &Options::default(),
+        )
+        .unwrap();
         // σ = √max(counts, 1): floor 1 at zero counts, 4 at 16 counts.
         assert_eq!(s.sigma, Some(vec![1.0, 4.0]));
         assert_eq!(s.y_axis, Axis::new("intensity", "counts"));
-        let s = parse("q.csv", b"x,y,sigma\n1,5,0.5\n2,6,0.25\n", &Options::default()).unwrap();
+        let s = parse(
+            "q.csv",
+            b"x,y,sigma\n1,5,0.5\n2,6,0.25\n",
+            &Options::default(),
+        )
+        .unwrap();
         assert_eq!(s.sigma, Some(vec![0.5, 0.25]));
-        let all = parse_all("q.csv", b"x,y,sigma\n1,5,0.5\n2,6,0.25\n", &Options::default()).unwrap();
+        let all = parse_all(
+            "q.csv",
+            b"x,y,sigma\n1,5,0.5\n2,6,0.25\n",
+            &Options::default(),
+        )
+        .unwrap();
         assert_eq!(all.len(), 1);
         let o = Options {
             poisson_sigma: PoissonSigma::Off,
             ..Options::default()
         };
-        assert_eq!(parse("p.csv", b"x,counts\n1,4\n2,9\n", &o).unwrap().sigma, None);
+        assert_eq!(
+            parse("p.csv", b"x,counts\n1,4\n2,9\n", &o).unwrap().sigma,
+            None
+        );
+    }
+
+    #[test]
+    fn header_starting_with_a_digit_below_a_title() {
+        let s = parse(
+            "x.csv",
+            b"Film 3\n2theta (deg),counts\n10.0,5\n10.1,7\n",
+            &Options::default(),
+        )
+        .unwrap();
+        assert_eq!(s.x, vec![10.0, 10.1]);
+        assert_eq!(s.x_axis, Axis::new("2theta", "deg"));
+        assert_eq!(s.metadata["preamble"], "Film 3");
     }
 
     #[test]
@@ -645,5 +688,21 @@ mod more_tests {
         let s = parse("w.txt", b"1,5 2,5\n2,5 3,5\n", &Options::default()).unwrap();
         assert_eq!(s.x, vec![1.5, 2.5]);
         assert_eq!(s.y, vec![2.5, 3.5]);
+    }
+}
+
+#[cfg(test)]
+mod fuzz {
+    use super::*;
+    use proptest::prelude::*;
+
+    proptest! {
+        #![proptest_config(ProptestConfig::with_cases(400))]
+        // Never a panic on arbitrary delimited-looking text.
+        #[test]
+        fn arbitrary_text_never_panics(text in "[0-9a-z,;.\t \n#%()\\-e]{0,300}") {
+            let _ = parse("f.csv", text.as_bytes(), &Options::default());
+            let _ = parse_all("f.csv", text.as_bytes(), &Options::default());
+        }
     }
 }

@@ -43,8 +43,9 @@ pub enum Table {
 pub struct Options {
     /// Which data table to read.
     pub table: Table,
-    /// Relative tolerance on the check of each line's X against FIRSTX + i·DELTAX,
-    /// as a fraction of one point spacing.
+    /// Tolerance on the check of each line's X against FIRSTX + i·DELTAX, as a
+    /// fraction of one point spacing (at least half an XFACTOR unit, the resolution
+    /// the abscissa is written at).
     pub x_check_tolerance: f64,
 }
 
@@ -59,7 +60,11 @@ impl Default for Options {
 
 pub struct ImportJcamp;
 
-static INPUTS: &[Port] = &[Port::each("file", Kind::File, "a JCAMP-DX file (.jdx, .dx)")];
+static INPUTS: &[Port] = &[Port::each(
+    "file",
+    Kind::File,
+    "a JCAMP-DX file (.jdx, .dx)",
+)];
 
 static REFS: &[Reference] = &[
     Reference {
@@ -101,21 +106,13 @@ impl TypedStage for ImportJcamp {
             Table::PeakTable => "the PEAK TABLE",
         };
         format!(
-            "Spectra were read from JCAMP-DX files [mcdonald1988] [lampen1994] ({t}), decoding compressed ordinates with their Y-check values verified and checking each line's abscissa against FIRSTX and DELTAX to within {} of a point spacing.",
+            "Spectra were read from JCAMP-DX files [mcdonald1988] [lampen1994] ({t}), decoding compressed ordinates with their Y-check values verified and checking each line's abscissa against FIRSTX and DELTAX to within {} of a point spacing (or half an XFACTOR unit).",
             o.x_check_tolerance
         )
     }
 
     fn run(&self, inputs: &Inputs, o: &Options) -> Result<Artifact, StageError> {
-        let file = match &inputs.one(0)?.value {
-            Value::File(f) => f,
-            other => {
-                return Err(StageError::input(format!(
-                    "expected a file, got a {}",
-                    other.kind().name()
-                )))
-            }
-        };
+        let file = super::input_file(inputs)?;
         let (spectrum, warnings) = parse(&file.name, &file.bytes, o)?;
         let n = spectrum.len();
         let mut a = Artifact::new(Value::Spectrum(spectrum));
@@ -191,15 +188,39 @@ pub fn parse(name: &str, bytes: &[u8], o: &Options) -> Result<(Spectrum, Vec<Str
         .map(str::to_string)
         // Older files are often Latin-1: read bytes as code points rather than fail.
         .unwrap_or_else(|_| bytes.iter().map(|&b| b as char).collect());
-    let recs = records(name, &text)?;
+    let mut recs = records(name, &text)?;
+    let mut warnings = Vec::new();
+    if let Some(end) = recs.iter().position(|r| r.label == "END") {
+        if recs.len() > end + 1 {
+            warnings.push(format!(
+                "records after ##END= (line {}) were ignored: one spectrum per file",
+                recs[end].line
+            ));
+        }
+        recs.truncate(end);
+    }
     if recs.is_empty() {
-        return Err(StageError::data(name, None, "no labelled-data records: not a JCAMP-DX file"));
+        return Err(StageError::data(
+            name,
+            None,
+            "no labelled-data records: not a JCAMP-DX file",
+        ));
     }
     if recs[0].label != "TITLE" {
         return Err(StageError::data(
             name,
             Some(recs[0].line),
-            format!("the first record must be ##TITLE=, found ##{}=", recs[0].label),
+            format!(
+                "the first record must be ##TITLE=, found ##{}=",
+                recs[0].label
+            ),
+        ));
+    }
+    if let Some(b) = recs.iter().find(|r| r.label == "NTUPLES") {
+        return Err(StageError::data(
+            name,
+            Some(b.line),
+            "##NTUPLES= (multi-page data such as complex NMR FIDs) is not supported; export a single XYDATA spectrum",
         ));
     }
     if let Some(b) = recs.iter().find(|r| r.label == "BLOCKS") {
@@ -244,14 +265,16 @@ pub fn parse(name: &str, bytes: &[u8], o: &Options) -> Result<(Spectrum, Vec<Str
                 format!("no ##{}= data table in the file", wanted.join("=, ##")),
             )
         })?;
-    let mut warnings = Vec::new();
     let (x, y) = if table.label == "XYDATA" {
         let form = table.value.replace(' ', "").to_ascii_uppercase();
         if form != "(X++(Y..Y))" {
             return Err(StageError::data(
                 name,
                 Some(table.line),
-                format!("XYDATA form '{}' is not supported (only (X++(Y..Y)))", table.value),
+                format!(
+                    "XYDATA form '{}' is not supported (only (X++(Y..Y)))",
+                    table.value
+                ),
             ));
         }
         let req = |label: &str| -> Result<f64, StageError> {
@@ -296,7 +319,9 @@ pub fn parse(name: &str, bytes: &[u8], o: &Options) -> Result<(Spectrum, Vec<Str
         for (line, start, xl) in &ys.line_x {
             let expect = firstx + step * *start as f64;
             let got = xl * xfactor;
-            if (got - expect).abs() > o.x_check_tolerance * step.abs() {
+            // The abscissa is written in XFACTOR units, so it may be rounded to half one.
+            let allowed = (o.x_check_tolerance * step.abs()).max(0.5 * xfactor.abs());
+            if (got - expect).abs() > allowed {
                 return Err(StageError::data(
                     name,
                     Some(*line),
@@ -309,6 +334,16 @@ pub fn parse(name: &str, bytes: &[u8], o: &Options) -> Result<(Spectrum, Vec<Str
         }
         let x: Vec<f64> = (0..n).map(|i| firstx + step * i as f64).collect();
         let y: Vec<f64> = ys.values.iter().map(|v| v * yfactor).collect();
+        // ##FIRSTY= is the first ordinate in real units; writers round it, so a
+        // disagreement beyond one YFACTOR unit is reported, not fatal.
+        if let Some(fy) = num("FIRSTY")? {
+            if (fy - y[0]).abs() > yfactor.abs() * (1.0 + 1e-9) + 1e-9 * fy.abs() {
+                warnings.push(format!(
+                    "##FIRSTY= {fy} differs from the first decoded ordinate {} (check YFACTOR)",
+                    y[0]
+                ));
+            }
+        }
         (x, y)
     } else {
         let form = table.value.replace(' ', "").to_ascii_uppercase();
@@ -320,7 +355,10 @@ pub fn parse(name: &str, bytes: &[u8], o: &Options) -> Result<(Spectrum, Vec<Str
                 return Err(StageError::data(
                     name,
                     Some(table.line),
-                    format!("table form '{}' is not supported (only (XY..XY), (XYW..XYW))", table.value),
+                    format!(
+                        "table form '{}' is not supported (only (XY..XY), (XYW..XYW))",
+                        table.value
+                    ),
                 ))
             }
         };
@@ -333,7 +371,7 @@ pub fn parse(name: &str, bytes: &[u8], o: &Options) -> Result<(Spectrum, Vec<Str
                     .filter(|t| !t.is_empty())
                     .collect();
                 // Pairs may also be written as a whitespace-separated run: x, y  x, y.
-                if vals.len() % per != 0 {
+                if !vals.len().is_multiple_of(per) {
                     return Err(StageError::data(
                         name,
                         Some(*line),
@@ -360,7 +398,11 @@ pub fn parse(name: &str, bytes: &[u8], o: &Options) -> Result<(Spectrum, Vec<Str
             }
         }
         if x.is_empty() {
-            return Err(StageError::data(name, Some(table.line), "the table holds no points"));
+            return Err(StageError::data(
+                name,
+                Some(table.line),
+                "the table holds no points",
+            ));
         }
         (x, y)
     };
@@ -729,6 +771,17 @@ mod tests {
     }
 
     #[test]
+    fn firsty_disagreement_is_a_warning() {
+        let text =
+            format!("{HEAD}##FIRSTY=0.5\n##XYDATA=(X++(Y..Y))\n100A0JTj@%\n105@B5k2\n##END=\n");
+        let (_, w) = read(&text).unwrap();
+        assert!(w.iter().any(|m| m.contains("FIRSTY")), "{w:?}");
+        let text =
+            format!("{HEAD}##FIRSTY=0.010\n##XYDATA=(X++(Y..Y))\n100A0JTj@%\n105@B5k2\n##END=\n");
+        assert!(read(&text).unwrap().1.is_empty());
+    }
+
+    #[test]
     fn errors_never_panic() {
         for bad in [
             "",
@@ -744,7 +797,28 @@ mod tests {
         ] {
             assert!(read(bad).is_err(), "{bad:?} should fail");
         }
-        let e = read("##TITLE=x\n##FIRSTX=1\n##LASTX=9\n##NPOINTS=3\n##XYDATA=(X++(Y..Y))\n1 2 3\n5 4\n").unwrap_err();
+        let e = read(
+            "##TITLE=x\n##FIRSTX=1\n##LASTX=9\n##NPOINTS=3\n##XYDATA=(X++(Y..Y))\n1 2 3\n5 4\n",
+        )
+        .unwrap_err();
         assert!(e.to_string().contains(":7:"), "{e}");
+    }
+}
+
+#[cfg(test)]
+mod fuzz {
+    use super::*;
+    use proptest::prelude::*;
+
+    proptest! {
+        #![proptest_config(ProptestConfig::with_cases(400))]
+        // Never a panic: arbitrary text made of JCAMP-DX characters is either read or
+        // refused with a data error.
+        #[test]
+        fn arbitrary_jcamp_like_text_never_panics(body in "[0-9A-Za-z@%?+\\-., ;\n]{0,300}") {
+            let text = format!("##TITLE=f\n##FIRSTX=1\n##LASTX=20\n##XYDATA=(X++(Y..Y))\n{body}\n##END=\n");
+            let _ = parse("f.jdx", text.as_bytes(), &Options::default());
+            let _ = parse("g.jdx", body.as_bytes(), &Options::default());
+        }
     }
 }

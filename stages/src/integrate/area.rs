@@ -63,7 +63,11 @@ impl Default for Options {
 
 pub struct IntegrateArea;
 
-static INPUTS: &[Port] = &[Port::each("spectrum", Kind::Spectrum, "the spectrum to integrate")];
+static INPUTS: &[Port] = &[Port::each(
+    "spectrum",
+    Kind::Spectrum,
+    "the spectrum to integrate",
+)];
 
 static REFS: &[Reference] = &[
     Reference {
@@ -94,7 +98,10 @@ impl TypedStage for IntegrateArea {
     fn methods(&self, o: &Options) -> String {
         let rule = match o.rule {
             Rule::Trapezoid => "the composite trapezoidal rule".to_string(),
-            Rule::Simpson => "the composite Simpson rule for unequal spacing [shklov1960] [cartwright2017]".to_string(),
+            Rule::Simpson => {
+                "the composite Simpson rule for unequal spacing [shklov1960] [cartwright2017]"
+                    .to_string()
+            }
         };
         let range = match o.range {
             Some([a, b]) => format!("between {a} and {b}"),
@@ -115,13 +122,17 @@ impl TypedStage for IntegrateArea {
             BackgroundUse::None => None,
             BackgroundUse::Auto => background(s),
             BackgroundUse::Required => Some(background(s).ok_or_else(|| {
-                StageError::input("background: required, but the spectrum carries no background curve")
+                StageError::input(
+                    "background: required, but the spectrum carries no background curve",
+                )
             })?),
         };
         let (lo, hi) = span(&s.x, o.range);
         let mut idx = indices_in(&s.x, lo, hi);
         if idx.len() < 2 {
-            return Err(StageError::input(format!("fewer than 2 points between {lo} and {hi}")));
+            return Err(StageError::input(format!(
+                "fewer than 2 points between {lo} and {hi}"
+            )));
         }
         if s.x[idx[0]] > s.x[idx[idx.len() - 1]] {
             idx.reverse();
@@ -187,8 +198,10 @@ pub fn weights(x: &[f64], rule: Rule) -> Result<Vec<f64>, StageError> {
     if n < 2 {
         return Err(StageError::input("integration needs at least 2 points"));
     }
-    if x.windows(2).any(|w| !(w[1] > w[0])) {
-        return Err(StageError::input("x must be strictly increasing for integration"));
+    if x.windows(2).any(|w| w[1].is_nan() || w[1] <= w[0]) {
+        return Err(StageError::input(
+            "x must be strictly increasing for integration",
+        ));
     }
     let mut w = vec![0.0; n];
     if rule == Rule::Trapezoid || n == 2 {
@@ -200,7 +213,11 @@ pub fn weights(x: &[f64], rule: Rule) -> Result<Vec<f64>, StageError> {
         return Ok(w);
     }
     let intervals = n - 1;
-    let pairs_end = if intervals % 2 == 0 { n - 1 } else { n - 2 };
+    let pairs_end = if intervals.is_multiple_of(2) {
+        n - 1
+    } else {
+        n - 2
+    };
     let mut i = 0;
     while i + 2 <= pairs_end {
         let h0 = x[i + 1] - x[i];
@@ -211,7 +228,7 @@ pub fn weights(x: &[f64], rule: Rule) -> Result<Vec<f64>, StageError> {
         w[i + 2] += f * (2.0 - h0 / h1);
         i += 2;
     }
-    if intervals % 2 == 1 {
+    if !intervals.is_multiple_of(2) {
         // Last interval by the quadratic through the last three points.
         let h0 = x[n - 2] - x[n - 3];
         let h1 = x[n - 1] - x[n - 2];

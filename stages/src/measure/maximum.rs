@@ -39,7 +39,7 @@ impl TypedStage for Maximum {
 
     fn check(&self, o: &Options) -> Result<(), OptionError> {
         if let Some([a, b]) = o.range {
-            if !(a < b) {
+            if a.partial_cmp(&b) != Some(std::cmp::Ordering::Less) {
                 return Err(OptionError::new(
                     "range",
                     format!("range must be [low, high] with low < high (got [{a}, {b}])"),

@@ -54,7 +54,11 @@ impl Default for Options {
 
 pub struct FindPeaks;
 
-static INPUTS: &[Port] = &[Port::each("spectrum", Kind::Spectrum, "the spectrum to search")];
+static INPUTS: &[Port] = &[Port::each(
+    "spectrum",
+    Kind::Spectrum,
+    "the spectrum to search",
+)];
 
 static REFS: &[Reference] = &[
     Reference {
@@ -109,25 +113,58 @@ impl TypedStage for FindPeaks {
         let s = inputs.spectrum(0)?;
         crate::transform::grid::require_monotonic(s, 3)?;
         let y: Vec<f64> = match (o.subtract_background, crate::transform::grid::background(s)) {
-            (true, Some(b)) => s
-                .y
-                .iter()
-                .zip(&b.y)
-                .map(|(a, b)| if b.is_finite() { a - b } else { f64::NAN })
-                .collect(),
+            (true, Some(b)) => s.y.iter().zip(&b.y).map(|(a, b)| a - b).collect(),
             _ => s.y.clone(),
         };
-        // NaN (outside a background's range) can never be a peak: treat as −∞.
-        let y: Vec<f64> = y.iter().map(|v| if v.is_nan() { f64::NEG_INFINITY } else { *v }).collect();
-        let found = find_peaks(&s.x, &y, o);
+        // A background computed over a range is NaN outside it: search where it exists.
+        let first = y.iter().position(|v| v.is_finite());
+        let last = y.iter().rposition(|v| v.is_finite());
+        let (lo, hi) = match (first, last) {
+            (Some(a), Some(b)) if b >= a + 2 => (a, b),
+            _ => {
+                return Err(StageError::input(
+                    "fewer than 3 points where the background is defined",
+                ))
+            }
+        };
+        if y[lo..=hi].iter().any(|v| !v.is_finite()) {
+            return Err(StageError::input(
+                "the background has gaps inside its range",
+            ));
+        }
+        let mut found = find_peaks(&s.x[lo..=hi], &y[lo..=hi], o);
+        for p in &mut found {
+            p.index += lo;
+        }
+        found.retain(|p| p.position.is_finite() && p.prominence.is_finite() && p.fwhm.is_finite());
         let mut a = Artifact::new(Value::Summary);
         a.record(Record::number("peak_count", found.len() as f64, None, ""));
         for (k, p) in found.iter().enumerate() {
             let i = k + 1;
-            a.record(Record::number(format!("peak{i}.position"), p.position, None, &s.x_axis.unit));
-            a.record(Record::number(format!("peak{i}.height"), p.height, None, &s.y_axis.unit));
-            a.record(Record::number(format!("peak{i}.prominence"), p.prominence, None, &s.y_axis.unit));
-            a.record(Record::number(format!("peak{i}.fwhm"), p.fwhm, None, &s.x_axis.unit));
+            a.record(Record::number(
+                format!("peak{i}.position"),
+                p.position,
+                None,
+                &s.x_axis.unit,
+            ));
+            a.record(Record::number(
+                format!("peak{i}.height"),
+                p.height,
+                None,
+                &s.y_axis.unit,
+            ));
+            a.record(Record::number(
+                format!("peak{i}.prominence"),
+                p.prominence,
+                None,
+                &s.y_axis.unit,
+            ));
+            a.record(Record::number(
+                format!("peak{i}.fwhm"),
+                p.fwhm,
+                None,
+                &s.x_axis.unit,
+            ));
         }
         if found.is_empty() {
             a.warn("no peaks met the criteria");
@@ -190,7 +227,13 @@ pub fn prominence(y: &[f64], peak: usize) -> (f64, usize, usize) {
 }
 
 /// Fractional indices where y crosses `height` on each side of the peak, within its bases.
-pub fn crossings(y: &[f64], peak: usize, left_base: usize, right_base: usize, height: f64) -> (f64, f64) {
+pub fn crossings(
+    y: &[f64],
+    peak: usize,
+    left_base: usize,
+    right_base: usize,
+    height: f64,
+) -> (f64, f64) {
     let mut i = peak;
     while left_base < i && height < y[i] {
         i -= 1;
@@ -245,7 +288,12 @@ pub fn find_peaks(x: &[f64], y: &[f64], o: &Options) -> Vec<Peak> {
                 j += 1;
             }
         }
-        cand = cand.into_iter().zip(keep).filter(|(_, k)| *k).map(|(c, _)| c).collect();
+        cand = cand
+            .into_iter()
+            .zip(keep)
+            .filter(|(_, k)| *k)
+            .map(|(c, _)| c)
+            .collect();
     }
     let mut out = Vec::new();
     for i in cand {

@@ -45,7 +45,11 @@ const TRUNCATE_SIGMAS: f64 = 4.0;
 
 pub struct GaussianSmooth;
 
-static INPUTS: &[Port] = &[Port::each("spectrum", Kind::Spectrum, "the spectrum to smooth")];
+static INPUTS: &[Port] = &[Port::each(
+    "spectrum",
+    Kind::Spectrum,
+    "the spectrum to smooth",
+)];
 
 static REFS: &[Reference] = &[Reference {
     key: "press2007",
@@ -57,7 +61,8 @@ impl TypedStage for GaussianSmooth {
     const INFO: &'static StageInfo = &StageInfo {
         name: "smooth.gaussian",
         version: 1,
-        summary: "Gaussian-kernel smoothing, σ in x units or points, kernel renormalised at the edges",
+        summary:
+            "Gaussian-kernel smoothing, σ in x units or points, kernel renormalised at the edges",
         inputs: INPUTS,
         output: Kind::Spectrum,
         references: REFS,
@@ -107,7 +112,11 @@ impl TypedStage for GaussianSmooth {
 
 /// Gaussian smoothing of (x, y) with σ in x units on a monotonic grid. Returns the
 /// smoothed values and a function propagating variances through the same weights.
-pub fn gaussian_smooth(x: &[f64], y: &[f64], sigma: f64) -> (Vec<f64>, impl Fn(&[f64]) -> Vec<f64>) {
+pub fn gaussian_smooth(
+    x: &[f64],
+    y: &[f64],
+    sigma: f64,
+) -> (Vec<f64>, impl Fn(&[f64]) -> Vec<f64>) {
     let n = x.len();
     let reach = TRUNCATE_SIGMAS * sigma;
     // For each point, the index window [lo, hi) within reach (x monotonic).
@@ -138,14 +147,22 @@ pub fn gaussian_smooth(x: &[f64], y: &[f64], sigma: f64) -> (Vec<f64>, impl Fn(&
     let out = (0..n)
         .map(|i| {
             let (a, _) = windows[i];
-            weights[i].iter().enumerate().map(|(k, w)| w * y[a + k]).sum()
+            weights[i]
+                .iter()
+                .enumerate()
+                .map(|(k, w)| w * y[a + k])
+                .sum()
         })
         .collect();
     let prop = move |var: &[f64]| -> Vec<f64> {
         (0..var.len())
             .map(|i| {
                 let (a, _) = windows[i];
-                weights[i].iter().enumerate().map(|(k, w)| w * w * var[a + k]).sum()
+                weights[i]
+                    .iter()
+                    .enumerate()
+                    .map(|(k, w)| w * w * var[a + k])
+                    .sum()
             })
             .collect()
     };

@@ -1,3 +1,3 @@
-pub mod moving_average;
 pub mod gaussian;
+pub mod moving_average;
 pub mod savitzky_golay;

@@ -44,7 +44,7 @@ impl TypedStage for MovingAverage {
     };
 
     fn check(&self, o: &Options) -> Result<(), OptionError> {
-        if o.window < 3 || o.window % 2 == 0 {
+        if o.window < 3 || o.window.is_multiple_of(2) {
             return Err(OptionError::new(
                 "window",
                 format!(

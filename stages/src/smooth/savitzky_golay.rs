@@ -43,7 +43,11 @@ impl Default for Options {
 
 pub struct SavitzkyGolay;
 
-static INPUTS: &[Port] = &[Port::each("spectrum", Kind::Spectrum, "the spectrum to smooth or differentiate")];
+static INPUTS: &[Port] = &[Port::each(
+    "spectrum",
+    Kind::Spectrum,
+    "the spectrum to smooth or differentiate",
+)];
 
 pub(crate) static REFS: &[Reference] = &[
     Reference {
@@ -58,20 +62,27 @@ pub(crate) static REFS: &[Reference] = &[
 
 /// Checks window, order and derivative; the message says what is wrong.
 pub fn check_params(window: usize, order: usize, deriv: usize) -> Result<(), String> {
-    if window % 2 == 0 || window < 1 {
-        return Err(format!("window must be an odd number of points (got {window})"));
+    if window.is_multiple_of(2) {
+        return Err(format!(
+            "window must be an odd number of points (got {window})"
+        ));
     }
     if order > 6 {
         return Err(format!("order must be 0–6 (got {order})"));
     }
     if order >= window {
-        return Err(format!("order {order} needs a window of at least {} points", order + 1));
+        return Err(format!(
+            "order {order} needs a window of at least {} points",
+            order + 1
+        ));
     }
     if deriv > 2 {
         return Err(format!("derivative must be 0, 1 or 2 (got {deriv})"));
     }
     if deriv > order {
-        return Err(format!("a derivative of order {deriv} needs a polynomial of order ≥ {deriv}"));
+        return Err(format!(
+            "a derivative of order {deriv} needs a polynomial of order ≥ {deriv}"
+        ));
     }
     Ok(())
 }
@@ -98,7 +109,7 @@ impl TypedStage for SavitzkyGolay {
             _ => "differentiated (second derivative, per unit x squared)".to_string(),
         };
         format!(
-            "Spectra were {what} with a {}-point, order-{} Savitzky–Golay filter [savitzky1964] [steinier1972], the polynomial fitted to the first and last windows being evaluated at the edge points.",
+            "Spectra were {what} with a Savitzky–Golay filter (window of {} points, polynomial order {}) [savitzky1964] [steinier1972], the polynomial fitted to the first and last windows being evaluated at the edge points.",
             o.window, o.order
         )
     }
@@ -108,7 +119,8 @@ impl TypedStage for SavitzkyGolay {
         crate::transform::grid::require_monotonic(s, o.window)?;
         let h = mean_step(&s.x);
         let mut out = s.clone();
-        let y = savitzky_golay_delta(&s.y, o.window, o.order, o.derivative, h).map_err(StageError::input)?;
+        let y = savitzky_golay_delta(&s.y, o.window, o.order, o.derivative, h)
+            .map_err(StageError::input)?;
         if o.derivative == 0 {
             out.curves.push(Curve {
                 name: "unsmoothed".into(),
@@ -126,14 +138,25 @@ impl TypedStage for SavitzkyGolay {
                 (_, false) => format!("{yu}/{xu}²"),
             };
             let q = if o.derivative == 1 { "d" } else { "d²" };
-            out.y_axis = Axis::new(format!("{q}({})/d{}", s.y_axis.quantity, if o.derivative == 1 { "x" } else { "x²" }), unit);
+            out.y_axis = Axis::new(
+                format!(
+                    "{q}({})/d{}",
+                    s.y_axis.quantity,
+                    if o.derivative == 1 { "x" } else { "x²" }
+                ),
+                unit,
+            );
         }
         // σ of a linear filter of independent points: √Σ c_k² σ_k²; propagated exactly
         // with the interior and edge weights.
         if let Some(sig) = &s.sigma {
             let var: Vec<f64> = sig.iter().map(|v| v * v).collect();
             let w = SgWeights::new(o.window, o.order, o.derivative).map_err(StageError::numeric)?;
-            let scale = if o.derivative > 0 { h.powi(o.derivative as i32) } else { 1.0 };
+            let scale = if o.derivative > 0 {
+                h.powi(o.derivative as i32)
+            } else {
+                1.0
+            };
             out.sigma = Some(
                 w.apply_squared(&var)
                     .into_iter()
@@ -144,7 +167,9 @@ impl TypedStage for SavitzkyGolay {
         out.y = y;
         let mut a = Artifact::new(Value::Spectrum(out));
         if !is_uniform(&s.x, 1e-3) {
-            a.warn("the x grid is not uniform: Savitzky–Golay assumes equal spacing (resample first)");
+            a.warn(
+                "the x grid is not uniform: Savitzky–Golay assumes equal spacing (resample first)",
+            );
         }
         Ok(a)
     }
@@ -152,13 +177,19 @@ impl TypedStage for SavitzkyGolay {
 
 /// The weights c_k with value (or derivative, per unit offset) at offset `pos` from
 /// the first point of a `window`-point fit: Σ_k c_k y_k, k = 0..window.
-pub fn sg_weights_at(window: usize, order: usize, deriv: usize, pos: usize) -> Result<Vec<f64>, String> {
+pub fn sg_weights_at(
+    window: usize,
+    order: usize,
+    deriv: usize,
+    pos: usize,
+) -> Result<Vec<f64>, String> {
     check_params(window, order, deriv)?;
     let half = (window / 2) as f64;
     let scale = if half > 0.0 { half } else { 1.0 };
     let m = order + 1;
     // Vandermonde in u = (k − half)/scale.
-    let a = nalgebra::DMatrix::from_fn(window, m, |k, j| ((k as f64 - half) / scale).powi(j as i32));
+    let a =
+        nalgebra::DMatrix::from_fn(window, m, |k, j| ((k as f64 - half) / scale).powi(j as i32));
     let qr = a.qr();
     let r = qr.r();
     let q = qr.q();
@@ -206,7 +237,9 @@ impl SgWeights {
         Ok(SgWeights {
             window,
             centre: sg_weights_at(window, order, deriv, half)?,
-            head: (0..half).map(|p| sg_weights_at(window, order, deriv, p)).collect::<Result<_, _>>()?,
+            head: (0..half)
+                .map(|p| sg_weights_at(window, order, deriv, p))
+                .collect::<Result<_, _>>()?,
             tail: (half + 1..window)
                 .map(|p| sg_weights_at(window, order, deriv, p))
                 .collect::<Result<_, _>>()?,
@@ -237,7 +270,12 @@ impl SgWeights {
 }
 
 /// Savitzky–Golay filter for unit x spacing (derivatives per point).
-pub fn savitzky_golay(y: &[f64], window: usize, order: usize, deriv: usize) -> Result<Vec<f64>, String> {
+pub fn savitzky_golay(
+    y: &[f64],
+    window: usize,
+    order: usize,
+    deriv: usize,
+) -> Result<Vec<f64>, String> {
     savitzky_golay_delta(y, window, order, deriv, 1.0)
 }
 
@@ -251,7 +289,10 @@ pub fn savitzky_golay_delta(
 ) -> Result<Vec<f64>, String> {
     check_params(window, order, deriv)?;
     if y.len() < window {
-        return Err(format!("the window of {window} points is longer than the data ({})", y.len()));
+        return Err(format!(
+            "the window of {window} points is longer than the data ({})",
+            y.len()
+        ));
     }
     if deriv > 0 && !(delta != 0.0 && delta.is_finite()) {
         return Err("the x step must be non-zero for a derivative".into());
@@ -287,7 +328,12 @@ mod tests {
     #[test]
     fn polynomials_pass_unchanged_including_edges() {
         // Analytic: a fit of order ≥ the data's degree reproduces it everywhere.
-        let y: Vec<f64> = (0..30).map(|i| { let x = i as f64 * 0.5; 1.0 - x + 0.3 * x * x }).collect();
+        let y: Vec<f64> = (0..30)
+            .map(|i| {
+                let x = i as f64 * 0.5;
+                1.0 - x + 0.3 * x * x
+            })
+            .collect();
         let s = savitzky_golay(&y, 9, 2, 0).unwrap();
         for (a, b) in s.iter().zip(&y) {
             assert!((a - b).abs() < 1e-10);

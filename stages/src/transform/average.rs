@@ -16,13 +16,19 @@ pub struct Options {
 
 impl Default for Options {
     fn default() -> Self {
-        Options { grid_tolerance: 1e-6 }
+        Options {
+            grid_tolerance: 1e-6,
+        }
     }
 }
 
 pub struct GatherAverage;
 
-static INPUTS: &[Port] = &[Port::gather("repeats", Kind::Spectrum, "every repeat spectrum")];
+static INPUTS: &[Port] = &[Port::gather(
+    "repeats",
+    Kind::Spectrum,
+    "every repeat spectrum",
+)];
 
 static REFS: &[Reference] = &[Reference {
     key: "gum2008",
@@ -34,15 +40,19 @@ impl TypedStage for GatherAverage {
     const INFO: &'static StageInfo = &StageInfo {
         name: "gather.average",
         version: 1,
-        summary: "Average repeated spectra point by point, with the standard uncertainty of the mean",
+        summary:
+            "Average repeated spectra point by point, with the standard uncertainty of the mean",
         inputs: INPUTS,
         output: Kind::Spectrum,
         references: REFS,
     };
 
     fn check(&self, o: &Options) -> Result<(), crate::stage::OptionError> {
-        if !(o.grid_tolerance >= 0.0) {
-            return Err(crate::stage::OptionError::new("grid_tolerance", "must be ≥ 0"));
+        if o.grid_tolerance.is_nan() || o.grid_tolerance < 0.0 {
+            return Err(crate::stage::OptionError::new(
+                "grid_tolerance",
+                "must be ≥ 0",
+            ));
         }
         Ok(())
     }
@@ -67,7 +77,10 @@ impl TypedStage for GatherAverage {
         let h = super::grid::mean_step(&first.x).abs();
         for (name, s) in &spectra[1..] {
             if s.x.len() != first.x.len()
-                || s.x.iter().zip(&first.x).any(|(a, b)| (a - b).abs() > o.grid_tolerance * h)
+                || s.x
+                    .iter()
+                    .zip(&first.x)
+                    .any(|(a, b)| (a - b).abs() > o.grid_tolerance * h)
             {
                 return Err(StageError::input(format!(
                     "{name} is not on the grid of {} (resample the repeats onto a common grid first)",
@@ -87,10 +100,20 @@ impl TypedStage for GatherAverage {
         out.curves.clear();
         out.metadata.insert(
             "averaged".into(),
-            spectra.iter().map(|(n, _)| *n).collect::<Vec<_>>().join(", "),
+            spectra
+                .iter()
+                .map(|(n, _)| *n)
+                .collect::<Vec<_>>()
+                .join(", "),
         );
-        Ok(Artifact::new(Value::Spectrum(out))
-            .with_results(vec![Record::number("repeats", spectra.len() as f64, None, "")]))
+        Ok(
+            Artifact::new(Value::Spectrum(out)).with_results(vec![Record::number(
+                "repeats",
+                spectra.len() as f64,
+                None,
+                "",
+            )]),
+        )
     }
 }
 

@@ -16,7 +16,11 @@ pub struct Options {
 
 pub struct Crop;
 
-static INPUTS: &[Port] = &[Port::each("spectrum", Kind::Spectrum, "the spectrum to crop")];
+static INPUTS: &[Port] = &[Port::each(
+    "spectrum",
+    Kind::Spectrum,
+    "the spectrum to crop",
+)];
 
 impl TypedStage for Crop {
     type Options = Options;
@@ -31,7 +35,10 @@ impl TypedStage for Crop {
 
     fn check(&self, o: &Options) -> Result<(), OptionError> {
         if o.range.is_none() {
-            return Err(OptionError::new("range", "give the range to keep as [low, high]"));
+            return Err(OptionError::new(
+                "range",
+                "give the range to keep as [low, high]",
+            ));
         }
         check_range("range", o.range)
     }

@@ -33,7 +33,11 @@ pub fn interp(x: &[f64], y: &[f64], q: f64) -> Option<f64> {
         return None;
     }
     let asc = n < 2 || x[n - 1] >= x[0];
-    let (lo, hi) = if asc { (x[0], x[n - 1]) } else { (x[n - 1], x[0]) };
+    let (lo, hi) = if asc {
+        (x[0], x[n - 1])
+    } else {
+        (x[n - 1], x[0])
+    };
     if !(q >= lo && q <= hi) {
         return None;
     }
@@ -68,7 +72,8 @@ pub fn mean_step(x: &[f64]) -> f64 {
 /// Whether the grid is uniform to a relative tolerance of its mean step.
 pub fn is_uniform(x: &[f64], rel: f64) -> bool {
     let h = mean_step(x);
-    x.windows(2).all(|w| ((w[1] - w[0]) - h).abs() <= rel * h.abs())
+    x.windows(2)
+        .all(|w| ((w[1] - w[0]) - h).abs() <= rel * h.abs())
 }
 
 /// A `[lo, hi]` option range as (min, max), or the whole data span.

@@ -51,7 +51,11 @@ impl Default for Options {
 
 pub struct Normalize;
 
-static INPUTS: &[Port] = &[Port::each("spectrum", Kind::Spectrum, "the spectrum to normalise")];
+static INPUTS: &[Port] = &[Port::each(
+    "spectrum",
+    Kind::Spectrum,
+    "the spectrum to normalise",
+)];
 
 impl TypedStage for Normalize {
     type Options = Options;
@@ -67,9 +71,12 @@ impl TypedStage for Normalize {
     fn check(&self, o: &Options) -> Result<(), OptionError> {
         check_range("range", o.range)?;
         if o.by == NormalizeBy::Peak && o.near.is_none() {
-            return Err(OptionError::new("near", "normalising by a peak needs its expected position"));
+            return Err(OptionError::new(
+                "near",
+                "normalising by a peak needs its expected position",
+            ));
         }
-        if !(o.window > 0.0) {
+        if o.window.is_nan() || o.window <= 0.0 {
             return Err(OptionError::new("window", "must be positive"));
         }
         Ok(())
@@ -96,10 +103,15 @@ impl TypedStage for Normalize {
         let (lo, hi) = span(&s.x, o.range);
         let idx = indices_in(&s.x, lo, hi);
         if idx.is_empty() {
-            return Err(StageError::input(format!("no points between {lo} and {hi}")));
+            return Err(StageError::input(format!(
+                "no points between {lo} and {hi}"
+            )));
         }
         let factor = match o.by {
-            NormalizeBy::Max => idx.iter().map(|&i| s.y[i]).fold(f64::NEG_INFINITY, f64::max),
+            NormalizeBy::Max => idx
+                .iter()
+                .map(|&i| s.y[i])
+                .fold(f64::NEG_INFINITY, f64::max),
             NormalizeBy::Area => {
                 let xs: Vec<f64> = idx.iter().map(|&i| s.x[i]).collect();
                 let ys: Vec<f64> = idx.iter().map(|&i| s.y[i]).collect();
@@ -131,11 +143,13 @@ impl TypedStage for Normalize {
             _ => s.y_axis.unit.clone(),
         };
         out.y_axis = Axis::new(format!("normalised {}", s.y_axis.quantity), "");
-        Ok(Artifact::new(Value::Spectrum(out)).with_results(vec![Record::number(
-            "normalization_factor",
-            factor,
-            None,
-            &unit,
-        )]))
+        Ok(
+            Artifact::new(Value::Spectrum(out)).with_results(vec![Record::number(
+                "normalization_factor",
+                factor,
+                None,
+                &unit,
+            )]),
+        )
     }
 }

@@ -37,23 +37,36 @@ impl TypedStage for Resample {
     const INFO: &'static StageInfo = &StageInfo {
         name: "transform.resample",
         version: 1,
-        summary: "Linear interpolation onto a common grid (start/stop/step or another spectrum's grid)",
+        summary:
+            "Linear interpolation onto a common grid (start/stop/step or another spectrum's grid)",
         inputs: INPUTS,
         output: Kind::Spectrum,
         references: &[],
     };
 
     fn check(&self, o: &Options) -> Result<(), OptionError> {
-        let given = [o.start, o.stop, o.step].iter().filter(|v| v.is_some()).count();
+        let given = [o.start, o.stop, o.step]
+            .iter()
+            .filter(|v| v.is_some())
+            .count();
         if given != 0 && given != 3 {
-            return Err(OptionError::new("", "give all of start, stop and step, or none (then a grid port)"));
+            return Err(OptionError::new(
+                "",
+                "give all of start, stop and step, or none (then a grid port)",
+            ));
         }
         if let (Some(a), Some(b), Some(h)) = (o.start, o.stop, o.step) {
             if !(h != 0.0 && h.is_finite() && a.is_finite() && b.is_finite() && a != b) {
-                return Err(OptionError::new("step", "need finite start ≠ stop and a non-zero step"));
+                return Err(OptionError::new(
+                    "step",
+                    "need finite start ≠ stop and a non-zero step",
+                ));
             }
             if ((b - a) / h).abs() > 1e8 {
-                return Err(OptionError::new("step", "the grid would have more than 10⁸ points"));
+                return Err(OptionError::new(
+                    "step",
+                    "the grid would have more than 10⁸ points",
+                ));
             }
         }
         Ok(())
@@ -79,9 +92,15 @@ impl TypedStage for Resample {
                 .x
                 .clone(),
             (Some(_), _, _, Some(_)) => {
-                return Err(StageError::input("give either start/stop/step or a grid input, not both"))
+                return Err(StageError::input(
+                    "give either start/stop/step or a grid input, not both",
+                ))
             }
-            _ => return Err(StageError::input("give start, stop and step, or a grid input")),
+            _ => {
+                return Err(StageError::input(
+                    "give start, stop and step, or a grid input",
+                ))
+            }
         };
         let out = resample(s, &grid)?;
         Ok(Artifact::new(Value::Spectrum(out)))
@@ -99,7 +118,9 @@ pub fn make_grid(start: f64, stop: f64, step: f64) -> Vec<f64> {
 pub fn resample(s: &Spectrum, grid: &[f64]) -> Result<Spectrum, StageError> {
     require_monotonic(s, 2)?;
     if grid.len() < 2 || !is_monotonic(grid) {
-        return Err(StageError::input("the target grid must have 2 or more strictly monotonic points"));
+        return Err(StageError::input(
+            "the target grid must have 2 or more strictly monotonic points",
+        ));
     }
     let mut y = Vec::with_capacity(grid.len());
     for &q in grid {

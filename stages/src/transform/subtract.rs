@@ -25,7 +25,11 @@ pub struct Subtract;
 
 static INPUTS: &[Port] = &[
     Port::each("sample", Kind::Spectrum, "the sample spectrum"),
-    Port::each("blank", Kind::Spectrum, "the blank or solvent spectrum to subtract"),
+    Port::each(
+        "blank",
+        Kind::Spectrum,
+        "the blank or solvent spectrum to subtract",
+    ),
 ];
 
 impl TypedStage for Subtract {
@@ -57,7 +61,8 @@ impl TypedStage for Subtract {
         let s = inputs.spectrum(0)?;
         let b = inputs.spectrum(1)?;
         super::grid::require_monotonic(b, 2)?;
-        if !b.y_axis.unit.is_empty() && !s.y_axis.unit.is_empty() && b.y_axis.unit != s.y_axis.unit {
+        if !b.y_axis.unit.is_empty() && !s.y_axis.unit.is_empty() && b.y_axis.unit != s.y_axis.unit
+        {
             return Err(StageError::input(format!(
                 "the sample's y is in {} but the blank's in {}",
                 s.y_axis.unit, b.y_axis.unit
@@ -65,13 +70,15 @@ impl TypedStage for Subtract {
         }
         let mut blank = Vec::with_capacity(s.len());
         for &q in &s.x {
-            blank.push(interp(&b.x, &b.y, q).ok_or_else(|| {
-                StageError::input(format!(
+            blank.push(
+                interp(&b.x, &b.y, q).ok_or_else(|| {
+                    StageError::input(format!(
                     "sample point x = {q} lies outside the blank ({} to {}); crop the sample first",
                     b.x[0],
                     b.x[b.len() - 1]
                 ))
-            })? * o.scale);
+                })? * o.scale,
+            );
         }
         let mut out = s.clone();
         for (v, bl) in out.y.iter_mut().zip(&blank) {
@@ -88,12 +95,14 @@ impl TypedStage for Subtract {
             role: CurveRole::Reference,
             y: blank,
         });
-        Ok(Artifact::new(Value::Spectrum(out)).with_results(vec![Record::number(
-            "blank_scale",
-            o.scale,
-            None,
-            "",
-        )]))
+        Ok(
+            Artifact::new(Value::Spectrum(out)).with_results(vec![Record::number(
+                "blank_scale",
+                o.scale,
+                None,
+                "",
+            )]),
+        )
     }
 }
 
@@ -127,7 +136,9 @@ impl TypedStage for SubtractBackground {
     fn run(&self, inputs: &Inputs, _o: &NoOptions) -> Result<Artifact, StageError> {
         let s = inputs.spectrum(0)?;
         let bg = background(s).ok_or_else(|| {
-            StageError::input("the spectrum carries no background curve (run a background stage first)")
+            StageError::input(
+                "the spectrum carries no background curve (run a background stage first)",
+            )
         })?;
         let mut out = s.clone();
         for (i, (v, b)) in out.y.iter_mut().zip(&bg.y).enumerate() {
@@ -146,7 +157,11 @@ impl TypedStage for SubtractBackground {
             role: CurveRole::Reference,
             y: s.y.clone(),
         });
-        out.metadata.insert("background_subtracted".into(), name.clone());
-        Ok(Artifact::new(Value::Spectrum(out)).with_results(vec![Record::text("background", name)]))
+        out.metadata
+            .insert("background_subtracted".into(), name.clone());
+        Ok(
+            Artifact::new(Value::Spectrum(out))
+                .with_results(vec![Record::text("background", name)]),
+        )
     }
 }

@@ -7,7 +7,11 @@ use stages::{Artifact, Axis, InputFile, Spectrum, StageError, Value};
 use std::path::PathBuf;
 
 /// Resolves `options` for stage `name` and runs it on single-value ports.
-pub fn run(name: &str, ports: &[&Artifact], options: serde_json::Value) -> Result<Artifact, StageError> {
+pub fn run(
+    name: &str,
+    ports: &[&Artifact],
+    options: serde_json::Value,
+) -> Result<Artifact, StageError> {
     let stage = stages::find(name).unwrap_or_else(|| panic!("stage {name} is not registered"));
     let canonical = stage
         .resolve_options(&options)
@@ -20,7 +24,11 @@ pub fn run(name: &str, ports: &[&Artifact], options: serde_json::Value) -> Resul
 }
 
 /// Runs a stage on one gathering port.
-pub fn run_gather(name: &str, items: &[(&str, &Artifact)], options: serde_json::Value) -> Result<Artifact, StageError> {
+pub fn run_gather(
+    name: &str,
+    items: &[(&str, &Artifact)],
+    options: serde_json::Value,
+) -> Result<Artifact, StageError> {
     let stage = stages::find(name).unwrap_or_else(|| panic!("stage {name} is not registered"));
     let canonical = stage.resolve_options(&options).expect("options");
     let inputs = Inputs {
@@ -31,7 +39,12 @@ pub fn run_gather(name: &str, items: &[(&str, &Artifact)], options: serde_json::
 }
 
 pub fn spectrum(x: Vec<f64>, y: Vec<f64>, xq: &str, xu: &str, yq: &str, yu: &str) -> Artifact {
-    Artifact::new(Value::Spectrum(Spectrum::new(x, y, Axis::new(xq, xu), Axis::new(yq, yu))))
+    Artifact::new(Value::Spectrum(Spectrum::new(
+        x,
+        y,
+        Axis::new(xq, xu),
+        Axis::new(yq, yu),
+    )))
 }
 
 pub fn file(name: &str, text: &str) -> Artifact {
@@ -43,7 +56,9 @@ pub fn file(name: &str, text: &str) -> Artifact {
 
 /// Reads a committed reference file from tests/data.
 pub fn data(name: &str) -> serde_json::Value {
-    let p = PathBuf::from(env!("CARGO_MANIFEST_DIR")).join("data").join(name);
+    let p = PathBuf::from(env!("CARGO_MANIFEST_DIR"))
+        .join("data")
+        .join(name);
     let text = std::fs::read_to_string(&p).unwrap_or_else(|e| panic!("{}: {e}", p.display()));
     serde_json::from_str(&text).expect("valid JSON")
 }
@@ -58,5 +73,8 @@ pub fn floats(v: &serde_json::Value) -> Vec<f64> {
 
 pub fn max_abs_diff(a: &[f64], b: &[f64]) -> f64 {
     assert_eq!(a.len(), b.len());
-    a.iter().zip(b).map(|(p, q)| (p - q).abs()).fold(0.0, f64::max)
+    a.iter()
+        .zip(b)
+        .map(|(p, q)| (p - q).abs())
+        .fold(0.0, f64::max)
 }
