@@ -477,4 +477,29 @@ mod tests {
             }
         }
     }
+
+    proptest::proptest! {
+        #![proptest_config(proptest::prelude::ProptestConfig::with_cases(64))]
+        /// Arbitrary finite data, shapes and ranges give a result or a plain error, never a panic.
+        #[test]
+        fn never_panics_on_odd_data(
+            y in proptest::collection::vec(-1e3f64..1e3, 0..40),
+            shape in 0usize..4,
+            lo in -5.0f64..30.0,
+            width in 0.1f64..40.0,
+            bg in 0usize..4,
+        ) {
+            let x: Vec<f64> = (0..y.len()).map(|i| i as f64).collect();
+            let s = Spectrum::new(x, y, Axis::new("x", "eV"), Axis::new("y", "counts"));
+            let shape = ["gaussian", "lorentzian", "pseudo_voigt", "voigt"][shape];
+            let bg = ["none", "constant", "linear", "exponential"][bg];
+            let o = serde_json::json!({ "shape": shape, "background": bg, "range": [lo, lo + width], "peaks": { "a": {}, "b": { "fwhm": { "same_as": "a" } } }, "max_iterations": 50 });
+            if shape != "voigt" {
+                let _ = run(&s, o);
+            } else {
+                let o = serde_json::json!({ "shape": shape, "background": bg, "range": [lo, lo + width], "peaks": { "a": {} }, "max_iterations": 50 });
+                let _ = run(&s, o);
+            }
+        }
+    }
 }
