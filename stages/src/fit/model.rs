@@ -4,7 +4,8 @@
 //! derivatives chained through their expressions).
 
 use super::expr::Expr;
-use super::shapes::Shape;
+use super::faddeeva::w_many;
+use super::shapes::{voigt_arguments, Shape};
 use super::solver::{Bounds, Problem};
 use nalgebra::DMatrix;
 
@@ -227,6 +228,10 @@ pub struct FitProblem<'a> {
     dfdp: Vec<f64>,
     /// One point's derivatives before they are scattered into `dfdp`.
     row: Vec<f64>,
+    /// Per Voigt peak (None for other shapes): w(z) at every point, real and imaginary.
+    wbuf: Vec<Option<(Vec<f64>, Vec<f64>)>>,
+    /// Scaled offsets of one Voigt peak's Faddeeva arguments.
+    zbuf: Vec<f64>,
     /// Non-zero entries of `chain` per parameter: (free index, coefficient).
     sparse: Vec<Vec<(usize, f64)>>,
 }
@@ -244,6 +249,14 @@ impl<'a> FitProblem<'a> {
             grad: vec![0.0; m],
             dfdp: vec![0.0; x.len() * m],
             row: vec![0.0; m],
+            wbuf: model
+                .peaks
+                .iter()
+                .map(|p| {
+                    (p.shape == Shape::Voigt).then(|| (vec![0.0; x.len()], vec![0.0; x.len()]))
+                })
+                .collect(),
+            zbuf: vec![0.0; x.len()],
             sparse: vec![Vec::new(); m],
         }
     }
@@ -282,14 +295,28 @@ impl Problem for FitProblem<'_> {
             }
         }
         let values = &self.values;
+        // Faddeeva function of every Voigt peak at all points at once (the hot loop).
+        for (pk, buf) in model.peaks.iter().zip(self.wbuf.iter_mut()) {
+            if let Some((re, im)) = buf {
+                let p = &values[pk.offset..pk.offset + 4];
+                let mut y = 0.0;
+                for (z, &x) in self.zbuf.iter_mut().zip(self.x) {
+                    (*z, y) = voigt_arguments(p, x);
+                }
+                w_many(&self.zbuf, y, re, im);
+            }
+        }
         let row = &mut self.row;
         let npts = self.x.len();
         for (i, &x) in self.x.iter().enumerate() {
             let mut f = model.background_at(i, x, values, row);
-            for pk in &model.peaks {
+            for (pk, buf) in model.peaks.iter().zip(&self.wbuf) {
                 let n = pk.shape.n_params();
                 let o = pk.offset;
-                f += pk.shape.eval(&values[o..o + n], x, &mut row[o..o + n]);
+                let w = buf.as_ref().map(|(re, im)| (re[i], im[i]));
+                f += pk
+                    .shape
+                    .eval_with(&values[o..o + n], x, w, &mut row[o..o + n]);
             }
             let wi = self.w[i];
             r[i] = (self.y[i] - f) * wi;
@@ -300,13 +327,13 @@ impl Problem for FitProblem<'_> {
         r.iter().all(|v| v.is_finite())
     }
     fn jacobian(&mut self, _theta: &[f64], j: &mut DMatrix<f64>) {
-        j.fill(0.0);
         let n = self.x.len();
+        let jm = j.as_mut_slice(); // column-major: column `col` is jm[col·n..(col+1)·n]
+        jm.fill(0.0);
         for (k, list) in self.sparse.iter().enumerate() {
             let d = &self.dfdp[k * n..(k + 1) * n];
             for &(col, c) in list {
-                let mut column = j.column_mut(col);
-                for (jc, dk) in column.iter_mut().zip(d) {
+                for (jc, dk) in jm[col * n..(col + 1) * n].iter_mut().zip(d) {
                     *jc += c * dk;
                 }
             }
