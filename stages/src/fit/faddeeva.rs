@@ -29,7 +29,7 @@ const RATIO: f64 = 0.003;
 /// Largest |Re z| + Im z for the rational expansion (tested range).
 const BIG: f64 = 1e4;
 /// Points evaluated side by side.
-const LANES: usize = 4;
+const LANES: usize = 8;
 
 struct Rational {
     /// Polynomial coefficients, highest power first.

@@ -190,26 +190,35 @@ impl Model {
         }
     }
 
-    /// Evaluates background and each peak at x into `parts` (background first, then
-    /// one entry per peak); for curves on the full grid.
-    pub fn parts_at(
-        &self,
-        i: usize,
-        x: f64,
-        values: &[f64],
-        parts: &mut [f64],
-        scratch: &mut [f64],
-    ) {
-        parts[0] = match &self.background {
-            Background::Curve(_) => 0.0,
-            _ => self.background_at(i, x, values, scratch),
-        };
-        for (k, pk) in self.peaks.iter().enumerate() {
-            let n = pk.shape.n_params();
-            parts[k + 1] = pk
-                .shape
-                .eval(&values[pk.offset..pk.offset + n], x, &mut scratch[..n]);
+    /// Background (0 for a fixed curve) and each peak at every x: `out[0]` is the
+    /// background, `out[k + 1]` peak k. Voigt peaks use the batched Faddeeva function.
+    pub fn parts_all(&self, x: &[f64], values: &[f64]) -> Vec<Vec<f64>> {
+        let n = x.len();
+        let mut out = vec![vec![0.0; n]; self.peaks.len() + 1];
+        let mut scratch = vec![0.0; self.params.len()];
+        if !matches!(self.background, Background::Curve(_)) {
+            for (i, &xi) in x.iter().enumerate() {
+                out[0][i] = self.background_at(i, xi, values, &mut scratch);
+            }
         }
+        let (mut re, mut im, mut z) = (vec![0.0; n], vec![0.0; n], vec![0.0; n]);
+        for (k, pk) in self.peaks.iter().enumerate() {
+            let np = pk.shape.n_params();
+            let p = &values[pk.offset..pk.offset + np];
+            let voigt = pk.shape == Shape::Voigt;
+            if voigt {
+                let mut y = 0.0;
+                for (zi, &xi) in z.iter_mut().zip(x) {
+                    (*zi, y) = voigt_arguments(p, xi);
+                }
+                w_many(&z, y, &mut re, &mut im);
+            }
+            for (i, &xi) in x.iter().enumerate() {
+                let w = voigt.then(|| (re[i], im[i]));
+                out[k + 1][i] = pk.shape.eval_with(p, xi, w, &mut scratch[..np]);
+            }
+        }
+        out
     }
 }
 
