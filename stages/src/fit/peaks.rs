@@ -4,7 +4,7 @@
 //! Method: Levenberg–Marquardt [levenberg1944; marquardt1963] with Marquardt's diagonal
 //! scaling kept at its running maximum [more1978] and Nielsen's damping update
 //! [nielsen1999]; bounds by the MINUIT transformations [james1975]; analytic Jacobians;
-//! the Voigt profile from the Faddeeva function [zaghloul2011] and its FWHM from
+//! the Voigt profile from the Faddeeva function [zaghloul2011; weideman1994] and its FWHM from
 //! [olivero1977]. Standard errors are the square roots of the diagonal of s²(JᵀJ)⁻¹,
 //! s² = χ²/(n − p) (the covariance scaled by the reduced χ²); heights, widths and
 //! areas carry first-order uncertainties propagated through the full covariance.
@@ -48,6 +48,10 @@ static REFERENCES: &[Reference] = &[
     Reference {
         key: "zaghloul2011",
         citation: "Zaghloul, M. R., & Ali, A. N. (2011). Algorithm 916: Computing the Faddeyeva and Voigt functions. ACM Transactions on Mathematical Software, 38(2), 15.",
+    },
+    Reference {
+        key: "weideman1994",
+        citation: "Weideman, J. A. C. (1994). Computation of the complex error function. SIAM Journal on Numerical Analysis, 31(5), 1497–1518.",
     },
     Reference {
         key: "olivero1977",
@@ -201,7 +205,7 @@ impl TypedStage for FitPeaks {
             number(o.tolerance),
             o.max_iterations,
             if voigt {
-                ", Voigt profiles from the Faddeeva function [zaghloul2011] and their FWHM from the Olivero–Longbothum approximation [olivero1977]"
+                ", Voigt profiles from the Faddeeva function [zaghloul2011; weideman1994] and their FWHM from the Olivero–Longbothum approximation [olivero1977]"
             } else {
                 ""
             },
