@@ -63,6 +63,21 @@ impl<'de, T: Deserialize<'de>> Deserialize<'de> for Ordered<T> {
     }
 }
 
+/// The three visitor methods that read any JSON number into `Type::Variant(f64)`.
+macro_rules! numbers_visit_as {
+    ($ty:ident :: $variant:ident) => {
+        fn visit_f64<E: serde::de::Error>(self, v: f64) -> Result<$ty, E> {
+            Ok($ty::$variant(v))
+        }
+        fn visit_i64<E: serde::de::Error>(self, v: i64) -> Result<$ty, E> {
+            Ok($ty::$variant(v as f64))
+        }
+        fn visit_u64<E: serde::de::Error>(self, v: u64) -> Result<$ty, E> {
+            Ok($ty::$variant(v as f64))
+        }
+    };
+}
+
 /// A parameter: a bare number is a start value; the long form adds bounds, fixing or a link.
 /// (Read by hand rather than as an untagged enum, so a misspelt key in the long form is
 /// reported by name with the keys that would have been accepted.)
@@ -101,15 +116,7 @@ impl<'de> Deserialize<'de> for ParamSpec {
             fn expecting(&self, f: &mut fmt::Formatter) -> fmt::Result {
                 f.write_str("a number, or a map with value, min, max, fixed, same_as or expr")
             }
-            fn visit_f64<E: serde::de::Error>(self, v: f64) -> Result<ParamSpec, E> {
-                Ok(ParamSpec::Value(v))
-            }
-            fn visit_i64<E: serde::de::Error>(self, v: i64) -> Result<ParamSpec, E> {
-                Ok(ParamSpec::Value(v as f64))
-            }
-            fn visit_u64<E: serde::de::Error>(self, v: u64) -> Result<ParamSpec, E> {
-                Ok(ParamSpec::Value(v as f64))
-            }
+            numbers_visit_as!(ParamSpec::Value);
             fn visit_map<A: MapAccess<'de>>(self, a: A) -> Result<ParamSpec, A::Error> {
                 ParamDetail::deserialize(serde::de::value::MapAccessDeserializer::new(a))
                     .map(ParamSpec::Detail)
@@ -181,15 +188,7 @@ impl<'de> Deserialize<'de> for Ratio {
             fn expecting(&self, f: &mut fmt::Formatter) -> fmt::Result {
                 f.write_str("a number or one of p, d, f")
             }
-            fn visit_f64<E: serde::de::Error>(self, v: f64) -> Result<Ratio, E> {
-                Ok(Ratio::Value(v))
-            }
-            fn visit_i64<E: serde::de::Error>(self, v: i64) -> Result<Ratio, E> {
-                Ok(Ratio::Value(v as f64))
-            }
-            fn visit_u64<E: serde::de::Error>(self, v: u64) -> Result<Ratio, E> {
-                Ok(Ratio::Value(v as f64))
-            }
+            numbers_visit_as!(Ratio::Value);
             fn visit_str<E: serde::de::Error>(self, v: &str) -> Result<Ratio, E> {
                 match v {
                     "p" => Ok(Ratio::Shell(SubShell::P)),
