@@ -354,6 +354,26 @@ mod tests {
     }
 
     #[test]
+    fn descending_x_gives_the_same_fit() {
+        // Binding-energy exports often run high to low; the order must not matter.
+        let s = two_gaussians(false);
+        let mut r = s.clone();
+        r.x.reverse();
+        r.y.reverse();
+        let o = serde_json::json!({ "shape": "gaussian", "peaks": { "big": {}, "small": {} }, "tolerance": 1e-14 });
+        let (_, a) = run(&s, o.clone()).unwrap();
+        let (_, b) = run(&r, o).unwrap();
+        for (p, q) in a.parameters.iter().zip(&b.parameters) {
+            assert_eq!(p.name, q.name);
+            assert!(
+                (p.value - q.value).abs() <= 1e-8 * p.value.abs().max(1.0),
+                "{}",
+                p.name
+            );
+        }
+    }
+
+    #[test]
     fn fits_on_top_of_a_background_curve_inside_a_range() {
         let mut s = two_gaussians(false);
         let bg: Vec<f64> = s.x.iter().map(|v| 40.0 + 0.5 * (v - 10.0)).collect();
