@@ -2,7 +2,7 @@
 //! on time): 2,000-point synthetic spectra, three Voigt peaks on a linear background
 //! with seeded Gaussian noise, fitted from start values offset from the truth.
 //!
-//! Run: `cargo run --release -p stages --example fit_voigt_speed [count]`
+//! Run: `cargo run --release -p stages --example fit_voigt_speed [count] [tolerance]`
 
 use stages::fit::shapes::Shape;
 use stages::fit::{fit_spectrum, FitSpec};
@@ -53,7 +53,12 @@ fn main() {
         .nth(1)
         .and_then(|s| s.parse().ok())
         .unwrap_or(200);
+    let tolerance: f64 = std::env::args()
+        .nth(2)
+        .and_then(|s| s.parse().ok())
+        .unwrap_or(1e-10);
     let spec: FitSpec = serde_json::from_value(serde_json::json!({
+        "tolerance": tolerance,
         "shape": "voigt",
         "background": "linear",
         "weights": "none",
@@ -82,7 +87,7 @@ fn main() {
     }
     let dt = t0.elapsed().as_secs_f64();
     println!(
-        "{count} fits of 2000 points (3 Voigt + linear): {:.3} s, {:.1} spectra/s on one core, {:.2} ms per fit, mean {:.1} iterations, {failures} not converged, worst centre error {:.4}",
+        "{count} fits of 2000 points (3 Voigt + linear), tolerance {tolerance:e}: {:.3} s, {:.1} spectra/s on one core, {:.2} ms per fit, mean {:.1} iterations, {failures} not converged, worst centre error {:.4}",
         dt,
         count as f64 / dt,
         1e3 * dt / count as f64,

@@ -21,6 +21,7 @@ struct Certified {
     value: [f64; 8],
     stderr: [f64; 8],
     rss: f64,
+    rsd: f64,
     x: Vec<f64>,
     y: Vec<f64>,
 }
@@ -34,6 +35,7 @@ fn parse(text: &str) -> Certified {
         value: [0.0; 8],
         stderr: [0.0; 8],
         rss: f64::NAN,
+        rsd: f64::NAN,
         x: vec![],
         y: vec![],
     };
@@ -56,6 +58,8 @@ fn parse(text: &str) -> Certified {
             in_data = true;
         } else if let Some(rest) = t.strip_prefix("Residual Sum of Squares:") {
             c.rss = rest.trim().parse().unwrap();
+        } else if let Some(rest) = t.strip_prefix("Residual Standard Deviation:") {
+            c.rsd = rest.trim().parse().unwrap();
         } else if let Some((name, rest)) = t.split_once('=') {
             let name = name.trim();
             if let Some(k) = name.strip_prefix('b').and_then(|k| k.parse::<usize>().ok()) {
@@ -77,6 +81,10 @@ fn parse(text: &str) -> Certified {
         "all eight parameters in the header"
     );
     assert_eq!(c.x.len(), 250, "250 observations");
+    assert!(
+        c.rss.is_finite() && c.rsd.is_finite(),
+        "certified RSS and RSD in the header"
+    );
     c
 }
 
@@ -210,6 +218,13 @@ fn check(file: &str) {
             (rss / c.rss - 1.0).abs() < 1e-8,
             "{file} {label} RSS {rss} vs {}",
             c.rss
+        );
+        // Residual standard deviation (certified) = √(reduced χ²) of an unweighted fit.
+        let rsd = f.statistics.reduced_chi_square.sqrt();
+        assert!(
+            (rsd / c.rsd - 1.0).abs() < 1e-8,
+            "{file} {label} RSD {rsd} vs {}",
+            c.rsd
         );
         assert_eq!(f.statistics.points, 250);
         assert_eq!(f.statistics.free_parameters, 8);

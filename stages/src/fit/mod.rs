@@ -8,6 +8,7 @@
 //! options the stage takes) give a [`FitResult`](crate::value::FitResult).
 
 pub mod expr;
+pub mod faddeeva;
 pub mod guess;
 pub mod model;
 pub mod peaks;

@@ -4,7 +4,8 @@
 //! derivatives chained through their expressions).
 
 use super::expr::Expr;
-use super::shapes::Shape;
+use super::faddeeva::w_many;
+use super::shapes::{voigt_arguments, Shape};
 use super::solver::{Bounds, Problem};
 use nalgebra::DMatrix;
 
@@ -189,26 +190,35 @@ impl Model {
         }
     }
 
-    /// Evaluates background and each peak at x into `parts` (background first, then
-    /// one entry per peak); for curves on the full grid.
-    pub fn parts_at(
-        &self,
-        i: usize,
-        x: f64,
-        values: &[f64],
-        parts: &mut [f64],
-        scratch: &mut [f64],
-    ) {
-        parts[0] = match &self.background {
-            Background::Curve(_) => 0.0,
-            _ => self.background_at(i, x, values, scratch),
-        };
-        for (k, pk) in self.peaks.iter().enumerate() {
-            let n = pk.shape.n_params();
-            parts[k + 1] = pk
-                .shape
-                .eval(&values[pk.offset..pk.offset + n], x, &mut scratch[..n]);
+    /// Background (0 for a fixed curve) and each peak at every x: `out[0]` is the
+    /// background, `out[k + 1]` peak k. Voigt peaks use the batched Faddeeva function.
+    pub fn parts_all(&self, x: &[f64], values: &[f64]) -> Vec<Vec<f64>> {
+        let n = x.len();
+        let mut out = vec![vec![0.0; n]; self.peaks.len() + 1];
+        let mut scratch = vec![0.0; self.params.len()];
+        if !matches!(self.background, Background::Curve(_)) {
+            for (i, &xi) in x.iter().enumerate() {
+                out[0][i] = self.background_at(i, xi, values, &mut scratch);
+            }
         }
+        let (mut re, mut im, mut z) = (vec![0.0; n], vec![0.0; n], vec![0.0; n]);
+        for (k, pk) in self.peaks.iter().enumerate() {
+            let np = pk.shape.n_params();
+            let p = &values[pk.offset..pk.offset + np];
+            let voigt = pk.shape == Shape::Voigt;
+            if voigt {
+                let mut y = 0.0;
+                for (zi, &xi) in z.iter_mut().zip(x) {
+                    (*zi, y) = voigt_arguments(p, xi);
+                }
+                w_many(&z, y, &mut re, &mut im);
+            }
+            for (i, &xi) in x.iter().enumerate() {
+                let w = voigt.then(|| (re[i], im[i]));
+                out[k + 1][i] = pk.shape.eval_with(p, xi, w, &mut scratch[..np]);
+            }
+        }
+        out
     }
 }
 
@@ -227,6 +237,10 @@ pub struct FitProblem<'a> {
     dfdp: Vec<f64>,
     /// One point's derivatives before they are scattered into `dfdp`.
     row: Vec<f64>,
+    /// Per Voigt peak (None for other shapes): w(z) at every point, real and imaginary.
+    wbuf: Vec<Option<(Vec<f64>, Vec<f64>)>>,
+    /// Scaled offsets of one Voigt peak's Faddeeva arguments.
+    zbuf: Vec<f64>,
     /// Non-zero entries of `chain` per parameter: (free index, coefficient).
     sparse: Vec<Vec<(usize, f64)>>,
 }
@@ -244,6 +258,14 @@ impl<'a> FitProblem<'a> {
             grad: vec![0.0; m],
             dfdp: vec![0.0; x.len() * m],
             row: vec![0.0; m],
+            wbuf: model
+                .peaks
+                .iter()
+                .map(|p| {
+                    (p.shape == Shape::Voigt).then(|| (vec![0.0; x.len()], vec![0.0; x.len()]))
+                })
+                .collect(),
+            zbuf: vec![0.0; x.len()],
             sparse: vec![Vec::new(); m],
         }
     }
@@ -282,14 +304,28 @@ impl Problem for FitProblem<'_> {
             }
         }
         let values = &self.values;
+        // Faddeeva function of every Voigt peak at all points at once (the hot loop).
+        for (pk, buf) in model.peaks.iter().zip(self.wbuf.iter_mut()) {
+            if let Some((re, im)) = buf {
+                let p = &values[pk.offset..pk.offset + 4];
+                let mut y = 0.0;
+                for (z, &x) in self.zbuf.iter_mut().zip(self.x) {
+                    (*z, y) = voigt_arguments(p, x);
+                }
+                w_many(&self.zbuf, y, re, im);
+            }
+        }
         let row = &mut self.row;
         let npts = self.x.len();
         for (i, &x) in self.x.iter().enumerate() {
             let mut f = model.background_at(i, x, values, row);
-            for pk in &model.peaks {
+            for (pk, buf) in model.peaks.iter().zip(&self.wbuf) {
                 let n = pk.shape.n_params();
                 let o = pk.offset;
-                f += pk.shape.eval(&values[o..o + n], x, &mut row[o..o + n]);
+                let w = buf.as_ref().map(|(re, im)| (re[i], im[i]));
+                f += pk
+                    .shape
+                    .eval_with(&values[o..o + n], x, w, &mut row[o..o + n]);
             }
             let wi = self.w[i];
             r[i] = (self.y[i] - f) * wi;
@@ -300,13 +336,13 @@ impl Problem for FitProblem<'_> {
         r.iter().all(|v| v.is_finite())
     }
     fn jacobian(&mut self, _theta: &[f64], j: &mut DMatrix<f64>) {
-        j.fill(0.0);
         let n = self.x.len();
+        let jm = j.as_mut_slice(); // column-major: column `col` is jm[col·n..(col+1)·n]
+        jm.fill(0.0);
         for (k, list) in self.sparse.iter().enumerate() {
             let d = &self.dfdp[k * n..(k + 1) * n];
             for &(col, c) in list {
-                let mut column = j.column_mut(col);
-                for (jc, dk) in column.iter_mut().zip(d) {
+                for (jc, dk) in jm[col * n..(col + 1) * n].iter_mut().zip(d) {
                     *jc += c * dk;
                 }
             }

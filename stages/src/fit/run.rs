@@ -4,7 +4,7 @@
 use super::guess::{height_and_width, maxima};
 use super::model::{Background, FitProblem, Model, ModelParam, PeakTerm, Source};
 use super::shapes::{gauss_fwhm_per_sigma, Shape};
-use super::solver::{inverse_normal_matrix, solve, Bounds, Problem, Settings};
+use super::solver::{inverse_normal_matrix, solve, Bounds, Settings};
 use super::spec::{BackgroundChoice, FitSpec, Layout, Weights};
 use crate::stage::StageError;
 use crate::value::{
@@ -193,12 +193,13 @@ pub fn fit_spectrum_with_notes(s: &Spectrum, spec: &FitSpec) -> Result<FitOutcom
     let mut problem = FitProblem::new(&model, &x, &y_raw, &w);
     let sol = solve(&mut problem, &theta, &bounds, settings)
         .map_err(|e| StageError::numeric(format!("the fit could not start: {}", e.0)))?;
-    let mut r = vec![0.0; x.len()];
-    if !problem.residuals(&sol.theta, &mut r) {
-        return Err(StageError::numeric("the fitted model cannot be evaluated"));
-    }
-    let vals = problem.values().to_vec();
-    let chain = problem.chain().clone();
+    drop(problem);
+    let mut vals = vec![0.0; model.params.len()];
+    let mut chain = DMatrix::zeros(model.params.len(), n_free);
+    let mut scratch = vec![0.0; model.params.len()];
+    model
+        .resolve(&sol.theta, &mut vals, &mut chain, &mut scratch)
+        .map_err(|m| StageError::numeric(format!("the fitted model cannot be evaluated: {m}")))?;
 
     let mut notes = Vec::new();
     let dof = x.len() - n_free;
@@ -345,19 +346,17 @@ pub fn fit_spectrum_with_notes(s: &Spectrum, spec: &FitSpec) -> Result<FitOutcom
     let mut comps = vec![vec![f64::NAN; n_all]; np];
     let mut env = vec![f64::NAN; n_all];
     let mut res = vec![f64::NAN; n_all];
-    let mut parts = vec![0.0; np + 1];
-    let mut scratch = vec![0.0; model.params.len().max(4)];
+    let parts = model.parts_all(&x, &vals);
     for (k, &i) in idx.iter().enumerate() {
-        model.parts_at(k, x[k], &vals, &mut parts, &mut scratch);
         let b = match &curve_w {
             Some(cw) => cw[k],
-            None => parts[0],
+            None => parts[0][k],
         };
         bg_curve[i] = b;
         let mut total = b;
         for p in 0..np {
-            comps[p][i] = parts[p + 1];
-            total += parts[p + 1];
+            comps[p][i] = parts[p + 1][k];
+            total += parts[p + 1][k];
         }
         env[i] = total;
         res[i] = s.y[i] - total;
@@ -628,8 +627,6 @@ fn guess_starts(
     let mut bgv = vec![0.0; model.params.len()];
     bgv[off..].copy_from_slice(&values[off..]);
     let mut yr = y.to_vec();
-    let mut scratch = vec![0.0; model.params.len().max(4)];
-    let mut parts = vec![0.0; 1];
     let bg_only = Model {
         params: model.params.clone(),
         peaks: Vec::new(),
@@ -638,10 +635,10 @@ fn guess_starts(
         n_free: model.n_free,
     };
     if !matches!(model.background, Background::None) {
-        for i in 0..n {
-            bg_only.parts_at(i, x[i], &bgv, &mut parts, &mut scratch);
-            if parts[0].is_finite() {
-                yr[i] -= parts[0];
+        let parts = bg_only.parts_all(x, &bgv);
+        for (v, b) in yr.iter_mut().zip(&parts[0]) {
+            if b.is_finite() {
+                *v -= b;
             }
         }
     }

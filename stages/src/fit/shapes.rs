@@ -8,13 +8,14 @@
 //! - pseudo-Voigt, FWHM `w` and Lorentzian fraction `η`: f = A [η L(w) + (1−η) G(w)], both
 //!   parts with the same FWHM (the linear-combination form; common practice).
 //! - Voigt, Gaussian σ and Lorentzian half width γ: f = A Re w(z) / (σ√(2π)),
-//!   z = (x − c + iγ)/(σ√2), w the Faddeeva function (the `errorfunctions` crate, a port
-//!   of S. G. Johnson's Faddeeva package); w′(z) = −2 z w(z) + 2i/√π gives every
+//!   z = (x − c + iγ)/(σ√2), w the Faddeeva function (see `faddeeva.rs`: the
+//!   `errorfunctions` crate, with Weideman's rational expansion where it is as good); w′(z) = −2 z w(z) + 2i/√π gives every
 //!   derivative from the one evaluation of w per point. Its FWHM is the approximation of
 //!   Olivero and Longbothum (1977), f_V ≈ 0.5346 f_L + √(0.2166 f_L² + f_G²), stated
 //!   accurate to about 0.02 %.
 
-use errorfunctions::{ComplexErrorFunctions, RealErrorFunctions};
+use super::faddeeva;
+use errorfunctions::RealErrorFunctions;
 use nalgebra::Complex;
 use schemars::JsonSchema;
 use serde::{Deserialize, Serialize};
@@ -23,6 +24,8 @@ use std::f64::consts::{LN_2, PI};
 const SQRT_2: f64 = std::f64::consts::SQRT_2;
 /// √(2π)
 const SQRT_2PI: f64 = 2.506_628_274_631_000_7;
+/// 1/√π
+const FRAC_1_SQRT_PI: f64 = 0.5 * std::f64::consts::FRAC_2_SQRT_PI;
 /// 2/√π
 const TWO_OVER_SQRT_PI: f64 = std::f64::consts::FRAC_2_SQRT_PI;
 
@@ -81,6 +84,14 @@ impl Shape {
     /// Profile value at `x` for parameters `p`; `d` (length `n_params`) receives ∂f/∂p.
     #[inline]
     pub fn eval(self, p: &[f64], x: f64, d: &mut [f64]) -> f64 {
+        self.eval_with(p, x, None, d)
+    }
+
+    /// As [`Shape::eval`]; for a Voigt, `w` may carry w(z) already evaluated at
+    /// z = ((x − c) + iγ)/(σ√2) (see [`voigt_arguments`]), so the fit evaluates it
+    /// for all points at once.
+    #[inline]
+    pub fn eval_with(self, p: &[f64], x: f64, w: Option<(f64, f64)>, d: &mut [f64]) -> f64 {
         let (c, a) = (p[0], p[1]);
         let t = x - c;
         match self {
@@ -110,19 +121,22 @@ impl Shape {
                 a * u
             }
             Shape::Voigt => {
-                let (sigma, gamma) = (p[2], p[3]);
-                let s2 = sigma * SQRT_2;
-                let z = Complex::new(t / s2, gamma / s2);
-                let w = z.w();
+                let (zr, zi) = voigt_arguments(p, x);
+                let z = Complex::new(zr, zi);
+                let (wr, wi) = w.unwrap_or_else(|| faddeeva::w(zr, zi));
+                let w = Complex::new(wr, wi);
                 // w'(z) = -2 z w(z) + 2i/sqrt(pi)
                 let dw = Complex::new(0.0, TWO_OVER_SQRT_PI) - 2.0 * z * w;
-                let norm = 1.0 / (sigma * SQRT_2PI);
+                let inv_s2 = 1.0 / (p[2] * SQRT_2);
+                let inv_sigma = inv_s2 * SQRT_2;
+                let norm = inv_s2 * FRAC_1_SQRT_PI; // 1/(σ√(2π))
                 let v = w.re * norm;
                 // dz/dc = -1/s2, dz/dgamma = i/s2, dz/dsigma = -z/sigma.
-                d[0] = -a * norm * dw.re / s2;
+                let an = a * norm;
+                d[0] = -an * dw.re * inv_s2;
                 d[1] = v;
-                d[2] = a * (-v / sigma - norm * (dw * z).re / sigma);
-                d[3] = -a * norm * dw.im / s2;
+                d[2] = -(a * v + an * (dw * z).re) * inv_sigma;
+                d[3] = -an * dw.im * inv_s2;
                 a * v
             }
         }
@@ -183,6 +197,15 @@ impl Shape {
     }
 }
 
+/// The scaled offset (x − c)/(σ√2) and the common imaginary part γ/(σ√2) of the
+/// Faddeeva argument of a Voigt with parameters `p` at `x` (the same arithmetic as
+/// [`Shape::eval_with`], so precomputed values match bit for bit).
+#[inline]
+pub fn voigt_arguments(p: &[f64], x: f64) -> (f64, f64) {
+    let inv_s2 = 1.0 / (p[2] * SQRT_2);
+    ((x - p[0]) * inv_s2, p[3] * inv_s2)
+}
+
 /// Olivero & Longbothum (1977) Voigt FWHM from σ and γ, with ∂/∂σ and ∂/∂γ.
 pub fn voigt_fwhm(sigma: f64, gamma: f64) -> (f64, f64, f64) {
     let k = gauss_fwhm_per_sigma();
@@ -201,10 +224,11 @@ pub fn voigt_fwhm(sigma: f64, gamma: f64) -> (f64, f64, f64) {
 /// Unit-area Gaussian of FWHM `w` at offset `t = x − c`, with ∂/∂c and ∂/∂w.
 #[inline]
 fn gauss_unit(t: f64, w: f64) -> (f64, f64, f64) {
-    let sigma = w / gauss_fwhm_per_sigma();
-    let q = t / sigma;
-    let g = (-0.5 * q * q).exp() / (sigma * SQRT_2PI);
-    (g, g * q / sigma, g * (q * q - 1.0) / w)
+    let inv_w = 1.0 / w;
+    let inv_sigma = gauss_fwhm_per_sigma() * inv_w;
+    let q = t * inv_sigma;
+    let g = (-0.5 * q * q).exp() * inv_sigma * (1.0 / SQRT_2PI);
+    (g, g * q * inv_sigma, g * (q * q - 1.0) * inv_w)
 }
 
 /// Unit-area Lorentzian of FWHM `w` at offset `t`, with ∂/∂c and ∂/∂w.
@@ -220,10 +244,9 @@ fn lorentz_unit(t: f64, w: f64) -> (f64, f64, f64) {
     )
 }
 
-/// The Faddeeva function w(z) = exp(−z²) erfc(−iz).
+/// The Faddeeva function w(z) = exp(−z²) erfc(−iz) as the fit evaluates it.
 pub fn faddeeva(re: f64, im: f64) -> (f64, f64) {
-    let w = Complex::new(re, im).w();
-    (w.re, w.im)
+    faddeeva::w(re, im)
 }
 
 #[cfg(test)]

@@ -177,6 +177,7 @@ pub fn solve<P: Problem>(
     let mut theta_new = vec![0.0; p];
     let mut dtheta_new = vec![0.0; p];
     let mut a = DMatrix::zeros(p, p);
+    let mut g = DVector::zeros(p);
     let mut diag_max = vec![0.0f64; p];
     let mut lambda = 1e-3;
     let mut nu = 2.0;
@@ -189,9 +190,7 @@ pub fn solve<P: Problem>(
             break (true, "χ² is zero (the model fits exactly)".to_string());
         }
         // Normal matrix and gradient in u: scale by dθ/du (A_u = S A_θ S, g_u = S g_θ).
-        jac.tr_mul_to(&jac, &mut a);
-        let rv = DVector::from_column_slice(&r);
-        let mut g = jac.tr_mul(&rv);
+        normal_equations(&jac, &r, &mut a, &mut g);
         for r_ in 0..p {
             g[r_] *= dtheta[r_];
             for c in 0..p {
@@ -323,6 +322,37 @@ pub fn solve<P: Problem>(
         jacobian: jac,
         residuals: r,
     })
+}
+
+/// Dot product with four accumulators (lets the compiler use vector registers).
+#[inline]
+fn dot4(a: &[f64], b: &[f64]) -> f64 {
+    let mut s = [0.0; 4];
+    let (ca, cb) = (a.chunks_exact(4), b.chunks_exact(4));
+    let (ra, rb) = (ca.remainder(), cb.remainder());
+    for (x, y) in ca.zip(cb) {
+        for k in 0..4 {
+            s[k] += x[k] * y[k];
+        }
+    }
+    let tail: f64 = ra.iter().zip(rb).map(|(x, y)| x * y).sum();
+    (s[0] + s[1]) + (s[2] + s[3]) + tail
+}
+
+/// A = JᵀJ (both triangles from one) and g = Jᵀr, from J's contiguous columns.
+fn normal_equations(j: &DMatrix<f64>, r: &[f64], a: &mut DMatrix<f64>, g: &mut DVector<f64>) {
+    let n = j.nrows();
+    let p = j.ncols();
+    let js = j.as_slice();
+    for c1 in 0..p {
+        let col1 = &js[c1 * n..(c1 + 1) * n];
+        g[c1] = dot4(col1, r);
+        for c2 in c1..p {
+            let v = dot4(col1, &js[c2 * n..(c2 + 1) * n]);
+            a[(c1, c2)] = v;
+            a[(c2, c1)] = v;
+        }
+    }
 }
 
 /// (JᵀJ)⁻¹ by Cholesky on the column-scaled normal matrix; None when singular.

@@ -63,8 +63,25 @@ impl<'de, T: Deserialize<'de>> Deserialize<'de> for Ordered<T> {
     }
 }
 
+/// The three visitor methods that read any JSON number into `Type::Variant(f64)`.
+macro_rules! numbers_visit_as {
+    ($ty:ident :: $variant:ident) => {
+        fn visit_f64<E: serde::de::Error>(self, v: f64) -> Result<$ty, E> {
+            Ok($ty::$variant(v))
+        }
+        fn visit_i64<E: serde::de::Error>(self, v: i64) -> Result<$ty, E> {
+            Ok($ty::$variant(v as f64))
+        }
+        fn visit_u64<E: serde::de::Error>(self, v: u64) -> Result<$ty, E> {
+            Ok($ty::$variant(v as f64))
+        }
+    };
+}
+
 /// A parameter: a bare number is a start value; the long form adds bounds, fixing or a link.
-#[derive(Clone, Debug, PartialEq, Serialize, Deserialize, JsonSchema)]
+/// (Read by hand rather than as an untagged enum, so a misspelt key in the long form is
+/// reported by name with the keys that would have been accepted.)
+#[derive(Clone, Debug, PartialEq, Serialize, JsonSchema)]
 #[serde(untagged)]
 pub enum ParamSpec {
     /// Start value; the parameter is free and unbounded (widths stay positive).
@@ -89,6 +106,24 @@ pub struct ParamDetail {
     pub same_as: Option<String>,
     /// Computed from other parameters, e.g. `cc.center + 1.5` or `0.5 * cc.area`.
     pub expr: Option<String>,
+}
+
+impl<'de> Deserialize<'de> for ParamSpec {
+    fn deserialize<D: Deserializer<'de>>(d: D) -> Result<Self, D::Error> {
+        struct V;
+        impl<'de> Visitor<'de> for V {
+            type Value = ParamSpec;
+            fn expecting(&self, f: &mut fmt::Formatter) -> fmt::Result {
+                f.write_str("a number, or a map with value, min, max, fixed, same_as or expr")
+            }
+            numbers_visit_as!(ParamSpec::Value);
+            fn visit_map<A: MapAccess<'de>>(self, a: A) -> Result<ParamSpec, A::Error> {
+                ParamDetail::deserialize(serde::de::value::MapAccessDeserializer::new(a))
+                    .map(ParamSpec::Detail)
+            }
+        }
+        d.deserialize_any(V)
+    }
 }
 
 impl ParamSpec {
@@ -136,13 +171,37 @@ impl SubShell {
 }
 
 /// An area ratio: a number, or a sub-shell letter.
-#[derive(Clone, Debug, PartialEq, Serialize, Deserialize, JsonSchema)]
+#[derive(Clone, Debug, PartialEq, Serialize, JsonSchema)]
 #[serde(untagged)]
 pub enum Ratio {
     /// Area of this peak divided by the area of the other.
     Value(f64),
     /// The degeneracy ratio of a p, d or f doublet.
     Shell(SubShell),
+}
+
+impl<'de> Deserialize<'de> for Ratio {
+    fn deserialize<D: Deserializer<'de>>(d: D) -> Result<Self, D::Error> {
+        struct V;
+        impl<'de> Visitor<'de> for V {
+            type Value = Ratio;
+            fn expecting(&self, f: &mut fmt::Formatter) -> fmt::Result {
+                f.write_str("a number or one of p, d, f")
+            }
+            numbers_visit_as!(Ratio::Value);
+            fn visit_str<E: serde::de::Error>(self, v: &str) -> Result<Ratio, E> {
+                match v {
+                    "p" => Ok(Ratio::Shell(SubShell::P)),
+                    "d" => Ok(Ratio::Shell(SubShell::D)),
+                    "f" => Ok(Ratio::Shell(SubShell::F)),
+                    _ => Err(E::custom(format!(
+                        "'{v}' is not a sub-shell: use p (1:2), d (2:3), f (3:4) or a number"
+                    ))),
+                }
+            }
+        }
+        d.deserialize_any(V)
+    }
 }
 
 impl Ratio {
@@ -714,5 +773,27 @@ mod tests {
             serde_json::from_value::<FitSpec>(serde_json::json!({"peaks": {"a": {"centre": 1}}}));
         assert!(e.is_err());
         assert_eq!(SubShell::D.ratio(), 2.0 / 3.0);
+        // A misspelt key in a parameter's long form is named, with the accepted keys.
+        let e = crate::stage::parse_options::<FitSpec>(
+            &serde_json::json!({"peaks": {"a": {"fwhm": {"maxx": 2.0}}}}),
+        )
+        .unwrap_err();
+        assert_eq!(e.path, "peaks.a.fwhm.maxx");
+        let u = e.unknown_key.expect("unknown key reported");
+        assert_eq!(u.key, "maxx");
+        assert!(u.expected.contains(&"max".to_string()));
+        let e = crate::stage::parse_options::<FitSpec>(&serde_json::json!(
+            {"peaks": {"a": {"doublet": {"of": "b", "split": 1, "ratio": "q"}}}}
+        ))
+        .unwrap_err();
+        assert!(e.message.contains("not a sub-shell"), "{}", e.message);
+        let ok: FitSpec = serde_json::from_value(serde_json::json!(
+            {"peaks": {"a": {"center": 3, "area": {"value": 2, "min": 0}}}}
+        ))
+        .unwrap();
+        assert_eq!(
+            ok.peaks.get("a").unwrap().center,
+            Some(ParamSpec::Value(3.0))
+        );
     }
 }
