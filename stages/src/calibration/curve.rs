@@ -131,7 +131,10 @@ impl TypedStage for CalibrationCurve {
             ));
         }
         if o.replicates == 0 {
-            return Err(OptionError::new("replicates", "replicates must be at least 1"));
+            return Err(OptionError::new(
+                "replicates",
+                "replicates must be at least 1",
+            ));
         }
         Ok(())
     }
@@ -206,10 +209,20 @@ impl TypedStage for CalibrationCurve {
         ];
         if deg == 2 {
             let cu = unit_ratio(&y_unit, &format!("{xu}²"));
-            recs.push(Record::number("curvature", fit.coef[2], Some(fit.stderr(2)), &cu));
+            recs.push(Record::number(
+                "curvature",
+                fit.coef[2],
+                Some(fit.stderr(2)),
+                &cu,
+            ));
         }
         let corr = fit.cov[0][1] / (fit.stderr(0) * fit.stderr(1));
-        recs.push(Record::number("correlation_intercept_slope", corr, None, ""));
+        recs.push(Record::number(
+            "correlation_intercept_slope",
+            corr,
+            None,
+            "",
+        ));
         recs.push(Record::number("residual_sd", s, None, &y_unit));
         recs.push(Record::number("r_squared", fit.r_squared, None, ""));
         recs.push(Record::number("standards_count", x.len() as f64, None, ""));
@@ -218,7 +231,9 @@ impl TypedStage for CalibrationCurve {
 
         let (xmin, xmax) = x
             .iter()
-            .fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), v| (a.min(*v), b.max(*v)));
+            .fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), v| {
+                (a.min(*v), b.max(*v))
+            });
         let mut art = Artifact::new(Value::Summary);
         let mut col_item = Vec::new();
         let mut col_role = Vec::new();
@@ -258,7 +273,12 @@ impl TypedStage for CalibrationCurve {
                             "{item}: predicted {x0:.4} {xu} lies outside the calibrated range [{xmin}, {xmax}]"
                         ));
                     }
-                    recs.push(Record::number(format!("predicted.{item}"), x0, Some(u0), xu));
+                    recs.push(Record::number(
+                        format!("predicted.{item}"),
+                        x0,
+                        Some(u0),
+                        xu,
+                    ));
                     col_pred.push(x0);
                     col_pred_u.push(u0);
                 }
@@ -351,7 +371,9 @@ pub fn inverse_predict(
     };
     let d = fit.derivative(x0);
     if d == 0.0 {
-        return Err(StageError::numeric("the calibration curve is flat at the prediction"));
+        return Err(StageError::numeric(
+            "the calibration curve is flat at the prediction",
+        ));
     }
     let var = (var_y0 + fit.curve_variance(x0)) / (d * d);
     let x0 = quant_util::finite("predicted value", x0)?;
