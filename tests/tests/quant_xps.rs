@@ -223,3 +223,40 @@ fn component_fractions_with_correlated_areas() {
     assert!((f - 0.6).abs() < 1e-12);
     assert!((u.unwrap() - 5.344e-5f64.sqrt()).abs() < 1e-9, "{u:?}");
 }
+
+#[test]
+fn fermi_level_of_a_fermi_dirac_edge_feeds_the_work_function() {
+    // Metal reference at 300 K on a binding-energy axis: y = 10 + 990·f(BE), with the
+    // Fermi–Dirac occupancy f = 1/(1 + exp(−BE/kT)), kT = 0.025852 eV, E_F at BE = 0.
+    // f(−x) = 1 − f(x), so on a grid symmetric about 0 the least-squares line through
+    // the 20–80 % points passes through (0, 505), the half height between the baseline
+    // (10, mean of −1…−0.5 eV) and the plateau (1000, mean of 1.5…2 eV): E_F = 0.
+    let kt = 0.025852;
+    let be: Vec<f64> = (0..=600).map(|i| -1.0 + i as f64 * 0.005).collect();
+    let y = be
+        .iter()
+        .map(|e| 10.0 + 990.0 / (1.0 + (-e / kt).exp()))
+        .collect();
+    let s = Spectrum::new(
+        be,
+        y,
+        Axis::new("binding energy", "eV"),
+        Axis::new("intensity", "counts"),
+    );
+    let a = Artifact::new(Value::Spectrum(s));
+    let ef = run(
+        "ups.fermi_level",
+        serde_json::json!({"plateau_range": [1.5, 2.0], "edge": {"baseline_range": [-1.0, -0.5]}}),
+        vec![PortValue::One(&a)],
+    );
+    let (e, _) = num(&ef, "fermi_level");
+    assert!(e.abs() < 1e-6, "{e}");
+    // Connected to the work-function stage (BE axis, cutoff at 16.72 eV): φ = 4.50 eV.
+    let cut = Artifact::new(Value::Spectrum(cutoff_spectrum(9.50, false, 26.22)));
+    let out = run(
+        "ups.work_function",
+        serde_json::json!({"photon_energy": 21.22}),
+        vec![PortValue::One(&cut), PortValue::One(&ef)],
+    );
+    assert!((num(&out, "work_function").0 - 4.50).abs() < 1e-5);
+}

@@ -429,6 +429,48 @@ mod tests {
     }
 
     #[test]
+    fn weight_two_equals_a_duplicated_standard() {
+        // Weighted least squares with w = 1/σ²: a standard with σ = 1/√2 (weight 2)
+        // gives the same coefficients as ordinary least squares with it listed twice.
+        let xs = [1.0, 2.0, 3.0, 4.0, 5.0];
+        let ys = [2.1, 3.9, 6.2, 7.8, 10.3];
+        let mut arts: Vec<(String, Artifact)> = (0..5)
+            .map(|i| {
+                let u = if i == 2 { 0.5f64.sqrt() } else { 1.0 };
+                (format!("s{i}"), item(ys[i], Some(u)))
+            })
+            .collect();
+        arts.push(("zz".into(), item(5.0, Some(1.0))));
+        let many: Vec<(&str, &Artifact)> = arts.iter().map(|(n, a)| (n.as_str(), a)).collect();
+        let o = Options {
+            response: "a".into(),
+            standards: (0..5).map(|i| (format!("s{i}"), xs[i])).collect(),
+            weighting: Weighting::InverseVariance,
+            ..Options::default()
+        };
+        let out = CalibrationCurve
+            .run(
+                &Inputs {
+                    item: None,
+                    ports: vec![PortValue::Many(many)],
+                },
+                &o,
+            )
+            .unwrap();
+        let dup = polyfit(
+            &[1.0, 2.0, 3.0, 3.0, 4.0, 5.0],
+            &[2.1, 3.9, 6.2, 6.2, 7.8, 10.3],
+            None,
+            1,
+        )
+        .unwrap();
+        let b = out.result("slope").unwrap().as_number().unwrap();
+        let a = out.result("intercept").unwrap().as_number().unwrap();
+        assert!((b - dup.coef[1]).abs() < 1e-12 && (a - dup.coef[0]).abs() < 1e-12);
+        assert!(out.result("predicted.zz").unwrap().uncertainty.unwrap() > 0.0);
+    }
+
+    #[test]
     fn too_few_standards_are_refused() {
         let o = Options {
             response: "a".into(),

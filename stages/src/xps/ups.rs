@@ -107,6 +107,8 @@ pub struct Edge {
     pub to: f64,
     pub points: usize,
     pub baseline: f64,
+    /// Intensity of the maximum the edge was walked from.
+    pub top: f64,
 }
 
 /// Extrapolates the edge lying in direction `dir` (+1: towards higher x) from the maximum.
@@ -192,6 +194,7 @@ pub fn extrapolate_edge(s: &Spectrum, o: &EdgeOptions, dir: isize) -> Result<Edg
         to: ex[ex.len() - 1],
         points: ex.len(),
         baseline: level,
+        top: y[imax],
     })
 }
 
@@ -471,6 +474,73 @@ impl TypedStage for ValenceBandMaximum {
         if o.edge.search_range.is_none() && o.edge.edge_range.is_none() {
             art.warn("no search_range or edge_range: the leading edge was taken next to the spectrum's overall maximum");
         }
+        Ok(art)
+    }
+}
+
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize, JsonSchema, Default)]
+#[serde(deny_unknown_fields, default)]
+pub struct FermiOptions {
+    /// Energy range whose mean intensity is the level just inside the metal's occupied
+    /// states (below E_F); the intensity maximum next to the edge when absent.
+    #[schemars(extend("x-unit" = "eV"))]
+    pub plateau_range: Option<[f64; 2]>,
+    /// How the Fermi edge is found and fitted (give search_range around the edge).
+    pub edge: EdgeOptions,
+}
+
+pub struct FermiLevel;
+
+static FERMI_INPUTS: &[Port] = &[Port::each(
+    "spectrum",
+    Kind::Spectrum,
+    "a UPS or XPS spectrum of a clean metal reference across its Fermi edge",
+)];
+
+impl TypedStage for FermiLevel {
+    type Options = FermiOptions;
+    const INFO: &'static StageInfo = &StageInfo {
+        name: "ups.fermi_level",
+        version: 1,
+        summary: "Fermi level of a metal reference at the half height of its Fermi edge",
+        inputs: FERMI_INPUTS,
+        output: Kind::Spectrum,
+        references: &[CAHEN_KAHN, quant_util::GUM],
+    };
+
+    fn check(&self, o: &FermiOptions) -> Result<(), OptionError> {
+        check_range("plateau_range", o.plateau_range)?;
+        check_edge(&o.edge)
+    }
+
+    fn methods(&self, o: &FermiOptions) -> String {
+        let top = match o.plateau_range {
+            Some(r) => format!("the mean intensity between {} and {} eV", r[0], r[1]),
+            None => "the intensity maximum next to the edge".to_string(),
+        };
+        format!(
+            "The Fermi level of the metal reference was taken where the Fermi edge (fitted by {}) reaches half the height between the baseline and {top}, where the Fermi–Dirac occupancy is 1/2 (common practice) [cahen2003], with the uncertainty from the line fit [jcgm2008].",
+            edge_methods(&o.edge)
+        )
+    }
+
+    fn run(&self, inputs: &Inputs, o: &FermiOptions) -> Result<Artifact, StageError> {
+        let s = inputs.spectrum(0)?;
+        let scale = scale_of(s, o.edge.scale)?;
+        // Occupied states lie at higher binding / lower kinetic energy than E_F.
+        let dir = if scale == Scale::Binding { -1 } else { 1 };
+        let e = extrapolate_edge(s, &o.edge, dir)?;
+        let (top, u_top) = match o.plateau_range {
+            Some(r) => mean_and_se(&s.y, &indices_in(&s.x, r))
+                .ok_or_else(|| StageError::input("no points in plateau_range"))?,
+            None => (e.top, 0.0),
+        };
+        let mid = 0.5 * (e.baseline + top);
+        let (ef, u) = line_crossing(&e.fit, mid, 0.5 * u_top)?;
+        let mut art = Artifact::new(Value::Spectrum(with_guide(s, &e, "Fermi-edge line")));
+        art.record(Record::number("fermi_level", ef, Some(u), "eV"));
+        art.record(Record::number("half_height", mid, None, &s.y_axis.unit));
+        edge_records(&mut art, "edge", &e, &s.y_axis.unit);
         Ok(art)
     }
 }
