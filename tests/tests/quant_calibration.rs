@@ -86,6 +86,7 @@ fn run(c: &Certified, model: &str) -> Artifact {
 
 fn close(name: &str, got: f64, want: f64) {
     let rel = ((got - want) / want).abs();
+    eprintln!("{name}: got {got:e}, certified {want:e}, relative deviation {rel:.1e}");
     assert!(
         rel < 1e-9,
         "{name}: got {got:e}, certified {want:e} (relative {rel:e})"

@@ -69,6 +69,11 @@ fn tauc_direct_allowed_gap_recovered() {
             vec![PortValue::One(&a)],
         );
         let (eg, u) = num(&out, "band_gap");
+        eprintln!(
+            "direct, saturate={saturate}: Eg = {eg} ± {u:?} eV, window {:?}–{:?} eV",
+            num(&out, "fit_from").0,
+            num(&out, "fit_to").0
+        );
         assert!((eg - 2.35).abs() < 0.01, "saturate={saturate}: Eg = {eg}");
         assert!(u.unwrap() < 0.01);
         let s = out.spectrum().unwrap();
@@ -87,7 +92,12 @@ fn tauc_indirect_allowed_gap_recovered() {
             serde_json::json!({"transition": "indirect_allowed"}),
             vec![PortValue::One(&a)],
         );
-        let (eg, _) = num(&out, "band_gap");
+        let (eg, u) = num(&out, "band_gap");
+        eprintln!(
+            "indirect, saturate={saturate}: Eg = {eg} ± {u:?} eV, window {:?}–{:?} eV",
+            num(&out, "fit_from").0,
+            num(&out, "fit_to").0
+        );
         assert!((eg - 1.80).abs() < 0.01, "saturate={saturate}: Eg = {eg}");
     }
 }

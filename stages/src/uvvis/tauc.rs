@@ -10,7 +10,8 @@
 //! consecutive points (ascending energy, inside `search_range`), keep those whose line
 //! fit has positive slope, R² ≥ `min_r_squared` and an x-intercept at or below the
 //! run's first energy; choose the run maximising slope × R² (the steepest straight part
-//! of the edge; ties go to the lower energy). Eg = −a/b from the line y = a + b·hν with
+//! of the edge; scores within 1e-9 relative count as tied and the lower energy wins).
+//! Eg = −a/b from the line y = a + b·hν with
 //! its standard uncertainty from the fit covariance.
 
 use super::photon_energy;
@@ -308,7 +309,8 @@ fn auto_window(ex: &[f64], ty: &[f64], o: &Options) -> Result<(PolyFit, usize, u
             continue;
         }
         let score = slope * fit.r_squared;
-        if best.as_ref().is_none_or(|b| score > b.0) {
+        // Scores within 1e-9 (relative) of each other count as tied: the lower energy wins.
+        if best.as_ref().is_none_or(|b| score > b.0 * (1.0 + 1e-9)) {
             best = Some((score, fit, win[0], win[w - 1]));
         }
     }
