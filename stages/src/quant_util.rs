@@ -108,7 +108,9 @@ pub fn polyfit(x: &[f64], y: &[f64], w: Option<&[f64]>, deg: usize) -> Result<Po
     let ym = y.iter().zip(&weights).map(|(a, b)| a * b).sum::<f64>() / sw;
     let xs = (x.iter().map(|v| (v - xm).powi(2)).sum::<f64>() / n as f64).sqrt();
     if xs == 0.0 || !xs.is_finite() {
-        return Err(StageError::input("all x values are equal: no fit is possible"));
+        return Err(StageError::input(
+            "all x values are equal: no fit is possible",
+        ));
     }
     let mut a = DMatrix::<f64>::zeros(n, p);
     let mut b = DVector::<f64>::zeros(n);
@@ -165,9 +167,17 @@ pub fn polyfit(x: &[f64], y: &[f64], w: Option<&[f64]>, deg: usize) -> Result<Po
     let cx = &t * &ct;
     let covx = &t * (inv_ata * s2) * t.transpose();
     let coef: Vec<f64> = cx.iter().copied().collect();
-    let cov: Vec<Vec<f64>> = (0..p).map(|i| (0..p).map(|j| covx[(i, j)]).collect()).collect();
-    if coef.iter().chain(cov.iter().flatten()).any(|v| !v.is_finite()) {
-        return Err(StageError::numeric("the least-squares solution is not finite"));
+    let cov: Vec<Vec<f64>> = (0..p)
+        .map(|i| (0..p).map(|j| covx[(i, j)]).collect())
+        .collect();
+    if coef
+        .iter()
+        .chain(cov.iter().flatten())
+        .any(|v| !v.is_finite())
+    {
+        return Err(StageError::numeric(
+            "the least-squares solution is not finite",
+        ));
     }
     Ok(PolyFit {
         coef,
@@ -190,7 +200,9 @@ fn binomial(n: usize, k: usize) -> f64 {
 pub fn x_intercept(fit: &PolyFit) -> Result<(f64, f64), StageError> {
     let (a, b) = (fit.coef[0], fit.coef[1]);
     if b == 0.0 {
-        return Err(StageError::numeric("the fitted line is horizontal: no intercept"));
+        return Err(StageError::numeric(
+            "the fitted line is horizontal: no intercept",
+        ));
     }
     let x0 = -a / b;
     // ∂x0/∂a = −1/b, ∂x0/∂b = a/b² = −x0/b.
@@ -203,7 +215,9 @@ pub fn x_intercept(fit: &PolyFit) -> Result<(f64, f64), StageError> {
 pub fn line_crossing(fit: &PolyFit, level: f64, u_level: f64) -> Result<(f64, f64), StageError> {
     let (a, b) = (fit.coef[0], fit.coef[1]);
     if b == 0.0 {
-        return Err(StageError::numeric("the fitted line is horizontal: it never crosses the level"));
+        return Err(StageError::numeric(
+            "the fitted line is horizontal: it never crosses the level",
+        ));
     }
     let x = (level - a) / b;
     // ∂x/∂a = −1/b, ∂x/∂b = −x/b, ∂x/∂L = 1/b.
@@ -230,7 +244,12 @@ pub fn mean_and_se(y: &[f64], idx: &[usize]) -> Option<(f64, f64)> {
 pub fn propagate(f: &dyn Fn(&[f64]) -> f64, x: &[f64], u: &[f64]) -> f64 {
     jacobian(&|v: &[f64]| vec![f(v)], x, u)
         .iter()
-        .map(|row| row.iter().zip(u).map(|(g, ui)| (g * ui).powi(2)).sum::<f64>())
+        .map(|row| {
+            row.iter()
+                .zip(u)
+                .map(|(g, ui)| (g * ui).powi(2))
+                .sum::<f64>()
+        })
         .sum::<f64>()
         .sqrt()
 }
@@ -262,7 +281,13 @@ pub fn jacobian(f: &dyn Fn(&[f64]) -> Vec<f64>, x: &[f64], u: &[f64]) -> Vec<Vec
 pub fn propagate_vec(f: &dyn Fn(&[f64]) -> Vec<f64>, x: &[f64], u: &[f64]) -> Vec<f64> {
     jacobian(f, x, u)
         .iter()
-        .map(|row| row.iter().zip(u).map(|(g, ui)| (g * ui).powi(2)).sum::<f64>().sqrt())
+        .map(|row| {
+            row.iter()
+                .zip(u)
+                .map(|(g, ui)| (g * ui).powi(2))
+                .sum::<f64>()
+                .sqrt()
+        })
         .collect()
 }
 
@@ -348,12 +373,18 @@ pub fn record_number(a: &Artifact, name: &str) -> Result<(f64, Option<f64>, Stri
         let have: Vec<&str> = a.results.iter().map(|r| r.name.as_str()).collect();
         StageError::input(format!(
             "the input has no result named '{name}' (it has: {})",
-            if have.is_empty() { "none".to_string() } else { have.join(", ") }
+            if have.is_empty() {
+                "none".to_string()
+            } else {
+                have.join(", ")
+            }
         ))
     })?;
     match r.value {
         Scalar::Number(v) if v.is_finite() => Ok((v, r.uncertainty, r.unit.clone())),
-        _ => Err(StageError::input(format!("result '{name}' is not a finite number"))),
+        _ => Err(StageError::input(format!(
+            "result '{name}' is not a finite number"
+        ))),
     }
 }
 
@@ -401,11 +432,7 @@ pub fn located_peaks(a: Option<&Artifact>) -> Vec<Located> {
 
 /// Reads an embedded CSV table (header row, `#` comments skipped) into string rows,
 /// checking the header; the error names the table and 1-based line.
-pub fn read_table(
-    name: &str,
-    text: &str,
-    header: &[&str],
-) -> Result<Vec<Vec<String>>, StageError> {
+pub fn read_table(name: &str, text: &str, header: &[&str]) -> Result<Vec<Vec<String>>, StageError> {
     let mut rd = csv::ReaderBuilder::new()
         .comment(Some(b'#'))
         .trim(csv::Trim::All)
@@ -464,7 +491,9 @@ pub fn finite(name: &str, v: f64) -> Result<f64, StageError> {
     if v.is_finite() {
         Ok(v)
     } else {
-        Err(StageError::numeric(format!("{name} is not a finite number")))
+        Err(StageError::numeric(format!(
+            "{name} is not a finite number"
+        )))
     }
 }
 
@@ -510,7 +539,10 @@ mod tests {
 
     #[test]
     fn interpolation_works_on_descending_axes() {
-        assert_eq!(interpolate(&[3.0, 2.0, 1.0], &[30.0, 20.0, 10.0], 1.5), Some(15.0));
+        assert_eq!(
+            interpolate(&[3.0, 2.0, 1.0], &[30.0, 20.0, 10.0], 1.5),
+            Some(15.0)
+        );
         assert_eq!(interpolate(&[3.0, 2.0], &[30.0, 20.0], 5.0), None);
     }
 }

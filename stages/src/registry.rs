@@ -31,6 +31,7 @@ pub static CATALOG: &[&dyn Stage] = &[
     &crate::xps::fractions::XpsFractions,
     &crate::xps::ups::WorkFunction,
     &crate::xps::ups::ValenceBandMaximum,
+    &crate::xps::ups::FermiLevel,
     // quantification: EDS
     &crate::eds::calibrate::EdsCalibrate,
     &crate::eds::identify::EdsIdentify,

@@ -7,7 +7,14 @@ use stages::{Artifact, Axis, Peak, PeakList, Record, Spectrum, Value};
 fn run(stage: &str, opts: serde_json::Value, ports: Vec<PortValue>) -> Artifact {
     let s = stages::find(stage).unwrap();
     let o = s.resolve_options(&opts).unwrap();
-    s.run(&Inputs { item: Some("x"), ports }, &o).unwrap()
+    s.run(
+        &Inputs {
+            item: Some("x"),
+            ports,
+        },
+        &o,
+    )
+    .unwrap()
 }
 
 fn num(a: &Artifact, name: &str) -> (f64, Option<f64>) {
@@ -16,7 +23,11 @@ fn num(a: &Artifact, name: &str) -> (f64, Option<f64>) {
 }
 
 fn text(a: &Artifact, name: &str) -> String {
-    match &a.result(name).unwrap_or_else(|| panic!("no result {name}")).value {
+    match &a
+        .result(name)
+        .unwrap_or_else(|| panic!("no result {name}"))
+        .value
+    {
         stages::Scalar::Text(t) => t.clone(),
         stages::Scalar::Number(v) => v.to_string(),
     }
@@ -47,7 +58,11 @@ fn line_energies_spot_checked_against_the_x_ray_data_booklet() {
     ];
     for (name, ev) in expect {
         let l = stages::eds::lines::find_line(name).unwrap();
-        assert!((l.energy_kev * 1000.0 - ev).abs() < 1e-6, "{name}: {} keV", l.energy_kev);
+        assert!(
+            (l.energy_kev * 1000.0 - ev).abs() < 1e-6,
+            "{name}: {} keV",
+            l.energy_kev
+        );
         assert!(l.source.contains("X-ray Data Booklet"));
     }
 }
@@ -57,21 +72,55 @@ fn sulfur_molybdenum_lead_overlap_is_flagged() {
     // A peak at 2.308 keV: S Kα1 2.30784 (−0.0002), Mo Lα1 2.29316 (−0.0148) and
     // Pb Mα1 2.3455 (+0.0375) all lie within the default ±0.05 keV; Fe Kα1 6.40384 is
     // alone at 6.404 keV (Fe Kα2 6.39084 is the same element).
-    let s = Spectrum::new(vec![0.0, 10.0], vec![0.0, 0.0], Axis::new("energy", "keV"), Axis::new("counts", "counts"));
-    let pk = |e: f64| Peak { index: 0, position: e, height: 100.0, prominence: 100.0, fwhm: 0.13 };
-    let a = Artifact::new(Value::Peaks(PeakList { spectrum: s, peaks: vec![pk(2.308), pk(6.404)] }));
-    let out = run("eds.identify", serde_json::json!({}), vec![PortValue::One(&a)]);
+    let s = Spectrum::new(
+        vec![0.0, 10.0],
+        vec![0.0, 0.0],
+        Axis::new("energy", "keV"),
+        Axis::new("counts", "counts"),
+    );
+    let pk = |e: f64| Peak {
+        index: 0,
+        position: e,
+        height: 100.0,
+        prominence: 100.0,
+        fwhm: 0.13,
+    };
+    let a = Artifact::new(Value::Peaks(PeakList {
+        spectrum: s,
+        peaks: vec![pk(2.308), pk(6.404)],
+    }));
+    let out = run(
+        "eds.identify",
+        serde_json::json!({}),
+        vec![PortValue::One(&a)],
+    );
     assert_eq!(text(&out, "peak.1.best"), "S Kα1");
     let c = text(&out, "peak.1.candidates");
     assert!(c.contains("Mo Lα1") && c.contains("Pb Mα1"), "{c}");
-    assert!(out.notes.iter().any(|n| n.text.contains("Mo") && n.text.contains("Pb") && n.text.contains('S')));
+    assert!(out
+        .notes
+        .iter()
+        .any(|n| n.text.contains("Mo") && n.text.contains("Pb") && n.text.contains('S')));
     assert_eq!(text(&out, "peak.2.best"), "Fe Kα1");
     assert!(!out.notes.iter().any(|n| n.text.contains("6.404")));
 }
 
 fn gaussian_spectrum(x: Vec<f64>, centres: &[f64], sigma: f64, xu: &str) -> Artifact {
-    let y = x.iter().map(|&v| 20.0 + centres.iter().map(|c| 1000.0 * (-(v - c).powi(2) / (2.0 * sigma * sigma)).exp()).sum::<f64>()).collect();
-    Artifact::new(Value::Spectrum(Spectrum::new(x, y, Axis::new(if xu == "keV" { "energy" } else { "channel" }, xu), Axis::new("counts", "counts"))))
+    let y = x
+        .iter()
+        .map(|&v| {
+            20.0 + centres
+                .iter()
+                .map(|c| 1000.0 * (-(v - c).powi(2) / (2.0 * sigma * sigma)).exp())
+                .sum::<f64>()
+        })
+        .collect();
+    Artifact::new(Value::Spectrum(Spectrum::new(
+        x,
+        y,
+        Axis::new(if xu == "keV" { "energy" } else { "channel" }, xu),
+        Axis::new("counts", "counts"),
+    )))
 }
 
 #[test]
@@ -81,17 +130,33 @@ fn two_line_energy_calibration() {
     let ch: Vec<f64> = (0..2048).map(|i| i as f64).collect();
     let a = gaussian_spectrum(ch, &[317.34, 1629.556], 10.0, "");
     // Exact positions: gain and offset are recovered exactly.
-    let out = run("eds.calibrate", serde_json::json!({"lines": [{"position": 317.34, "line": "Al Ka1"}, {"position": 1629.556, "line": "Cu Ka1"}]}), vec![PortValue::One(&a)]);
+    let out = run(
+        "eds.calibrate",
+        serde_json::json!({"lines": [{"position": 317.34, "line": "Al Ka1"}, {"position": 1629.556, "line": "Cu Ka1"}]}),
+        vec![PortValue::One(&a)],
+    );
     assert!((num(&out, "gain").0 - 0.005).abs() < 1e-12);
     assert!((num(&out, "offset").0 + 0.1).abs() < 1e-9);
     // Approximate positions refined by the parabola vertex (Gaussian σ = 10 channels):
     // good to a few thousandths of a channel.
-    let out = run("eds.calibrate", serde_json::json!({"lines": [{"position": 318, "line": "Al Ka1"}, {"position": 1628, "line": "Cu Ka1"}], "refine": 8}), vec![PortValue::One(&a)]);
-    assert!((num(&out, "gain").0 - 0.005).abs() < 1e-7, "{:?}", num(&out, "gain"));
+    let out = run(
+        "eds.calibrate",
+        serde_json::json!({"lines": [{"position": 318, "line": "Al Ka1"}, {"position": 1628, "line": "Cu Ka1"}], "refine": 8}),
+        vec![PortValue::One(&a)],
+    );
+    assert!(
+        (num(&out, "gain").0 - 0.005).abs() < 1e-7,
+        "{:?}",
+        num(&out, "gain")
+    );
     assert!((num(&out, "offset").0 + 0.1).abs() < 1e-4);
     assert_eq!(out.spectrum().unwrap().x_axis.unit, "keV");
     // Local-maximum identification on the calibrated spectrum finds Al and Cu.
-    let id = run("eds.identify", serde_json::json!({"families": ["K"]}), vec![PortValue::One(&out)]);
+    let id = run(
+        "eds.identify",
+        serde_json::json!({"families": ["K"]}),
+        vec![PortValue::One(&out)],
+    );
     let els = text(&id, "elements");
     assert!(els.contains("Al") && els.contains("Cu"), "{els}");
 }
@@ -106,9 +171,27 @@ fn net_counts_over_side_window_background() {
     //   var(mean) = 50/10 = 5 each: var(B) = 10.5²·(5 + 5) = 1102.5.
     //   u(N) = √(G + var B) = √3252.5 = 57.031.
     let x: Vec<f64> = (0..1000).map(|i| i as f64 / 100.0).collect();
-    let y = x.iter().map(|&e| if (6.345..6.455).contains(&e) { 150.0 } else { 50.0 }).collect();
-    let a = Artifact::new(Value::Spectrum(Spectrum::new(x, y, Axis::new("energy", "keV"), Axis::new("counts", "counts"))));
-    let out = run("eds.net_intensity", serde_json::json!({"windows": {"fe_ka": [6.295, 6.505]}}), vec![PortValue::One(&a)]);
+    let y = x
+        .iter()
+        .map(|&e| {
+            if (6.345..6.455).contains(&e) {
+                150.0
+            } else {
+                50.0
+            }
+        })
+        .collect();
+    let a = Artifact::new(Value::Spectrum(Spectrum::new(
+        x,
+        y,
+        Axis::new("energy", "keV"),
+        Axis::new("counts", "counts"),
+    )));
+    let out = run(
+        "eds.net_intensity",
+        serde_json::json!({"windows": {"fe_ka": [6.295, 6.505]}}),
+        vec![PortValue::One(&a)],
+    );
     let (n, u) = num(&out, "net.fe_ka");
     assert!((n - 1100.0).abs() < 1e-9, "{n}");
     assert!((u.unwrap() - 3252.5f64.sqrt()).abs() < 1e-9, "{u:?}");
@@ -137,7 +220,10 @@ fn cliff_lorimer_worked_example() {
         vec![PortValue::One(&rec)],
     );
     let (w, u) = num(&out, "weight_percent.Fe");
-    assert!((w - 51.02041).abs() < 1e-4 && (u.unwrap() - 0.56033).abs() < 1e-4, "{w} {u:?}");
+    assert!(
+        (w - 51.02041).abs() < 1e-4 && (u.unwrap() - 0.56033).abs() < 1e-4,
+        "{w} {u:?}"
+    );
     let (x, ux) = num(&out, "atomic_percent.Fe");
     assert!((x - 52.2625).abs() < 1e-3, "{x}");
     assert!((ux.unwrap() - 0.55942).abs() < 1e-4, "{ux:?}");

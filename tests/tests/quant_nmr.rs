@@ -8,7 +8,14 @@ use stages::{Artifact, Axis, Record, Spectrum, Value};
 fn run(stage: &str, opts: serde_json::Value, ports: Vec<PortValue>) -> Artifact {
     let s = stages::find(stage).unwrap();
     let o = s.resolve_options(&opts).unwrap();
-    s.run(&Inputs { item: Some("x"), ports }, &o).unwrap()
+    s.run(
+        &Inputs {
+            item: Some("x"),
+            ports,
+        },
+        &o,
+    )
+    .unwrap()
 }
 
 fn num(a: &Artifact, name: &str) -> (f64, Option<f64>) {
@@ -68,10 +75,19 @@ fn integrals_normalised_to_a_methyl_group() {
     // within the truncation asymmetry (< 1e-3). Normalising the first to 3 nuclei
     // must give 2.000 for the second.
     let g = 0.002;
-    let lor = |x: f64, c: f64, area: f64| area * g / std::f64::consts::PI / ((x - c).powi(2) + g * g);
+    let lor =
+        |x: f64, c: f64, area: f64| area * g / std::f64::consts::PI / ((x - c).powi(2) + g * g);
     let x: Vec<f64> = (0..=8000).map(|i| 4.0 - i as f64 * 0.0005).collect();
-    let y: Vec<f64> = x.iter().map(|&v| lor(v, 3.0, 3.0) + lor(v, 1.5, 2.0)).collect();
-    let s = Spectrum::new(x, y, Axis::new("chemical shift", "ppm"), Axis::new("intensity", ""));
+    let y: Vec<f64> = x
+        .iter()
+        .map(|&v| lor(v, 3.0, 3.0) + lor(v, 1.5, 2.0))
+        .collect();
+    let s = Spectrum::new(
+        x,
+        y,
+        Axis::new("chemical shift", "ppm"),
+        Axis::new("intensity", ""),
+    );
     let a = Artifact::new(Value::Spectrum(s));
     let out = run(
         "nmr.integrate",
@@ -83,15 +99,24 @@ fn integrals_normalised_to_a_methyl_group() {
     assert!((n - 2.0).abs() < 1e-3, "{n}");
     let (i3, _) = num(&out, "integral.ch3");
     // Fraction of a Lorentzian inside ±125 HWHM: (2/π)·atan(125) = 0.994907.
-    assert!((i3 / 3.0 - (2.0 / std::f64::consts::PI) * 125f64.atan()).abs() < 1e-4, "{i3}");
+    assert!(
+        (i3 / 3.0 - (2.0 / std::f64::consts::PI) * 125f64.atan()).abs() < 1e-4,
+        "{i3}"
+    );
 }
 
 #[test]
 fn coupling_from_metadata_frequency() {
     // A triplet with lines at 1.2350, 1.2175, 1.2000 ppm on a 400.13 MHz spectrometer:
     // spacings 0.0175 ppm × 400.13 MHz = 7.002 275 Hz each.
-    let mut s = Spectrum::new(vec![0.0, 1.0], vec![0.0, 0.0], Axis::new("chemical shift", "ppm"), Axis::new("intensity", ""));
-    s.metadata.insert("spectrometer_frequency_mhz".into(), "400.13".into());
+    let mut s = Spectrum::new(
+        vec![0.0, 1.0],
+        vec![0.0, 0.0],
+        Axis::new("chemical shift", "ppm"),
+        Axis::new("intensity", ""),
+    );
+    s.metadata
+        .insert("spectrometer_frequency_mhz".into(), "400.13".into());
     let a = Artifact::new(Value::Spectrum(s));
     let out = run(
         "nmr.coupling",

@@ -7,6 +7,7 @@
 //!   111 28.443°, 220 47.303°, 311 56.123°, 400 69.131°, 331 76.377°, 422 88.032°,
 //!   511 94.954°, 440 106.710°, 531 114.094°.
 //! - NIST SRM 640e certifies a = 5.431179 Å (at 22.5 °C), as stated in issue 4.
+//!
 //! Wavelength: Cu Kα1 = 1.540598 Å from stages/data/xray_wavelengths.csv.
 
 use stages::stage::{Inputs, PortValue};
@@ -15,7 +16,14 @@ use stages::Artifact;
 fn run(stage: &str, opts: serde_json::Value) -> Artifact {
     let s = stages::find(stage).unwrap();
     let o = s.resolve_options(&opts).unwrap();
-    s.run(&Inputs { item: Some("x"), ports: vec![PortValue::Missing] }, &o).unwrap()
+    s.run(
+        &Inputs {
+            item: Some("x"),
+            ports: vec![PortValue::Missing],
+        },
+        &o,
+    )
+    .unwrap()
 }
 
 fn num(a: &Artifact, name: &str) -> (f64, Option<f64>) {
@@ -23,14 +31,29 @@ fn num(a: &Artifact, name: &str) -> (f64, Option<f64>) {
     (r.as_number().unwrap(), r.uncertainty)
 }
 
-const HKL: [[i32; 3]; 9] = [[1, 1, 1], [2, 2, 0], [3, 1, 1], [4, 0, 0], [3, 3, 1], [4, 2, 2], [5, 1, 1], [4, 4, 0], [5, 3, 1]];
-const PATTERN_2THETA: [f64; 9] = [28.443, 47.303, 56.123, 69.131, 76.377, 88.032, 94.954, 106.710, 114.094];
+const HKL: [[i32; 3]; 9] = [
+    [1, 1, 1],
+    [2, 2, 0],
+    [3, 1, 1],
+    [4, 0, 0],
+    [3, 3, 1],
+    [4, 2, 2],
+    [5, 1, 1],
+    [4, 4, 0],
+    [5, 3, 1],
+];
+const PATTERN_2THETA: [f64; 9] = [
+    28.443, 47.303, 56.123, 69.131, 76.377, 88.032, 94.954, 106.710, 114.094,
+];
 
 #[test]
 fn silicon_pattern_positions_follow_from_bragg() {
     // d from the listed 2θ through xrd.bragg must equal a/√(h²+k²+l²) with the
     // pattern's a = 5.43088 Å; the pattern lists 2θ to 0.001°, i.e. d to ≈ 2e-5 relative.
-    let out = run("xrd.bragg", serde_json::json!({"wavelength": "Cu Ka1", "two_theta": PATTERN_2THETA}));
+    let out = run(
+        "xrd.bragg",
+        serde_json::json!({"wavelength": "Cu Ka1", "two_theta": PATTERN_2THETA}),
+    );
     for (i, hkl) in HKL.iter().enumerate() {
         let s = ((hkl[0] * hkl[0] + hkl[1] * hkl[1] + hkl[2] * hkl[2]) as f64).sqrt();
         let (d, _) = num(&out, &format!("d.{}", i + 1));
@@ -50,8 +73,15 @@ fn silicon_pattern_positions_follow_from_bragg() {
 fn silicon_lattice_parameter_by_least_squares() {
     // The nine pattern reflections give back the pattern's a = 5.43088 Å; the listed
     // 2θ are rounded to 0.001°, so agreement to 1e-4 Å is expected.
-    let refl: Vec<serde_json::Value> = HKL.iter().zip(PATTERN_2THETA).map(|(h, t)| serde_json::json!({"hkl": h, "two_theta": t})).collect();
-    let out = run("xrd.cubic_lattice", serde_json::json!({"wavelength": "Cu Ka1", "reflections": refl}));
+    let refl: Vec<serde_json::Value> = HKL
+        .iter()
+        .zip(PATTERN_2THETA)
+        .map(|(h, t)| serde_json::json!({"hkl": h, "two_theta": t}))
+        .collect();
+    let out = run(
+        "xrd.cubic_lattice",
+        serde_json::json!({"wavelength": "Cu Ka1", "reflections": refl}),
+    );
     let (a, u) = num(&out, "lattice_parameter");
     assert!((a - 5.43088).abs() < 1e-4, "{a}");
     assert!(u.unwrap() < 1e-4);
@@ -60,7 +90,10 @@ fn silicon_lattice_parameter_by_least_squares() {
         let n = h.iter().map(|v| v * v).sum::<i32>() as f64;
         serde_json::json!({"label": format!("{}{}{}", h[0], h[1], h[2]), "d": 5.431179 / n.sqrt()})
     }).collect();
-    let idx = run("xrd.index", serde_json::json!({"wavelength": "Cu Ka1", "two_theta": PATTERN_2THETA, "expected": expected, "tolerance": 0.002}));
+    let idx = run(
+        "xrd.index",
+        serde_json::json!({"wavelength": "Cu Ka1", "two_theta": PATTERN_2THETA, "expected": expected, "tolerance": 0.002}),
+    );
     assert_eq!(num(&idx, "matched").0, 9.0);
     assert!(matches!(&idx.result("match.3").unwrap().value, stages::Scalar::Text(t) if t == "311"));
 }
@@ -74,15 +107,33 @@ fn scherrer_worked_example() {
     //   = 297.236 Å = 29.7236 nm.
     // Lorentzian correction: β = 0.200° = 3.49066e-3 rad → τ = 420.355 Å = 42.0355 nm.
     let peak = serde_json::json!([{"name": "p1", "two_theta": 38.2, "fwhm": 0.3, "fwhm_uncertainty": 0.01}]);
-    let g = run("xrd.scherrer", serde_json::json!({"wavelength": "Cu Ka1", "instrument_fwhm": 0.1, "peaks": peak}));
+    let g = run(
+        "xrd.scherrer",
+        serde_json::json!({"wavelength": "Cu Ka1", "instrument_fwhm": 0.1, "peaks": peak}),
+    );
     let (t, u) = num(&g, "size.p1");
     assert!((t - 29.7236).abs() < 1e-3, "{t}");
     // u(τ) = τ·(∂β/∂B)·u_B/β = τ·(B/β²)·u_B = 29.7236 × 0.3/0.08 × 0.01 = 1.11464 nm.
     assert!((u.unwrap() - 1.11464).abs() < 1e-4, "{u:?}");
-    let l = run("xrd.scherrer", serde_json::json!({"wavelength": "Cu Ka1", "instrument_fwhm": 0.1, "correction": "lorentzian", "peaks": peak}));
+    let l = run(
+        "xrd.scherrer",
+        serde_json::json!({"wavelength": "Cu Ka1", "instrument_fwhm": 0.1, "correction": "lorentzian", "peaks": peak}),
+    );
     assert!((num(&l, "size.p1").0 - 42.0355).abs() < 1e-3);
     // A measured width not above the instrumental one is refused.
     let s = stages::find("xrd.scherrer").unwrap();
-    let o = s.resolve_options(&serde_json::json!({"wavelength": "Cu Ka1", "instrument_fwhm": 0.3, "peaks": peak})).unwrap();
-    assert!(s.run(&Inputs { item: None, ports: vec![PortValue::Missing] }, &o).is_err());
+    let o = s
+        .resolve_options(
+            &serde_json::json!({"wavelength": "Cu Ka1", "instrument_fwhm": 0.3, "peaks": peak}),
+        )
+        .unwrap();
+    assert!(s
+        .run(
+            &Inputs {
+                item: None,
+                ports: vec![PortValue::Missing]
+            },
+            &o
+        )
+        .is_err());
 }

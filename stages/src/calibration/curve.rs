@@ -131,7 +131,10 @@ impl TypedStage for CalibrationCurve {
             ));
         }
         if o.replicates == 0 {
-            return Err(OptionError::new("replicates", "replicates must be at least 1"));
+            return Err(OptionError::new(
+                "replicates",
+                "replicates must be at least 1",
+            ));
         }
         Ok(())
     }
@@ -206,10 +209,20 @@ impl TypedStage for CalibrationCurve {
         ];
         if deg == 2 {
             let cu = unit_ratio(&y_unit, &format!("{xu}²"));
-            recs.push(Record::number("curvature", fit.coef[2], Some(fit.stderr(2)), &cu));
+            recs.push(Record::number(
+                "curvature",
+                fit.coef[2],
+                Some(fit.stderr(2)),
+                &cu,
+            ));
         }
         let corr = fit.cov[0][1] / (fit.stderr(0) * fit.stderr(1));
-        recs.push(Record::number("correlation_intercept_slope", corr, None, ""));
+        recs.push(Record::number(
+            "correlation_intercept_slope",
+            corr,
+            None,
+            "",
+        ));
         recs.push(Record::number("residual_sd", s, None, &y_unit));
         recs.push(Record::number("r_squared", fit.r_squared, None, ""));
         recs.push(Record::number("standards_count", x.len() as f64, None, ""));
@@ -218,7 +231,9 @@ impl TypedStage for CalibrationCurve {
 
         let (xmin, xmax) = x
             .iter()
-            .fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), v| (a.min(*v), b.max(*v)));
+            .fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), v| {
+                (a.min(*v), b.max(*v))
+            });
         let mut art = Artifact::new(Value::Summary);
         let mut col_item = Vec::new();
         let mut col_role = Vec::new();
@@ -258,7 +273,12 @@ impl TypedStage for CalibrationCurve {
                             "{item}: predicted {x0:.4} {xu} lies outside the calibrated range [{xmin}, {xmax}]"
                         ));
                     }
-                    recs.push(Record::number(format!("predicted.{item}"), x0, Some(u0), xu));
+                    recs.push(Record::number(
+                        format!("predicted.{item}"),
+                        x0,
+                        Some(u0),
+                        xu,
+                    ));
                     col_pred.push(x0);
                     col_pred_u.push(u0);
                 }
@@ -351,7 +371,9 @@ pub fn inverse_predict(
     };
     let d = fit.derivative(x0);
     if d == 0.0 {
-        return Err(StageError::numeric("the calibration curve is flat at the prediction"));
+        return Err(StageError::numeric(
+            "the calibration curve is flat at the prediction",
+        ));
     }
     let var = (var_y0 + fit.curve_variance(x0)) / (d * d);
     let x0 = quant_util::finite("predicted value", x0)?;
@@ -404,6 +426,48 @@ mod tests {
         assert!((p.uncertainty.unwrap() - expect).abs() < 1e-12);
         let lod = out.result("lod").unwrap().as_number().unwrap();
         assert!((lod - 3.3 * s / b).abs() < 1e-12);
+    }
+
+    #[test]
+    fn weight_two_equals_a_duplicated_standard() {
+        // Weighted least squares with w = 1/σ²: a standard with σ = 1/√2 (weight 2)
+        // gives the same coefficients as ordinary least squares with it listed twice.
+        let xs = [1.0, 2.0, 3.0, 4.0, 5.0];
+        let ys = [2.1, 3.9, 6.2, 7.8, 10.3];
+        let mut arts: Vec<(String, Artifact)> = (0..5)
+            .map(|i| {
+                let u = if i == 2 { 0.5f64.sqrt() } else { 1.0 };
+                (format!("s{i}"), item(ys[i], Some(u)))
+            })
+            .collect();
+        arts.push(("zz".into(), item(5.0, Some(1.0))));
+        let many: Vec<(&str, &Artifact)> = arts.iter().map(|(n, a)| (n.as_str(), a)).collect();
+        let o = Options {
+            response: "a".into(),
+            standards: (0..5).map(|i| (format!("s{i}"), xs[i])).collect(),
+            weighting: Weighting::InverseVariance,
+            ..Options::default()
+        };
+        let out = CalibrationCurve
+            .run(
+                &Inputs {
+                    item: None,
+                    ports: vec![PortValue::Many(many)],
+                },
+                &o,
+            )
+            .unwrap();
+        let dup = polyfit(
+            &[1.0, 2.0, 3.0, 3.0, 4.0, 5.0],
+            &[2.1, 3.9, 6.2, 6.2, 7.8, 10.3],
+            None,
+            1,
+        )
+        .unwrap();
+        let b = out.result("slope").unwrap().as_number().unwrap();
+        let a = out.result("intercept").unwrap().as_number().unwrap();
+        assert!((b - dup.coef[1]).abs() < 1e-12 && (a - dup.coef[0]).abs() < 1e-12);
+        assert!(out.result("predicted.zz").unwrap().uncertainty.unwrap() > 0.0);
     }
 
     #[test]

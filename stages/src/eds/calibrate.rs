@@ -40,7 +40,11 @@ pub struct Options {
 
 pub struct EdsCalibrate;
 
-static INPUTS: &[Port] = &[Port::each("spectrum", Kind::Spectrum, "an EDS spectrum on a channel or energy axis")];
+static INPUTS: &[Port] = &[Port::each(
+    "spectrum",
+    Kind::Spectrum,
+    "an EDS spectrum on a channel or energy axis",
+)];
 
 impl TypedStage for EdsCalibrate {
     type Options = Options;
@@ -55,14 +59,23 @@ impl TypedStage for EdsCalibrate {
 
     fn check(&self, o: &Options) -> Result<(), OptionError> {
         if o.lines.len() != 2 {
-            return Err(OptionError::new("lines", format!("give exactly two known lines (got {})", o.lines.len())));
+            return Err(OptionError::new(
+                "lines",
+                format!("give exactly two known lines (got {})", o.lines.len()),
+            ));
         }
         for (i, l) in o.lines.iter().enumerate() {
             if l.line.is_some() == l.energy.is_some() {
-                return Err(OptionError::new(format!("lines.{i}"), "give either line (a name) or energy (keV), not both"));
+                return Err(OptionError::new(
+                    format!("lines.{i}"),
+                    "give either line (a name) or energy (keV), not both",
+                ));
             }
             if !l.position.is_finite() {
-                return Err(OptionError::new(format!("lines.{i}.position"), "position must be a number"));
+                return Err(OptionError::new(
+                    format!("lines.{i}.position"),
+                    "position must be a number",
+                ));
             }
         }
         if o.lines[0].position == o.lines[1].position {
@@ -75,12 +88,18 @@ impl TypedStage for EdsCalibrate {
     }
 
     fn methods(&self, o: &Options) -> String {
-        let names: Vec<String> = o.lines.iter().map(|l| match (&l.line, l.energy) {
-            (Some(n), _) => n.clone(),
-            (None, Some(e)) => format!("{e} keV"),
-            _ => "?".into(),
-        }).collect();
-        let refine = o.refine.map_or(" at the given positions".to_string(), |r| format!(" located within ±{r} of the given positions by a parabola through the maximum"));
+        let names: Vec<String> = o
+            .lines
+            .iter()
+            .map(|l| match (&l.line, l.energy) {
+                (Some(n), _) => n.clone(),
+                (None, Some(e)) => format!("{e} keV"),
+                _ => "?".into(),
+            })
+            .collect();
+        let refine = o.refine.map_or(" at the given positions".to_string(), |r| {
+            format!(" located within ±{r} of the given positions by a parabola through the maximum")
+        });
         format!(
             "The energy axis was calibrated linearly from two known lines ({}){refine}, with reference energies from the X-ray Data Booklet [xdb2009].",
             names.join(" and ")
@@ -99,9 +118,13 @@ impl TypedStage for EdsCalibrate {
             let x = match o.refine {
                 Some(w) => {
                     let idx = indices_in(&s.x, [l.position - w, l.position + w]);
-                    let best = idx.iter().copied().max_by(|a, b| s.y[*a].total_cmp(&s.y[*b])).ok_or_else(|| {
-                        StageError::input(format!("no points within ±{w} of {}", l.position))
-                    })?;
+                    let best = idx
+                        .iter()
+                        .copied()
+                        .max_by(|a, b| s.y[*a].total_cmp(&s.y[*b]))
+                        .ok_or_else(|| {
+                            StageError::input(format!("no points within ±{w} of {}", l.position))
+                        })?;
                     parabolic_vertex(&s.x, &s.y, best).0
                 }
                 None => l.position,
@@ -111,15 +134,25 @@ impl TypedStage for EdsCalibrate {
         let gain = (pts[1].1 - pts[0].1) / (pts[1].0 - pts[0].0);
         let offset = pts[0].1 - gain * pts[0].0;
         if !(gain.is_finite() && offset.is_finite()) || gain <= 0.0 {
-            return Err(StageError::input(format!("the two lines give a non-positive gain ({gain}): check the positions")));
+            return Err(StageError::input(format!(
+                "the two lines give a non-positive gain ({gain}): check the positions"
+            )));
         }
         let mut out = s.clone();
         out.x = s.x.iter().map(|x| offset + gain * x).collect();
         out.x_axis = Axis::new("energy", "keV");
-        out.metadata.insert("energy_calibration".into(), format!("E = {offset} + {gain}·x ({LINES_FILE})"));
+        out.metadata.insert(
+            "energy_calibration".into(),
+            format!("E = {offset} + {gain}·x ({LINES_FILE})"),
+        );
         let xu = &s.x_axis.unit;
         let mut art = Artifact::new(Value::Spectrum(out));
-        art.record(Record::number("gain", gain, None, &crate::quant_util::unit_ratio("keV", if xu.is_empty() { "channel" } else { xu })));
+        art.record(Record::number(
+            "gain",
+            gain,
+            None,
+            &crate::quant_util::unit_ratio("keV", if xu.is_empty() { "channel" } else { xu }),
+        ));
         art.record(Record::number("offset", offset, None, "keV"));
         art.record(Record::number("position_1", pts[0].0, None, xu));
         art.record(Record::number("position_2", pts[1].0, None, xu));

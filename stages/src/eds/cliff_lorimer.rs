@@ -37,7 +37,11 @@ pub struct Options {
 
 pub struct CliffLorimer;
 
-static INPUTS: &[Port] = &[Port::each("intensities", Kind::Any, "a step whose results hold the net intensities")];
+static INPUTS: &[Port] = &[Port::each(
+    "intensities",
+    Kind::Any,
+    "a step whose results hold the net intensities",
+)];
 
 pub const CLIFF_LORIMER: Reference = Reference {
     key: "cliff1975",
@@ -72,7 +76,10 @@ impl TypedStage for CliffLorimer {
         }
         for (n, e) in o.elements.iter().enumerate() {
             if e.element.is_empty() || e.intensity.is_empty() {
-                return Err(OptionError::new(format!("elements.{n}"), "give element and intensity"));
+                return Err(OptionError::new(
+                    format!("elements.{n}"),
+                    "give element and intensity",
+                ));
             }
             quant_util::check_positive(&format!("elements.{n}.k"), e.k)?;
             quant_util::check_uncertainty(&format!("elements.{n}.k_uncertainty"), e.k_uncertainty)?;
@@ -81,7 +88,11 @@ impl TypedStage for CliffLorimer {
     }
 
     fn methods(&self, o: &Options) -> String {
-        let ks: Vec<String> = o.elements.iter().map(|e| format!("{} (k = {})", e.element, e.k)).collect();
+        let ks: Vec<String> = o
+            .elements
+            .iter()
+            .map(|e| format!("{} (k = {})", e.element, e.k))
+            .collect();
         format!(
             "Thin-film compositions were calculated by the Cliff–Lorimer ratio method with user k-factors for {} relative to {}, normalised to unit sum without absorption or fluorescence correction [cliff1975], converted to atomic fractions with standard atomic weights, and given first-order uncertainties from the intensities and k-factors [jcgm2008].",
             ks.join(", "),
@@ -98,7 +109,10 @@ impl TypedStage for CliffLorimer {
         for e in &o.elements {
             let (v, ui, _) = record_number(a, &e.intensity)?;
             if v <= 0.0 {
-                return Err(StageError::input(format!("{}: intensity {v} is not positive", e.element)));
+                return Err(StageError::input(format!(
+                    "{}: intensity {v} is not positive",
+                    e.element
+                )));
             }
             x.push(v);
             u.push(ui.unwrap_or(0.0));
@@ -114,8 +128,18 @@ impl TypedStage for CliffLorimer {
         let mut art = Artifact::new(Value::Summary);
         for (j, e) in o.elements.iter().enumerate() {
             let el = &e.element;
-            art.record(Record::number(format!("weight_percent.{el}"), 100.0 * quant_util::finite("weight fraction", val[j])?, Some(100.0 * unc[j]), "%"));
-            art.record(Record::number(format!("atomic_percent.{el}"), 100.0 * val[n + j], Some(100.0 * unc[n + j]), "%"));
+            art.record(Record::number(
+                format!("weight_percent.{el}"),
+                100.0 * quant_util::finite("weight fraction", val[j])?,
+                Some(100.0 * unc[j]),
+                "%",
+            ));
+            art.record(Record::number(
+                format!("atomic_percent.{el}"),
+                100.0 * val[n + j],
+                Some(100.0 * unc[n + j]),
+                "%",
+            ));
         }
         let r0 = &o.elements[0];
         for (j, e) in o.elements.iter().enumerate().skip(1) {
@@ -123,7 +147,12 @@ impl TypedStage for CliffLorimer {
             let g = |v: &[f64]| (v[n + j] / v[n]) * (v[j] / v[0]);
             let ratio = g(&x);
             let ur = quant_util::propagate(&g, &x, &u);
-            art.record(Record::number(format!("weight_ratio.{}_{}", e.element, r0.element), ratio, Some(ur), ""));
+            art.record(Record::number(
+                format!("weight_ratio.{}_{}", e.element, r0.element),
+                ratio,
+                Some(ur),
+                "",
+            ));
         }
         Ok(art)
     }

@@ -46,7 +46,22 @@ impl Default for Options {
 
 pub struct EdsIdentify;
 
-static INPUTS: &[Port] = &[Port::each("peaks", Kind::Any, "a peak list, a fit, or an EDS spectrum (keV or eV axis)")];
+/// Table columns: peak, energy, element, line, line energy, mismatch, flag.
+type Columns = (
+    Vec<String>,
+    Vec<f64>,
+    Vec<String>,
+    Vec<String>,
+    Vec<f64>,
+    Vec<f64>,
+    Vec<String>,
+);
+
+static INPUTS: &[Port] = &[Port::each(
+    "peaks",
+    Kind::Any,
+    "a peak list, a fit, or an EDS spectrum (keV or eV axis)",
+)];
 
 pub const BOOKLET: Reference = Reference {
     key: "xdb2009",
@@ -57,7 +72,9 @@ fn kev_factor(s: &Spectrum) -> Result<f64, StageError> {
     match s.x_axis.unit.as_str() {
         "keV" => Ok(1.0),
         "eV" => Ok(1e-3),
-        u => Err(StageError::input(format!("the x axis must be energy in keV or eV (it is '{u}'): calibrate it first"))),
+        u => Err(StageError::input(format!(
+            "the x axis must be energy in keV or eV (it is '{u}'): calibrate it first"
+        ))),
     }
 }
 
@@ -73,10 +90,18 @@ pub fn local_maxima(s: &Spectrum, half_window: usize, min_height: f64) -> Vec<Lo
             continue;
         }
         let w = 5 * half_window;
-        let base = (i.saturating_sub(w)..=(i + w).min(n - 1)).map(|j| s.y[j]).fold(f64::INFINITY, f64::min);
+        let base = (i.saturating_sub(w)..=(i + w).min(n - 1))
+            .map(|j| s.y[j])
+            .fold(f64::INFINITY, f64::min);
         if s.y[i] - base >= min_height * ymax && i > 0 && i + 1 < n {
             let (p, h) = crate::measure::maximum::parabolic_vertex(&s.x, &s.y, i);
-            out.push(Located { name: (out.len() + 1).to_string(), position: p, uncertainty: None, fwhm: None, height: Some(h) });
+            out.push(Located {
+                name: (out.len() + 1).to_string(),
+                position: p,
+                uncertainty: None,
+                fwhm: None,
+                height: Some(h),
+            });
         }
     }
     out
@@ -95,17 +120,31 @@ impl TypedStage for EdsIdentify {
 
     fn check(&self, o: &Options) -> Result<(), OptionError> {
         crate::quant_util::check_positive("tolerance", o.tolerance)?;
-        if let Some(f) = o.families.iter().find(|f| !matches!(f.as_str(), "K" | "L" | "M")) {
-            return Err(OptionError::new("families", format!("'{f}' is not one of K, L, M")));
+        if let Some(f) = o
+            .families
+            .iter()
+            .find(|f| !matches!(f.as_str(), "K" | "L" | "M"))
+        {
+            return Err(OptionError::new(
+                "families",
+                format!("'{f}' is not one of K, L, M"),
+            ));
         }
         if o.half_window == 0 {
-            return Err(OptionError::new("half_window", "half_window must be at least 1"));
+            return Err(OptionError::new(
+                "half_window",
+                "half_window must be at least 1",
+            ));
         }
         Ok(())
     }
 
     fn methods(&self, o: &Options) -> String {
-        let els = if o.elements.is_empty() { "all tabulated elements".to_string() } else { o.elements.join(", ") };
+        let els = if o.elements.is_empty() {
+            "all tabulated elements".to_string()
+        } else {
+            o.elements.join(", ")
+        };
         format!(
             "Peaks were assigned by comparing their energies with the {} lines of {els} from the X-ray Data Booklet [xdb2009] within ±{} keV, listing every candidate and flagging peaks with candidates from more than one element as overlaps.",
             o.families.join("/"),
@@ -115,7 +154,9 @@ impl TypedStage for EdsIdentify {
 
     fn run(&self, inputs: &Inputs, o: &Options) -> Result<Artifact, StageError> {
         let a = inputs.one(0)?;
-        let s = a.spectrum().ok_or_else(|| StageError::input("the input carries no spectrum"))?;
+        let s = a
+            .spectrum()
+            .ok_or_else(|| StageError::input("the input carries no spectrum"))?;
         let f = kev_factor(s)?;
         let mut peaks = located_peaks(Some(a));
         if matches!(a.value, Value::Spectrum(_)) {
@@ -126,17 +167,30 @@ impl TypedStage for EdsIdentify {
         }
         let table = lines()?;
         let mut art = Artifact::new(Value::Summary);
-        let mut cols: (Vec<String>, Vec<f64>, Vec<String>, Vec<String>, Vec<f64>, Vec<f64>, Vec<String>) = Default::default();
+        let mut cols: Columns = Default::default();
         let mut found = Vec::new();
         for p in &peaks {
             let e = p.position * f;
             let mut cands: Vec<_> = table
                 .iter()
-                .filter(|l| o.families.iter().any(|fam| l.line.starts_with(fam.as_str())))
-                .filter(|l| o.elements.is_empty() || o.elements.iter().any(|x| x.eq_ignore_ascii_case(&l.element)))
+                .filter(|l| {
+                    o.families
+                        .iter()
+                        .any(|fam| l.line.starts_with(fam.as_str()))
+                })
+                .filter(|l| {
+                    o.elements.is_empty()
+                        || o.elements
+                            .iter()
+                            .any(|x| x.eq_ignore_ascii_case(&l.element))
+                })
                 .filter(|l| (l.energy_kev - e).abs() <= o.tolerance)
                 .collect();
-            cands.sort_by(|x, y| (x.energy_kev - e).abs().total_cmp(&(y.energy_kev - e).abs()));
+            cands.sort_by(|x, y| {
+                (x.energy_kev - e)
+                    .abs()
+                    .total_cmp(&(y.energy_kev - e).abs())
+            });
             let mut els: Vec<&str> = cands.iter().map(|l| l.element.as_str()).collect();
             els.dedup();
             let mut distinct = els.clone();
@@ -144,22 +198,53 @@ impl TypedStage for EdsIdentify {
             distinct.dedup();
             let overlap = distinct.len() > 1;
             let id = &p.name;
-            art.record(Record::number(format!("peak.{id}.energy"), e, p.uncertainty.map(|u| u * f), "keV"));
-            let text: Vec<String> = cands.iter().map(|l| format!("{} {} ({:+.3})", l.element, l.line, l.energy_kev - e)).collect();
-            art.record(Record::text(format!("peak.{id}.candidates"), if text.is_empty() { "none".into() } else { text.join(", ") }));
+            art.record(Record::number(
+                format!("peak.{id}.energy"),
+                e,
+                p.uncertainty.map(|u| u * f),
+                "keV",
+            ));
+            let text: Vec<String> = cands
+                .iter()
+                .map(|l| format!("{} {} ({:+.3})", l.element, l.line, l.energy_kev - e))
+                .collect();
+            art.record(Record::text(
+                format!("peak.{id}.candidates"),
+                if text.is_empty() {
+                    "none".into()
+                } else {
+                    text.join(", ")
+                },
+            ));
             if let Some(b) = cands.first() {
-                art.record(Record::text(format!("peak.{id}.best"), format!("{} {}", b.element, b.line)));
-                art.record(Record::number(format!("peak.{id}.mismatch"), b.energy_kev - e, None, "keV"));
+                art.record(Record::text(
+                    format!("peak.{id}.best"),
+                    format!("{} {}", b.element, b.line),
+                ));
+                art.record(Record::number(
+                    format!("peak.{id}.mismatch"),
+                    b.energy_kev - e,
+                    None,
+                    "keV",
+                ));
                 if !found.contains(&b.element) {
                     found.push(b.element.clone());
                 }
             }
             if overlap {
-                art.warn(format!("peak at {e:.3} keV: overlapping candidates {}", distinct.join(", ")));
+                art.warn(format!(
+                    "peak at {e:.3} keV: overlapping candidates {}",
+                    distinct.join(", ")
+                ));
             }
             if cands.is_empty() {
-                cols.0.push(id.clone()); cols.1.push(e); cols.2.push(String::new()); cols.3.push(String::new());
-                cols.4.push(f64::NAN); cols.5.push(f64::NAN); cols.6.push(String::new());
+                cols.0.push(id.clone());
+                cols.1.push(e);
+                cols.2.push(String::new());
+                cols.3.push(String::new());
+                cols.4.push(f64::NAN);
+                cols.5.push(f64::NAN);
+                cols.6.push(String::new());
             }
             for l in &cands {
                 cols.0.push(id.clone());
@@ -168,18 +253,38 @@ impl TypedStage for EdsIdentify {
                 cols.3.push(l.line.clone());
                 cols.4.push(l.energy_kev);
                 cols.5.push(l.energy_kev - e);
-                cols.6.push(if overlap { "overlap".into() } else { String::new() });
+                cols.6.push(if overlap {
+                    "overlap".into()
+                } else {
+                    String::new()
+                });
             }
         }
         art.record(Record::text("elements", found.join(", ")));
         art.record(Record::text("line_table", LINES_FILE));
-        let text = |name: &str, v: Vec<String>| Column { name: name.into(), unit: String::new(), data: ColumnData::Text(v) };
-        let num = |name: &str, v: Vec<f64>| Column { name: name.into(), unit: "keV".into(), data: ColumnData::Number { values: v, uncertainty: None } };
+        let text = |name: &str, v: Vec<String>| Column {
+            name: name.into(),
+            unit: String::new(),
+            data: ColumnData::Text(v),
+        };
+        let num = |name: &str, v: Vec<f64>| Column {
+            name: name.into(),
+            unit: "keV".into(),
+            data: ColumnData::Number {
+                values: v,
+                uncertainty: None,
+            },
+        };
         art.value = Value::Table(Table {
             title: "Peak identification".into(),
             columns: vec![
-                text("peak", cols.0), num("energy", cols.1), text("element", cols.2), text("line", cols.3),
-                num("line_energy", cols.4), num("mismatch", cols.5), text("flag", cols.6),
+                text("peak", cols.0),
+                num("energy", cols.1),
+                text("element", cols.2),
+                text("line", cols.3),
+                num("line_energy", cols.4),
+                num("mismatch", cols.5),
+                text("flag", cols.6),
             ],
         });
         Ok(art)

@@ -30,25 +30,30 @@ pub struct Mass {
 }
 
 fn parse_z(file: &str, i: usize, s: &str) -> Result<u32, StageError> {
-    s.parse().map_err(|_| StageError::data(file, Some(i + 2), format!("'{s}' is not an atomic number")))
+    s.parse()
+        .map_err(|_| StageError::data(file, Some(i + 2), format!("'{s}' is not an atomic number")))
 }
 
 pub fn lines() -> Result<&'static [Line], StageError> {
     static T: OnceLock<Result<Vec<Line>, StageError>> = OnceLock::new();
     T.get_or_init(|| {
-        read_table(LINES_FILE, LINES, &["z", "element", "line", "energy_kev", "source"])?
-            .iter()
-            .enumerate()
-            .map(|(i, r)| {
-                Ok(Line {
-                    z: parse_z(LINES_FILE, i, &r[0])?,
-                    element: r[1].clone(),
-                    line: r[2].clone(),
-                    energy_kev: cell_number(LINES_FILE, i, &r[3])?,
-                    source: r[4].clone(),
-                })
+        read_table(
+            LINES_FILE,
+            LINES,
+            &["z", "element", "line", "energy_kev", "source"],
+        )?
+        .iter()
+        .enumerate()
+        .map(|(i, r)| {
+            Ok(Line {
+                z: parse_z(LINES_FILE, i, &r[0])?,
+                element: r[1].clone(),
+                line: r[2].clone(),
+                energy_kev: cell_number(LINES_FILE, i, &r[3])?,
+                source: r[4].clone(),
             })
-            .collect()
+        })
+        .collect()
     })
     .as_ref()
     .map(|v| v.as_slice())
@@ -58,18 +63,22 @@ pub fn lines() -> Result<&'static [Line], StageError> {
 pub fn masses() -> Result<&'static [Mass], StageError> {
     static T: OnceLock<Result<Vec<Mass>, StageError>> = OnceLock::new();
     T.get_or_init(|| {
-        read_table(MASSES_FILE, MASSES, &["z", "element", "atomic_mass", "source"])?
-            .iter()
-            .enumerate()
-            .map(|(i, r)| {
-                Ok(Mass {
-                    z: parse_z(MASSES_FILE, i, &r[0])?,
-                    element: r[1].clone(),
-                    mass: cell_number(MASSES_FILE, i, &r[2])?,
-                    source: r[3].clone(),
-                })
+        read_table(
+            MASSES_FILE,
+            MASSES,
+            &["z", "element", "atomic_mass", "source"],
+        )?
+        .iter()
+        .enumerate()
+        .map(|(i, r)| {
+            Ok(Mass {
+                z: parse_z(MASSES_FILE, i, &r[0])?,
+                element: r[1].clone(),
+                mass: cell_number(MASSES_FILE, i, &r[2])?,
+                source: r[3].clone(),
             })
-            .collect()
+        })
+        .collect()
     })
     .as_ref()
     .map(|v| v.as_slice())
@@ -96,14 +105,20 @@ pub fn find_line(name: &str) -> Result<&'static Line, StageError> {
     lines()?
         .iter()
         .find(|l| fold_name(&format!("{}{}", l.element, l.line)) == key)
-        .ok_or_else(|| StageError::input(format!("no line '{name}' in {LINES_FILE} (write e.g. 'Cu Ka1', 'Mo La1')")))
+        .ok_or_else(|| {
+            StageError::input(format!(
+                "no line '{name}' in {LINES_FILE} (write e.g. 'Cu Ka1', 'Mo La1')"
+            ))
+        })
 }
 
 pub fn atomic_mass(element: &str) -> Result<&'static Mass, StageError> {
     masses()?
         .iter()
         .find(|m| m.element.eq_ignore_ascii_case(element))
-        .ok_or_else(|| StageError::input(format!("no atomic mass for '{element}' in {MASSES_FILE}")))
+        .ok_or_else(|| {
+            StageError::input(format!("no atomic mass for '{element}' in {MASSES_FILE}"))
+        })
 }
 
 #[cfg(test)]
@@ -114,12 +129,16 @@ mod tests {
     fn tables_parse_and_every_row_has_a_source() {
         let l = lines().unwrap();
         assert!(l.len() > 250);
-        assert!(l.iter().all(|r| !r.source.trim().is_empty() && r.energy_kev > 0.0));
+        assert!(l
+            .iter()
+            .all(|r| !r.source.trim().is_empty() && r.energy_kev > 0.0));
         // The main lines cover Z = 5 (B) to 83 (Bi).
         assert_eq!(l.iter().map(|r| r.z).min(), Some(5));
         assert_eq!(l.iter().map(|r| r.z).max(), Some(83));
         let m = masses().unwrap();
-        assert!(m.iter().all(|r| !r.source.trim().is_empty() && r.mass > 0.0));
+        assert!(m
+            .iter()
+            .all(|r| !r.source.trim().is_empty() && r.mass > 0.0));
         // Every element with a line has an atomic mass.
         for r in l {
             assert!(atomic_mass(&r.element).is_ok(), "{}", r.element);
@@ -137,7 +156,11 @@ mod tests {
     fn within_each_element_k_lines_order_by_energy() {
         // Physics: Kβ1 > Kα1 > Kα2 and Kα1 > Lβ1 > Lα1 > Mα1 within one element.
         let l = lines().unwrap();
-        let e = |el: &str, line: &str| l.iter().find(|r| r.element == el && r.line == line).map(|r| r.energy_kev);
+        let e = |el: &str, line: &str| {
+            l.iter()
+                .find(|r| r.element == el && r.line == line)
+                .map(|r| r.energy_kev)
+        };
         for el in ["Fe", "Cu", "Mo", "Ag"] {
             assert!(e(el, "Kβ1") > e(el, "Kα1") && e(el, "Kα1") > e(el, "Kα2"));
             assert!(e(el, "Lβ1") > e(el, "Lα1"));
@@ -146,7 +169,11 @@ mod tests {
             assert!(e(el, "Lβ1") > e(el, "Lα1") && e(el, "Lα1") > e(el, "Mα1"));
         }
         // Moseley's law: Kα1 energy rises monotonically with Z.
-        let mut ka: Vec<(u32, f64)> = l.iter().filter(|r| r.line == "Kα1").map(|r| (r.z, r.energy_kev)).collect();
+        let mut ka: Vec<(u32, f64)> = l
+            .iter()
+            .filter(|r| r.line == "Kα1")
+            .map(|r| (r.z, r.energy_kev))
+            .collect();
         ka.sort_by_key(|k| k.0);
         assert!(ka.windows(2).all(|w| w[1].1 > w[0].1));
     }

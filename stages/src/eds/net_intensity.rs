@@ -41,13 +41,21 @@ pub struct Options {
 
 impl Default for Options {
     fn default() -> Self {
-        Options { windows: BTreeMap::new(), background: Background::Auto, side_width: 0.1 }
+        Options {
+            windows: BTreeMap::new(),
+            background: Background::Auto,
+            side_width: 0.1,
+        }
     }
 }
 
 pub struct NetIntensity;
 
-static INPUTS: &[Port] = &[Port::each("spectrum", Kind::Spectrum, "an energy-calibrated EDS spectrum in counts")];
+static INPUTS: &[Port] = &[Port::each(
+    "spectrum",
+    Kind::Spectrum,
+    "an energy-calibrated EDS spectrum in counts",
+)];
 
 pub const GOLDSTEIN: Reference = Reference {
     key: "goldstein2018",
@@ -67,7 +75,10 @@ impl TypedStage for NetIntensity {
 
     fn check(&self, o: &Options) -> Result<(), OptionError> {
         if o.windows.is_empty() {
-            return Err(OptionError::new("windows", "give at least one window, e.g. windows: { fe_ka: [6.25, 6.55] }"));
+            return Err(OptionError::new(
+                "windows",
+                "give at least one window, e.g. windows: { fe_ka: [6.25, 6.55] }",
+            ));
         }
         for (k, r) in &o.windows {
             check_range(&format!("windows.{k}"), Some(*r))?;
@@ -76,7 +87,11 @@ impl TypedStage for NetIntensity {
     }
 
     fn methods(&self, o: &Options) -> String {
-        let w: Vec<String> = o.windows.iter().map(|(k, r)| format!("{k} ({}–{} keV)", r[0], r[1])).collect();
+        let w: Vec<String> = o
+            .windows
+            .iter()
+            .map(|(k, r)| format!("{k} ({}–{} keV)", r[0], r[1]))
+            .collect();
         let bg = match o.background {
             Background::Curve => "the fitted background curve".to_string(),
             Background::SideWindows => format!("a straight line through two {} keV side windows", o.side_width),
@@ -91,16 +106,23 @@ impl TypedStage for NetIntensity {
     fn run(&self, inputs: &Inputs, o: &Options) -> Result<Artifact, StageError> {
         let s = inputs.spectrum(0)?;
         if s.x_axis.unit != "keV" {
-            return Err(StageError::input(format!("the x axis must be energy in keV (it is '{}')", s.x_axis.unit)));
+            return Err(StageError::input(format!(
+                "the x axis must be energy in keV (it is '{}')",
+                s.x_axis.unit
+            )));
         }
         if s.y.iter().any(|v| *v < 0.0) {
-            return Err(StageError::input("negative counts: net intensities need raw counts"));
+            return Err(StageError::input(
+                "negative counts: net intensities need raw counts",
+            ));
         }
         let curve = s.curve(CurveRole::Background);
         let use_curve = match o.background {
             Background::Curve => {
                 if curve.is_none() {
-                    return Err(StageError::input("background: curve, but the spectrum has no Background curve"));
+                    return Err(StageError::input(
+                        "background: curve, but the spectrum has no Background curve",
+                    ));
                 }
                 true
             }
@@ -111,23 +133,39 @@ impl TypedStage for NetIntensity {
         for (name, r) in &o.windows {
             let idx = indices_in(&s.x, *r);
             if idx.is_empty() {
-                return Err(StageError::input(format!("window {name} holds no channels")));
+                return Err(StageError::input(format!(
+                    "window {name} holds no channels"
+                )));
             }
             let g: f64 = idx.iter().map(|&i| s.y[i]).sum();
             let (b, var_b) = match (use_curve, curve) {
                 (true, Some(c)) => {
-                    let b: f64 = idx.iter().map(|&i| if c.y[i].is_finite() { c.y[i] } else { 0.0 }).sum();
+                    let b: f64 = idx
+                        .iter()
+                        .map(|&i| if c.y[i].is_finite() { c.y[i] } else { 0.0 })
+                        .sum();
                     (b, b.max(0.0))
                 }
                 _ => {
-                    let left = indices_in(&s.x, [r[0] - o.side_width, r[0]]).into_iter().filter(|i| !idx.contains(i)).collect::<Vec<_>>();
-                    let right = indices_in(&s.x, [r[1], r[1] + o.side_width]).into_iter().filter(|i| !idx.contains(i)).collect::<Vec<_>>();
+                    let left = indices_in(&s.x, [r[0] - o.side_width, r[0]])
+                        .into_iter()
+                        .filter(|i| !idx.contains(i))
+                        .collect::<Vec<_>>();
+                    let right = indices_in(&s.x, [r[1], r[1] + o.side_width])
+                        .into_iter()
+                        .filter(|i| !idx.contains(i))
+                        .collect::<Vec<_>>();
                     if left.is_empty() || right.is_empty() {
-                        return Err(StageError::input(format!("window {name}: a side window holds no channels")));
+                        return Err(StageError::input(format!(
+                            "window {name}: a side window holds no channels"
+                        )));
                     }
-                    let mean = |v: &[usize]| v.iter().map(|&i| s.y[i]).sum::<f64>() / v.len() as f64;
-                    let centre = |v: &[usize]| v.iter().map(|&i| s.x[i]).sum::<f64>() / v.len() as f64;
-                    let (ml, mr, xl, xr) = (mean(&left), mean(&right), centre(&left), centre(&right));
+                    let mean =
+                        |v: &[usize]| v.iter().map(|&i| s.y[i]).sum::<f64>() / v.len() as f64;
+                    let centre =
+                        |v: &[usize]| v.iter().map(|&i| s.x[i]).sum::<f64>() / v.len() as f64;
+                    let (ml, mr, xl, xr) =
+                        (mean(&left), mean(&right), centre(&left), centre(&right));
                     // B = Σ_i [m_L (x_R − x_i) + m_R (x_i − x_L)]/(x_R − x_L) = c_L m_L + c_R m_R
                     let cl: f64 = idx.iter().map(|&i| (xr - s.x[i]) / (xr - xl)).sum();
                     let cr: f64 = idx.iter().map(|&i| (s.x[i] - xl) / (xr - xl)).sum();
@@ -139,14 +177,36 @@ impl TypedStage for NetIntensity {
             };
             let net = g - b;
             let u = (g + var_b).sqrt();
-            art.record(Record::number(format!("net.{name}"), net, Some(u), "counts"));
-            art.record(Record::number(format!("gross.{name}"), g, Some(g.sqrt()), "counts"));
-            art.record(Record::number(format!("background.{name}"), b, Some(var_b.sqrt()), "counts"));
+            art.record(Record::number(
+                format!("net.{name}"),
+                net,
+                Some(u),
+                "counts",
+            ));
+            art.record(Record::number(
+                format!("gross.{name}"),
+                g,
+                Some(g.sqrt()),
+                "counts",
+            ));
+            art.record(Record::number(
+                format!("background.{name}"),
+                b,
+                Some(var_b.sqrt()),
+                "counts",
+            ));
             if net <= 3.0 * var_b.sqrt() {
                 art.warn(format!("{name}: net counts {net:.0} are not above three times the background's standard deviation"));
             }
         }
-        art.record(Record::text("background_method", if use_curve { "background curve" } else { "linear, side windows" }));
+        art.record(Record::text(
+            "background_method",
+            if use_curve {
+                "background curve"
+            } else {
+                "linear, side windows"
+            },
+        ));
         Ok(art)
     }
 }

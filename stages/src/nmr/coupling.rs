@@ -60,7 +60,10 @@ impl TypedStage for NmrCoupling {
         }
         quant_util::check_uncertainty("position_uncertainty", o.position_uncertainty)?;
         if o.lines.iter().any(|v| !v.is_finite()) {
-            return Err(OptionError::new("lines", "every line position must be a number"));
+            return Err(OptionError::new(
+                "lines",
+                "every line position must be a number",
+            ));
         }
         Ok(())
     }
@@ -88,11 +91,17 @@ impl TypedStage for NmrCoupling {
         let mut lines: Vec<(f64, Option<f64>)> = if o.lines.is_empty() {
             located_peaks(input)
                 .into_iter()
-                .filter(|p| o.range.is_none_or(|r| p.position >= r[0] && p.position <= r[1]))
+                .filter(|p| {
+                    o.range
+                        .is_none_or(|r| p.position >= r[0] && p.position <= r[1])
+                })
                 .map(|p| (p.position, p.uncertainty.or(o.position_uncertainty)))
                 .collect()
         } else {
-            o.lines.iter().map(|v| (*v, o.position_uncertainty)).collect()
+            o.lines
+                .iter()
+                .map(|v| (*v, o.position_uncertainty))
+                .collect()
         };
         if lines.len() < 2 {
             return Err(StageError::input(format!(
@@ -104,19 +113,23 @@ impl TypedStage for NmrCoupling {
         let freq = match o.frequency {
             Some(f) => f,
             None => {
-                let meta = input.and_then(|a| a.spectrum()).and_then(|s| {
-                    s.metadata.get("spectrometer_frequency_mhz").cloned()
-                });
+                let meta = input
+                    .and_then(|a| a.spectrum())
+                    .and_then(|s| s.metadata.get("spectrometer_frequency_mhz").cloned());
                 let text = meta.ok_or_else(|| {
                     StageError::input(
                         "no spectrometer frequency: give `frequency` (MHz) or import a spectrum with spectrometer_frequency_mhz metadata",
                     )
                 })?;
-                text.trim().parse::<f64>().ok().filter(|f| *f > 0.0).ok_or_else(|| {
-                    StageError::input(format!(
+                text.trim()
+                    .parse::<f64>()
+                    .ok()
+                    .filter(|f| *f > 0.0)
+                    .ok_or_else(|| {
+                        StageError::input(format!(
                         "metadata spectrometer_frequency_mhz = '{text}' is not a positive number"
                     ))
-                })?
+                    })?
             }
         };
         let mut art = Artifact::new(Value::Summary);
@@ -161,7 +174,13 @@ mod tests {
             ..Options::default()
         };
         let out = NmrCoupling
-            .run(&Inputs { item: None, ports: vec![PortValue::Missing] }, &o)
+            .run(
+                &Inputs {
+                    item: None,
+                    ports: vec![PortValue::Missing],
+                },
+                &o,
+            )
             .unwrap();
         let j = out.result("j.1").unwrap().as_number().unwrap();
         assert!((j - 7.0).abs() < 1e-9);

@@ -128,12 +128,26 @@ impl TypedStage for NmrIntegrate {
         for (name, v, u) in &ints {
             art.record(Record::number(format!("integral.{name}"), *v, *u, &unit));
             let r = o.regions[name];
-            art.record(Record::number(format!("range_from.{name}"), r[0], None, "ppm"));
-            art.record(Record::number(format!("range_to.{name}"), r[1], None, "ppm"));
+            art.record(Record::number(
+                format!("range_from.{name}"),
+                r[0],
+                None,
+                "ppm",
+            ));
+            art.record(Record::number(
+                format!("range_to.{name}"),
+                r[1],
+                None,
+                "ppm",
+            ));
         }
         art.record(Record::text(
             "background",
-            if has_bg { "background curve subtracted" } else { "none" },
+            if has_bg {
+                "background curve subtracted"
+            } else {
+                "none"
+            },
         ));
         let (ref_name, ref_nuclei) = match &o.normalise {
             Some(n) => (n.region.clone(), Some(n.nuclei)),
@@ -252,19 +266,41 @@ mod tests {
         let x: Vec<f64> = (0..=500).map(|i| (500 - i) as f64 / 100.0).collect();
         let y: Vec<f64> = x
             .iter()
-            .map(|&v| if (1.0..=2.0).contains(&v) { 3.0 } else if (3.0..=4.0).contains(&v) { 2.0 } else { 0.0 })
+            .map(|&v| {
+                if (1.0..=2.0).contains(&v) {
+                    3.0
+                } else if (3.0..=4.0).contains(&v) {
+                    2.0
+                } else {
+                    0.0
+                }
+            })
             .collect();
-        let s = Spectrum::new(x, y, Axis::new("chemical shift", "ppm"), Axis::new("intensity", ""));
+        let s = Spectrum::new(
+            x,
+            y,
+            Axis::new("chemical shift", "ppm"),
+            Axis::new("intensity", ""),
+        );
         let a = Artifact::new(Value::Spectrum(s));
         let o = Options {
             regions: [("a".to_string(), [0.9, 2.1]), ("b".to_string(), [2.9, 4.1])]
                 .into_iter()
                 .collect(),
-            normalise: Some(Normalise { region: "b".into(), nuclei: 2.0 }),
+            normalise: Some(Normalise {
+                region: "b".into(),
+                nuclei: 2.0,
+            }),
             noise_range: None,
         };
         let out = NmrIntegrate
-            .run(&Inputs { item: None, ports: vec![PortValue::One(&a)] }, &o)
+            .run(
+                &Inputs {
+                    item: None,
+                    ports: vec![PortValue::One(&a)],
+                },
+                &o,
+            )
             .unwrap();
         let n = out.result("nuclei.a").unwrap().as_number().unwrap();
         assert!((n - 3.0).abs() < 1e-9, "{n}");

@@ -87,7 +87,8 @@ impl TypedStage for QnmrPurity {
     const INFO: &'static StageInfo = &StageInfo {
         name: "nmr.qnmr_purity",
         version: 1,
-        summary: "Purity by quantitative NMR against an internal standard, with a GUM uncertainty budget",
+        summary:
+            "Purity by quantitative NMR against an internal standard, with a GUM uncertainty budget",
         inputs: INPUTS,
         output: Kind::Summary,
         references: &[HOLZGRABE, BIPM_QNMR, quant_util::GUM],
@@ -105,7 +106,10 @@ impl TypedStage for QnmrPurity {
             check_positive(&format!("{p}.molar_mass"), c.molar_mass)?;
             check_positive(&format!("{p}.mass"), c.mass)?;
             check_uncertainty(&format!("{p}.integral_uncertainty"), c.integral_uncertainty)?;
-            check_uncertainty(&format!("{p}.molar_mass_uncertainty"), c.molar_mass_uncertainty)?;
+            check_uncertainty(
+                &format!("{p}.molar_mass_uncertainty"),
+                c.molar_mass_uncertainty,
+            )?;
             check_uncertainty(&format!("{p}.mass_uncertainty"), c.mass_uncertainty)?;
         }
         check_positive("standard_purity", o.standard_purity)?;
@@ -140,7 +144,9 @@ impl TypedStage for QnmrPurity {
         let uia = o.analyte.integral_uncertainty.or(uia);
         let uis = o.standard.integral_uncertainty.or(uis);
         let (an, st) = (&o.analyte, &o.standard);
-        let p = (ia / is) * (st.nuclei / an.nuclei) * (an.molar_mass / st.molar_mass)
+        let p = (ia / is)
+            * (st.nuclei / an.nuclei)
+            * (an.molar_mass / st.molar_mass)
             * (st.mass / an.mass)
             * o.standard_purity;
         let p = quant_util::finite("purity", p)?;
@@ -149,17 +155,36 @@ impl TypedStage for QnmrPurity {
         let budget = [
             ("integral_analyte", rel(uia, ia)),
             ("integral_standard", rel(uis, is)),
-            ("molar_mass_analyte", rel(an.molar_mass_uncertainty, an.molar_mass)),
-            ("molar_mass_standard", rel(st.molar_mass_uncertainty, st.molar_mass)),
+            (
+                "molar_mass_analyte",
+                rel(an.molar_mass_uncertainty, an.molar_mass),
+            ),
+            (
+                "molar_mass_standard",
+                rel(st.molar_mass_uncertainty, st.molar_mass),
+            ),
             ("mass_analyte", rel(an.mass_uncertainty, an.mass)),
             ("mass_standard", rel(st.mass_uncertainty, st.mass)),
-            ("purity_standard", rel(o.standard_purity_uncertainty, o.standard_purity)),
+            (
+                "purity_standard",
+                rel(o.standard_purity_uncertainty, o.standard_purity),
+            ),
         ];
         let urel = budget.iter().map(|(_, r)| r * r).sum::<f64>().sqrt();
         let mut art = Artifact::new(Value::Summary);
         art.record(Record::number("purity", p, Some(p * urel), "g/g"));
-        art.record(Record::number("purity_percent", 100.0 * p, Some(100.0 * p * urel), "%"));
-        art.record(Record::number("purity_relative_uncertainty", urel, None, ""));
+        art.record(Record::number(
+            "purity_percent",
+            100.0 * p,
+            Some(100.0 * p * urel),
+            "%",
+        ));
+        art.record(Record::number(
+            "purity_relative_uncertainty",
+            urel,
+            None,
+            "",
+        ));
         for (name, r) in budget {
             art.record(Record::number(format!("budget.{name}"), r, None, ""));
         }

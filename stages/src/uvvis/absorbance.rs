@@ -35,9 +35,17 @@ pub struct Options {
 pub struct UvvisAbsorbance;
 
 static INPUTS: &[Port] = &[
-    Port::each("sample", Kind::Spectrum, "transmittance or sample intensity spectrum"),
-    Port::each("reference", Kind::Spectrum, "reference (blank) intensity I0 for `from: intensity`")
-        .optional(),
+    Port::each(
+        "sample",
+        Kind::Spectrum,
+        "transmittance or sample intensity spectrum",
+    ),
+    Port::each(
+        "reference",
+        Kind::Spectrum,
+        "reference (blank) intensity I0 for `from: intensity`",
+    )
+    .optional(),
 ];
 
 pub const IUPAC_ABS: Reference = Reference {
@@ -84,16 +92,28 @@ impl TypedStage for UvvisAbsorbance {
         let mut ut: Vec<Option<f64>> = vec![None; n];
         match o.from {
             Some(Source::Transmittance) | Some(Source::PercentTransmittance) => {
-                let scale = if o.from == Some(Source::PercentTransmittance) { 0.01 } else { 1.0 };
+                let scale = if o.from == Some(Source::PercentTransmittance) {
+                    0.01
+                } else {
+                    1.0
+                };
                 for i in 0..n {
                     t[i] = s.y[i] * scale;
-                    ut[i] = s.sigma.as_ref().map(|g| g[i] * scale / t[i].abs().max(f64::MIN_POSITIVE));
+                    ut[i] = s
+                        .sigma
+                        .as_ref()
+                        .map(|g| g[i] * scale / t[i].abs().max(f64::MIN_POSITIVE));
                 }
             }
             Some(Source::Intensity) | None => {
-                let r = inputs.optional(1).and_then(|a| a.spectrum()).ok_or_else(|| {
-                    StageError::input("from: intensity needs a reference spectrum on the `reference` port")
-                })?;
+                let r = inputs
+                    .optional(1)
+                    .and_then(|a| a.spectrum())
+                    .ok_or_else(|| {
+                        StageError::input(
+                            "from: intensity needs a reference spectrum on the `reference` port",
+                        )
+                    })?;
                 for i in 0..n {
                     let i0 = interpolate(&r.x, &r.y, s.x[i]).ok_or_else(|| {
                         StageError::input(format!(
@@ -108,12 +128,21 @@ impl TypedStage for UvvisAbsorbance {
                         )));
                     }
                     t[i] = s.y[i] / i0;
-                    let ui = s.sigma.as_ref().map(|g| g[i] / s.y[i].abs().max(f64::MIN_POSITIVE));
-                    let ur = r.sigma.as_ref().and_then(|g| interpolate(&r.x, g, s.x[i])).map(|g| g / i0);
+                    let ui = s
+                        .sigma
+                        .as_ref()
+                        .map(|g| g[i] / s.y[i].abs().max(f64::MIN_POSITIVE));
+                    let ur = r
+                        .sigma
+                        .as_ref()
+                        .and_then(|g| interpolate(&r.x, g, s.x[i]))
+                        .map(|g| g / i0);
                     // relative uncertainty of T
                     ut[i] = match (ui, ur) {
                         (None, None) => None,
-                        (a, b) => Some((a.unwrap_or(0.0).powi(2) + b.unwrap_or(0.0).powi(2)).sqrt()),
+                        (a, b) => {
+                            Some((a.unwrap_or(0.0).powi(2) + b.unwrap_or(0.0).powi(2)).sqrt())
+                        }
                     };
                 }
             }
@@ -130,15 +159,29 @@ impl TypedStage for UvvisAbsorbance {
         } else {
             None
         };
-        let mut out = Spectrum::new(s.x.clone(), a, s.x_axis.clone(), Axis::new("absorbance", ""));
+        let mut out = Spectrum::new(
+            s.x.clone(),
+            a,
+            s.x_axis.clone(),
+            Axis::new("absorbance", ""),
+        );
         out.sigma = sigma;
         out.metadata = s.metadata.clone();
         if let Some(r) = inputs.optional(1).and_then(|a| a.spectrum()) {
-            let y = s.x.iter().map(|x| interpolate(&r.x, &r.y, *x).unwrap_or(f64::NAN)).collect();
-            out.curves.push(Curve { name: "reference intensity".into(), role: CurveRole::Reference, y });
+            let y =
+                s.x.iter()
+                    .map(|x| interpolate(&r.x, &r.y, *x).unwrap_or(f64::NAN))
+                    .collect();
+            out.curves.push(Curve {
+                name: "reference intensity".into(),
+                role: CurveRole::Reference,
+                y,
+            });
         }
         let mut art = Artifact::new(Value::Spectrum(out));
-        let amax = art.spectrum().map_or(0.0, |s| s.y.iter().cloned().fold(f64::MIN, f64::max));
+        let amax = art
+            .spectrum()
+            .map_or(0.0, |s| s.y.iter().cloned().fold(f64::MIN, f64::max));
         if amax > 3.0 {
             art.warn(format!(
                 "absorbance reaches {amax:.2}: above about 3, stray light makes values unreliable (common practice)"
@@ -156,11 +199,24 @@ mod tests {
     #[test]
     fn ten_percent_transmittance_is_one_absorbance_unit() {
         // Definition: A = −log10(0.10) = 1.
-        let s = Spectrum::new(vec![400.0, 500.0], vec![10.0, 100.0], Axis::new("wavelength", "nm"), Axis::new("transmittance", "%"));
+        let s = Spectrum::new(
+            vec![400.0, 500.0],
+            vec![10.0, 100.0],
+            Axis::new("wavelength", "nm"),
+            Axis::new("transmittance", "%"),
+        );
         let a = Artifact::new(Value::Spectrum(s));
-        let o = Options { from: Some(Source::PercentTransmittance) };
+        let o = Options {
+            from: Some(Source::PercentTransmittance),
+        };
         let out = UvvisAbsorbance
-            .run(&Inputs { item: None, ports: vec![PortValue::One(&a), PortValue::Missing] }, &o)
+            .run(
+                &Inputs {
+                    item: None,
+                    ports: vec![PortValue::One(&a), PortValue::Missing],
+                },
+                &o,
+            )
             .unwrap();
         let y = &out.spectrum().unwrap().y;
         assert!((y[0] - 1.0).abs() < 1e-12 && y[1].abs() < 1e-12);

@@ -73,7 +73,10 @@ impl TypedStage for BeerLambert {
 
     fn check(&self, o: &Options) -> Result<(), OptionError> {
         let Some(e) = o.epsilon else {
-            return Err(OptionError::new("epsilon", "give the molar absorption coefficient epsilon in L/(mol·cm)"));
+            return Err(OptionError::new(
+                "epsilon",
+                "give the molar absorption coefficient epsilon in L/(mol·cm)",
+            ));
         };
         check_positive("epsilon", e)?;
         if o.path_length == 0.0 {
@@ -110,10 +113,14 @@ impl TypedStage for BeerLambert {
             }
         };
         let ua = o.absorbance_uncertainty.or(ua);
-        let eps = o.epsilon.ok_or_else(|| StageError::input("epsilon is required"))?;
+        let eps = o
+            .epsilon
+            .ok_or_else(|| StageError::input("epsilon is required"))?;
         let l = o.path_length;
         if l <= 0.0 || eps <= 0.0 {
-            return Err(StageError::input("epsilon and path length must be positive"));
+            return Err(StageError::input(
+                "epsilon and path length must be positive",
+            ));
         }
         let c = a / (eps * l);
         let rel = |u: Option<f64>, v: f64| u.map_or(0.0, |u| u / v);
@@ -121,12 +128,20 @@ impl TypedStage for BeerLambert {
             + (c * rel(o.epsilon_uncertainty, eps)).powi(2)
             + (c * rel(o.path_length_uncertainty, l)).powi(2))
         .sqrt();
-        let known = ua.is_some() || o.epsilon_uncertainty.is_some() || o.path_length_uncertainty.is_some();
+        let known =
+            ua.is_some() || o.epsilon_uncertainty.is_some() || o.path_length_uncertainty.is_some();
         let mut art = Artifact::new(Value::Summary);
-        art.record(Record::number("concentration", c, known.then_some(ur), "mol/L"));
+        art.record(Record::number(
+            "concentration",
+            c,
+            known.then_some(ur),
+            "mol/L",
+        ));
         art.record(Record::number("absorbance", a, ua, ""));
         if a > 3.0 {
-            art.warn(format!("absorbance {a:.2} is above about 3, where the Beer–Lambert law is rarely linear"));
+            art.warn(format!(
+                "absorbance {a:.2} is above about 3, where the Beer–Lambert law is rarely linear"
+            ));
         }
         Ok(art)
     }
@@ -139,7 +154,11 @@ mod tests {
 
     #[test]
     fn zero_path_length_is_refused() {
-        let o = Options { epsilon: Some(1000.0), path_length: 0.0, ..Options::default() };
+        let o = Options {
+            epsilon: Some(1000.0),
+            path_length: 0.0,
+            ..Options::default()
+        };
         let e = BeerLambert.check(&o).unwrap_err();
         assert!(e.message.contains("path length is zero"));
     }

@@ -7,7 +7,9 @@
 //! Its uncertainty comes from the tangent's covariance and the baseline's standard
 //! error. On a wavelength axis the onset is also given as a photon energy (E = hc/λ).
 
-use crate::quant_util::{self, check_range, indices_in, line_crossing, mean_and_se, polyfit, HC_EV_NM};
+use crate::quant_util::{
+    self, check_range, indices_in, line_crossing, mean_and_se, polyfit, HC_EV_NM,
+};
 use crate::stage::{Inputs, OptionError, Port, StageError, StageInfo, TypedStage};
 use crate::value::{Artifact, Curve, CurveRole, Kind, Record, Value};
 use schemars::JsonSchema;
@@ -26,13 +28,21 @@ pub struct Options {
 
 impl Default for Options {
     fn default() -> Self {
-        Options { range: None, tangent_points: 5, baseline_range: None }
+        Options {
+            range: None,
+            tangent_points: 5,
+            baseline_range: None,
+        }
     }
 }
 
 pub struct UvvisOnset;
 
-static INPUTS: &[Port] = &[Port::each("spectrum", Kind::Spectrum, "an absorbance spectrum")];
+static INPUTS: &[Port] = &[Port::each(
+    "spectrum",
+    Kind::Spectrum,
+    "an absorbance spectrum",
+)];
 
 impl TypedStage for UvvisOnset {
     type Options = Options;
@@ -48,8 +58,11 @@ impl TypedStage for UvvisOnset {
     fn check(&self, o: &Options) -> Result<(), OptionError> {
         check_range("range", o.range)?;
         check_range("baseline_range", o.baseline_range)?;
-        if o.tangent_points < 2 || o.tangent_points % 2 == 0 {
-            return Err(OptionError::new("tangent_points", "tangent_points must be odd and at least 3"));
+        if o.tangent_points < 2 || o.tangent_points.is_multiple_of(2) {
+            return Err(OptionError::new(
+                "tangent_points",
+                "tangent_points must be odd and at least 3",
+            ));
         }
         Ok(())
     }
@@ -58,7 +71,9 @@ impl TypedStage for UvvisOnset {
         let base = o.baseline_range.map_or("zero absorbance".to_string(), |r| {
             format!("the mean absorbance between {} and {}", r[0], r[1])
         });
-        let r = o.range.map_or(String::new(), |r| format!(" between {} and {}", r[0], r[1]));
+        let r = o
+            .range
+            .map_or(String::new(), |r| format!(" between {} and {}", r[0], r[1]));
         format!(
             "The absorption onset was estimated by extrapolating the tangent at the steepest point of the edge{r} (a least-squares line through {} points) to {base}, common practice, with its uncertainty from the line's covariance [jcgm2008].",
             o.tangent_points
@@ -75,7 +90,10 @@ impl TypedStage for UvvisOnset {
         let n = order.len();
         let k = o.tangent_points;
         if n < k.max(3) {
-            return Err(StageError::input(format!("fewer than {} points in the edge range", k.max(3))));
+            return Err(StageError::input(format!(
+                "fewer than {} points in the edge range",
+                k.max(3)
+            )));
         }
         let (x, y): (Vec<f64>, Vec<f64>) = order.iter().map(|&i| (s.x[i], s.y[i])).unzip();
         let mut best = 1;
@@ -102,17 +120,45 @@ impl TypedStage for UvvisOnset {
         let mut out = s.clone();
         let lo = onset.min(x[start + k - 1]);
         let hi = onset.max(x[start]);
-        let guide = s.x.iter().map(|&v| if v >= lo && v <= hi { fit.eval(v) } else { f64::NAN }).collect();
-        out.curves.push(Curve { name: "onset tangent".into(), role: CurveRole::Guide, y: guide });
+        let guide =
+            s.x.iter()
+                .map(|&v| {
+                    if v >= lo && v <= hi {
+                        fit.eval(v)
+                    } else {
+                        f64::NAN
+                    }
+                })
+                .collect();
+        out.curves.push(Curve {
+            name: "onset tangent".into(),
+            role: CurveRole::Guide,
+            y: guide,
+        });
         let mut art = Artifact::new(Value::Spectrum(out));
         art.record(Record::number("onset", onset, Some(u), &s.x_axis.unit));
         if s.x_axis.unit == "nm" && onset > 0.0 {
             let e = HC_EV_NM / onset;
             art.record(Record::number("onset_energy", e, Some(e * u / onset), "eV"));
         }
-        art.record(Record::number("steepest_point", x[best], None, &s.x_axis.unit));
-        art.record(Record::number("tangent_slope", fit.coef[1], Some(fit.stderr(1)), &quant_util::unit_ratio(&s.y_axis.unit, &s.x_axis.unit)));
-        art.record(Record::number("baseline_level", level, Some(u_level), &s.y_axis.unit));
+        art.record(Record::number(
+            "steepest_point",
+            x[best],
+            None,
+            &s.x_axis.unit,
+        ));
+        art.record(Record::number(
+            "tangent_slope",
+            fit.coef[1],
+            Some(fit.stderr(1)),
+            &quant_util::unit_ratio(&s.y_axis.unit, &s.x_axis.unit),
+        ));
+        art.record(Record::number(
+            "baseline_level",
+            level,
+            Some(u_level),
+            &s.y_axis.unit,
+        ));
         Ok(art)
     }
 }

@@ -20,7 +20,11 @@ pub struct Options {
 
 pub struct UvvisPeak;
 
-static INPUTS: &[Port] = &[Port::each("spectrum", Kind::Spectrum, "an absorbance spectrum")];
+static INPUTS: &[Port] = &[Port::each(
+    "spectrum",
+    Kind::Spectrum,
+    "an absorbance spectrum",
+)];
 
 impl TypedStage for UvvisPeak {
     type Options = Options;
@@ -50,8 +54,18 @@ impl TypedStage for UvvisPeak {
         let s = inputs.spectrum(0)?;
         let m = refined_maximum(s, &s.y, o.range)?;
         let mut art = Artifact::new(Value::Summary);
-        art.record(Record::number("lambda_max", m.position, m.position_u, &s.x_axis.unit));
-        art.record(Record::number("absorbance_at_max", m.height, m.height_u, &s.y_axis.unit));
+        art.record(Record::number(
+            "lambda_max",
+            m.position,
+            m.position_u,
+            &s.x_axis.unit,
+        ));
+        art.record(Record::number(
+            "absorbance_at_max",
+            m.height,
+            m.height_u,
+            &s.y_axis.unit,
+        ));
         if m.on_edge {
             art.warn("the maximum lies on the edge of the search range");
         }
@@ -83,7 +97,10 @@ pub fn refined_maximum(
     if idx.len() < 3 {
         return Err(StageError::input("fewer than 3 points in the search range"));
     }
-    let best = idx.iter().copied().fold(idx[0], |b, i| if y[i] > y[b] { i } else { b });
+    let best = idx
+        .iter()
+        .copied()
+        .fold(idx[0], |b, i| if y[i] > y[b] { i } else { b });
     let (position, height) = parabolic_vertex(&s.x, y, best);
     let on_edge = best == idx[0] || best == idx[idx.len() - 1];
     let (mut pu, mut hu) = (None, None);
@@ -97,7 +114,11 @@ pub fn refined_maximum(
                     let yy = [v[0], v[1], v[2]];
                     let xx = [x[best - 1], x[best], x[best + 1]];
                     let r = parabolic_vertex(&xx, &yy, 1);
-                    if k == 0 { r.0 } else { r.1 }
+                    if k == 0 {
+                        r.0
+                    } else {
+                        r.1
+                    }
                 }
             };
             pu = Some(propagate(&f(0), &pts, &us));

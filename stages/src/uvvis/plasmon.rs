@@ -40,8 +40,17 @@ pub struct Options {
 pub struct UvvisPlasmon;
 
 static INPUTS: &[Port] = &[
-    Port::each("spectrum", Kind::Spectrum, "the sample's extinction spectrum"),
-    Port::each("reference", Kind::Spectrum, "a reference spectrum for the band shift").optional(),
+    Port::each(
+        "spectrum",
+        Kind::Spectrum,
+        "the sample's extinction spectrum",
+    ),
+    Port::each(
+        "reference",
+        Kind::Spectrum,
+        "a reference spectrum for the band shift",
+    )
+    .optional(),
 ];
 
 /// (centre, height, fwhm) of the band in x[idx] with y values yv (same order as idx).
@@ -55,16 +64,23 @@ fn band(x: &[f64], yv: &[f64], baseline: Baseline) -> Result<[f64; 3], StageErro
         }
         Baseline::Linear => {
             let (x0, x1, y0, y1) = (x[0], x[n - 1], yv[0], yv[n - 1]);
-            x.iter().zip(yv).map(|(xi, v)| v - (y0 + (y1 - y0) * (xi - x0) / (x1 - x0))).collect()
+            x.iter()
+                .zip(yv)
+                .map(|(xi, v)| v - (y0 + (y1 - y0) * (xi - x0) / (x1 - x0)))
+                .collect()
         }
     };
     let best = (0..n).fold(0, |b, i| if y[i] > y[b] { i } else { b });
     if best == 0 || best == n - 1 {
-        return Err(StageError::input("the band maximum lies on the edge of the range"));
+        return Err(StageError::input(
+            "the band maximum lies on the edge of the range",
+        ));
     }
     let (c, h) = parabolic_vertex(x, &y, best);
     if h <= 0.0 {
-        return Err(StageError::input("the band has no positive height above the baseline"));
+        return Err(StageError::input(
+            "the band has no positive height above the baseline",
+        ));
     }
     let half = h / 2.0;
     let cross = |from: usize, step: isize| -> Option<f64> {
@@ -81,7 +97,11 @@ fn band(x: &[f64], yv: &[f64], baseline: Baseline) -> Result<[f64; 3], StageErro
     };
     let (l, r) = match (cross(best, -1), cross(best, 1)) {
         (Some(l), Some(r)) => (l, r),
-        _ => return Err(StageError::input("the band does not fall to half maximum on both sides inside the range")),
+        _ => {
+            return Err(StageError::input(
+                "the band does not fall to half maximum on both sides inside the range",
+            ))
+        }
     };
     Ok([c, h, (r - l).abs()])
 }
@@ -102,11 +122,20 @@ fn measure(s: &Spectrum, o: &Options) -> Result<([f64; 3], Option<[f64; 3]>), St
     let u = match &s.sigma {
         Some(sig) => {
             let us: Vec<f64> = idx.iter().map(|&i| sig[i]).collect();
-            let f = |yy: &[f64]| band(&x, yy, o.baseline).map(|r| r.to_vec()).unwrap_or_else(|_| vec![f64::NAN; 3]);
+            let f = |yy: &[f64]| {
+                band(&x, yy, o.baseline)
+                    .map(|r| r.to_vec())
+                    .unwrap_or_else(|_| vec![f64::NAN; 3])
+            };
             let jac = jacobian(&f, &y, &us);
             let mut out = [0.0; 3];
             for k in 0..3 {
-                out[k] = jac[k].iter().zip(&us).map(|(g, u)| (g * u).powi(2)).sum::<f64>().sqrt();
+                out[k] = jac[k]
+                    .iter()
+                    .zip(&us)
+                    .map(|(g, u)| (g * u).powi(2))
+                    .sum::<f64>()
+                    .sqrt();
             }
             out.iter().all(|v| v.is_finite()).then_some(out)
         }
@@ -133,10 +162,14 @@ impl TypedStage for UvvisPlasmon {
     fn methods(&self, o: &Options) -> String {
         let b = match o.baseline {
             Baseline::None => "without a baseline",
-            Baseline::Linear => "after subtracting the straight line through the ends of the band range",
+            Baseline::Linear => {
+                "after subtracting the straight line through the ends of the band range"
+            }
             Baseline::Minimum => "after subtracting the minimum of the band range",
         };
-        let r = o.range.map_or(String::new(), |r| format!(" between {} and {}", r[0], r[1]));
+        let r = o
+            .range
+            .map_or(String::new(), |r| format!(" between {} and {}", r[0], r[1]));
         format!(
             "Plasmon bands{r} were characterised {b} by the parabola-refined maximum and the full width between the linearly interpolated half-maximum crossings (common practice), with shifts taken against the reference spectrum processed identically and uncertainties propagated to first order [jcgm2008]."
         )
@@ -148,15 +181,26 @@ impl TypedStage for UvvisPlasmon {
         let xu = &s.x_axis.unit;
         let mut art = Artifact::new(Value::Summary);
         art.record(Record::number("band_centre", v[0], u.map(|u| u[0]), xu));
-        art.record(Record::number("band_height", v[1], u.map(|u| u[1]), &s.y_axis.unit));
+        art.record(Record::number(
+            "band_height",
+            v[1],
+            u.map(|u| u[1]),
+            &s.y_axis.unit,
+        ));
         art.record(Record::number("fwhm", v[2], u.map(|u| u[2]), xu));
         if let Some(r) = inputs.optional(1).and_then(|a| a.spectrum()) {
-            let (rv, ru) = measure(r, o).map_err(|e| StageError::input(format!("reference: {e}")))?;
+            let (rv, ru) =
+                measure(r, o).map_err(|e| StageError::input(format!("reference: {e}")))?;
             let su = match (u, ru) {
                 (Some(a), Some(b)) => Some((a[0] * a[0] + b[0] * b[0]).sqrt()),
                 _ => None,
             };
-            art.record(Record::number("reference_centre", rv[0], ru.map(|u| u[0]), xu));
+            art.record(Record::number(
+                "reference_centre",
+                rv[0],
+                ru.map(|u| u[0]),
+                xu,
+            ));
             art.record(Record::number("shift", v[0] - rv[0], su, xu));
             art.record(Record::number("fwhm_change", v[2] - rv[2], None, xu));
         }

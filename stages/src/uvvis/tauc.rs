@@ -10,7 +10,8 @@
 //! consecutive points (ascending energy, inside `search_range`), keep those whose line
 //! fit has positive slope, R² ≥ `min_r_squared` and an x-intercept at or below the
 //! run's first energy; choose the run maximising slope × R² (the steepest straight part
-//! of the edge; ties go to the lower energy). Eg = −a/b from the line y = a + b·hν with
+//! of the edge; scores within 1e-9 relative count as tied and the lower energy wins).
+//! Eg = −a/b from the line y = a + b·hν with
 //! its standard uncertainty from the fit covariance.
 
 use super::photon_energy;
@@ -110,7 +111,8 @@ impl TypedStage for Tauc {
     const INFO: &'static StageInfo = &StageInfo {
         name: "uvvis.tauc",
         version: 1,
-        summary: "Optical band gap from a Tauc plot, linear region given or chosen by a stated criterion",
+        summary:
+            "Optical band gap from a Tauc plot, linear region given or chosen by a stated criterion",
         inputs: INPUTS,
         output: Kind::Spectrum,
         references: &[TAUC, DAVIS_MOTT, quant_util::GUM],
@@ -129,10 +131,16 @@ impl TypedStage for Tauc {
         check_range("fit_range", o.fit_range)?;
         check_range("search_range", o.search_range)?;
         if o.min_points < 3 {
-            return Err(OptionError::new("min_points", "min_points must be at least 3"));
+            return Err(OptionError::new(
+                "min_points",
+                "min_points must be at least 3",
+            ));
         }
         if !(0.0..=1.0).contains(&o.min_r_squared) {
-            return Err(OptionError::new("min_r_squared", "min_r_squared must lie in [0, 1]"));
+            return Err(OptionError::new(
+                "min_r_squared",
+                "min_r_squared must lie in [0, 1]",
+            ));
         }
         Ok(())
     }
@@ -159,7 +167,9 @@ impl TypedStage for Tauc {
 
     fn run(&self, inputs: &Inputs, o: &Options) -> Result<Artifact, StageError> {
         let s = inputs.spectrum(0)?;
-        let tr = o.transition.ok_or_else(|| StageError::input("transition is required"))?;
+        let tr = o
+            .transition
+            .ok_or_else(|| StageError::input("transition is required"))?;
         let e = photon_energy(s)?;
         let mut pts: Vec<(f64, f64)> = e.iter().copied().zip(s.y.iter().copied()).collect();
         pts.sort_by(|a, b| a.0.total_cmp(&b.0));
@@ -198,7 +208,11 @@ impl TypedStage for Tauc {
             Transition::DirectForbidden => "2/3",
             Transition::IndirectForbidden => "1/3",
         };
-        let base_unit = if o.thickness.is_some() { "cm⁻¹·eV" } else { "eV" };
+        let base_unit = if o.thickness.is_some() {
+            "cm⁻¹·eV"
+        } else {
+            "eV"
+        };
         let guide: Vec<f64> = ex
             .iter()
             .map(|&x| {
@@ -213,14 +227,31 @@ impl TypedStage for Tauc {
             ex.clone(),
             ty,
             Axis::new("photon energy", "eV"),
-            Axis::new(format!("(αhν)^{exponent}"), format!("({base_unit})^{exponent}")),
+            Axis::new(
+                format!("(αhν)^{exponent}"),
+                format!("({base_unit})^{exponent}"),
+            ),
         );
         out.metadata = s.metadata.clone();
-        out.curves.push(Curve { name: "Tauc line".into(), role: CurveRole::Guide, y: guide });
+        out.curves.push(Curve {
+            name: "Tauc line".into(),
+            role: CurveRole::Guide,
+            y: guide,
+        });
         let mut art = Artifact::new(Value::Spectrum(out));
         art.record(Record::number("band_gap", eg, Some(ueg), "eV"));
-        art.record(Record::number("tauc_slope", fit.coef[1], Some(fit.stderr(1)), ""));
-        art.record(Record::number("tauc_intercept", fit.coef[0], Some(fit.stderr(0)), ""));
+        art.record(Record::number(
+            "tauc_slope",
+            fit.coef[1],
+            Some(fit.stderr(1)),
+            "",
+        ));
+        art.record(Record::number(
+            "tauc_intercept",
+            fit.coef[0],
+            Some(fit.stderr(0)),
+            "",
+        ));
         art.record(Record::number("fit_from", ex[lo], None, "eV"));
         art.record(Record::number("fit_to", ex[hi], None, "eV"));
         art.record(Record::number("fit_points", (hi - lo + 1) as f64, None, ""));
@@ -234,10 +265,15 @@ impl TypedStage for Tauc {
             },
         ));
         if clamped > 0 {
-            art.info(format!("{clamped} points with negative absorbance were set to zero in the Tauc plot"));
+            art.info(format!(
+                "{clamped} points with negative absorbance were set to zero in the Tauc plot"
+            ));
         }
         if o.fit_range.is_some() && fit.r_squared < o.min_r_squared {
-            art.warn(format!("the given linear region has R² = {:.4}", fit.r_squared));
+            art.warn(format!(
+                "the given linear region has R² = {:.4}",
+                fit.r_squared
+            ));
         }
         Ok(art)
     }
@@ -261,7 +297,9 @@ fn auto_window(ex: &[f64], ty: &[f64], o: &Options) -> Result<(PolyFit, usize, u
     for win in idx.windows(w) {
         let x: Vec<f64> = win.iter().map(|&i| ex[i]).collect();
         let y: Vec<f64> = win.iter().map(|&i| ty[i]).collect();
-        let Ok(fit) = polyfit(&x, &y, None, 1) else { continue };
+        let Ok(fit) = polyfit(&x, &y, None, 1) else {
+            continue;
+        };
         let slope = fit.coef[1];
         if slope <= 0.0 || fit.r_squared < o.min_r_squared {
             continue;
@@ -271,7 +309,8 @@ fn auto_window(ex: &[f64], ty: &[f64], o: &Options) -> Result<(PolyFit, usize, u
             continue;
         }
         let score = slope * fit.r_squared;
-        if best.as_ref().is_none_or(|b| score > b.0) {
+        // Scores within 1e-9 (relative) of each other count as tied: the lower energy wins.
+        if best.as_ref().is_none_or(|b| score > b.0 * (1.0 + 1e-9)) {
             best = Some((score, fit, win[0], win[w - 1]));
         }
     }

@@ -45,7 +45,11 @@ pub struct Options {
 
 impl Default for Options {
     fn default() -> Self {
-        Options { regions: BTreeMap::new(), rsf_set: "scofield_al_ka".into(), area_record: "area".into() }
+        Options {
+            regions: BTreeMap::new(),
+            rsf_set: "scofield_al_ka".into(),
+            area_record: "area".into(),
+        }
     }
 }
 
@@ -71,7 +75,11 @@ pub const WAGNER: Reference = Reference {
 };
 
 /// The area of one region and its standard uncertainty.
-pub fn region_area(a: &Artifact, area_record: &str, peaks: &[String]) -> Result<(f64, Option<f64>), StageError> {
+pub fn region_area(
+    a: &Artifact,
+    area_record: &str,
+    peaks: &[String],
+) -> Result<(f64, Option<f64>), StageError> {
     match &a.value {
         Value::Fit(f) => {
             let idx: Vec<usize> = if peaks.is_empty() {
@@ -80,9 +88,10 @@ pub fn region_area(a: &Artifact, area_record: &str, peaks: &[String]) -> Result<
                 peaks
                     .iter()
                     .map(|p| {
-                        f.peaks.iter().position(|q| &q.name == p).ok_or_else(|| {
-                            StageError::input(format!("the fit has no peak '{p}'"))
-                        })
+                        f.peaks
+                            .iter()
+                            .position(|q| &q.name == p)
+                            .ok_or_else(|| StageError::input(format!("the fit has no peak '{p}'")))
                     })
                     .collect::<Result<_, _>>()?
             };
@@ -92,7 +101,11 @@ pub fn region_area(a: &Artifact, area_record: &str, peaks: &[String]) -> Result<
             let n = f.peaks.len();
             let area: f64 = idx.iter().map(|&i| f.peaks[i].area.value).sum();
             let u = if f.area_covariance.len() == n * n {
-                let v: f64 = idx.iter().flat_map(|&i| idx.iter().map(move |&j| (i, j))).map(|(i, j)| f.area_covariance[i * n + j]).sum();
+                let v: f64 = idx
+                    .iter()
+                    .flat_map(|&i| idx.iter().map(move |&j| (i, j)))
+                    .map(|(i, j)| f.area_covariance[i * n + j])
+                    .sum();
                 Some(v.max(0.0).sqrt())
             } else {
                 None
@@ -119,29 +132,49 @@ impl TypedStage for AtomicPercent {
 
     fn check(&self, o: &Options) -> Result<(), OptionError> {
         if o.regions.len() < 2 {
-            return Err(OptionError::new("regions", "give at least two regions (one per input step)"));
+            return Err(OptionError::new(
+                "regions",
+                "give at least two regions (one per input step)",
+            ));
         }
         for (k, r) in &o.regions {
             if r.element.is_empty() || r.level.is_empty() {
-                return Err(OptionError::new(format!("regions.{k}"), "give element and level"));
+                return Err(OptionError::new(
+                    format!("regions.{k}"),
+                    "give element and level",
+                ));
             }
             if let Some(s) = r.rsf {
                 quant_util::check_positive(&format!("regions.{k}.rsf"), s)?;
             }
-            quant_util::check_uncertainty(&format!("regions.{k}.rsf_uncertainty"), r.rsf_uncertainty)?;
+            quant_util::check_uncertainty(
+                &format!("regions.{k}.rsf_uncertainty"),
+                r.rsf_uncertainty,
+            )?;
         }
         if o.rsf_set != "scofield_al_ka" && o.rsf_set != "wagner1981" {
-            return Err(OptionError::new("rsf_set", "rsf_set is scofield_al_ka or wagner1981"));
+            return Err(OptionError::new(
+                "rsf_set",
+                "rsf_set is scofield_al_ka or wagner1981",
+            ));
         }
         Ok(())
     }
 
     fn methods(&self, o: &Options) -> String {
-        let set_key = if o.rsf_set == "wagner1981" { "[wagner1981]" } else { "[scofield1976]" };
-        let regs: Vec<String> = o.regions.values().map(|r| match r.rsf {
-            Some(s) => format!("{} {} (RSF {s})", r.element, r.level),
-            None => format!("{} {}", r.element, r.level),
-        }).collect();
+        let set_key = if o.rsf_set == "wagner1981" {
+            "[wagner1981]"
+        } else {
+            "[scofield1976]"
+        };
+        let regs: Vec<String> = o
+            .regions
+            .values()
+            .map(|r| match r.rsf {
+                Some(s) => format!("{} {} (RSF {s})", r.element, r.level),
+                None => format!("{} {}", r.element, r.level),
+            })
+            .collect();
         format!(
             "Atomic percentages were calculated from the background-subtracted areas of {} divided by relative sensitivity factors (given, else from the built-in {} set {set_key}, used without further transmission or escape-depth correction), assuming a homogeneous sample [briggs1990], with uncertainties propagated to first order including the correlation introduced by normalisation [jcgm2008].",
             regs.join(", "),
@@ -168,14 +201,29 @@ impl TypedStage for AtomicPercent {
                     (t.rsf, t.source.clone())
                 }
             };
-            if rows.iter().any(|(e, ..): &(String, f64, f64, f64, f64, String)| *e == r.element) {
-                return Err(StageError::input(format!("element {} appears in two regions", r.element)));
+            if rows
+                .iter()
+                .any(|(e, ..): &(String, f64, f64, f64, f64, String)| *e == r.element)
+            {
+                return Err(StageError::input(format!(
+                    "element {} appears in two regions",
+                    r.element
+                )));
             }
-            rows.push((r.element.clone(), area, ua.unwrap_or(0.0), rsf, r.rsf_uncertainty.unwrap_or(0.0), src));
+            rows.push((
+                r.element.clone(),
+                area,
+                ua.unwrap_or(0.0),
+                rsf,
+                r.rsf_uncertainty.unwrap_or(0.0),
+                src,
+            ));
         }
         for k in o.regions.keys() {
             if !entries.iter().any(|(s, _)| s == k) {
-                return Err(StageError::input(format!("region '{k}' names no input step")));
+                return Err(StageError::input(format!(
+                    "region '{k}' names no input step"
+                )));
             }
         }
         let n = rows.len();
@@ -189,15 +237,25 @@ impl TypedStage for AtomicPercent {
             let xi = inv[i] / total;
             // Areas: ∂X_i/∂A_j = (δ_ij − X_i)/(S_j T); RSFs: ∂X_i/∂S_j = −(δ_ij − X_i)·A_j/(S_j² T).
             let mut var = 0.0;
-            for j in 0..n {
+            for (j, r) in rows.iter().enumerate() {
                 let d = if i == j { 1.0 } else { 0.0 };
-                let ga = (d - xi) / (rows[j].3 * total);
-                let gs = -(d - xi) * rows[j].1 / (rows[j].3 * rows[j].3 * total);
-                var += (ga * rows[j].2).powi(2) + (gs * rows[j].4).powi(2);
+                let ga = (d - xi) / (r.3 * total);
+                let gs = -(d - xi) * r.1 / (r.3 * r.3 * total);
+                var += (ga * r.2).powi(2) + (gs * r.4).powi(2);
             }
             let el = &rows[i].0;
-            art.record(Record::number(format!("atomic_percent.{el}"), 100.0 * xi, Some(100.0 * var.sqrt()), "%"));
-            art.record(Record::number(format!("rsf.{el}"), rows[i].3, Some(rows[i].4), ""));
+            art.record(Record::number(
+                format!("atomic_percent.{el}"),
+                100.0 * xi,
+                Some(100.0 * var.sqrt()),
+                "%",
+            ));
+            art.record(Record::number(
+                format!("rsf.{el}"),
+                rows[i].3,
+                Some(rows[i].4),
+                "",
+            ));
             art.record(Record::text(format!("rsf_source.{el}"), rows[i].5.clone()));
         }
         if rows.iter().all(|r| r.2 == 0.0) {

@@ -19,7 +19,11 @@ pub struct Options {
 
 pub struct XpsFractions;
 
-static INPUTS: &[Port] = &[Port::each("fit", Kind::Fit, "a fitted envelope with area covariance")];
+static INPUTS: &[Port] = &[Port::each(
+    "fit",
+    Kind::Fit,
+    "a fitted envelope with area covariance",
+)];
 
 impl TypedStage for XpsFractions {
     type Options = Options;
@@ -37,7 +41,11 @@ impl TypedStage for XpsFractions {
     }
 
     fn methods(&self, o: &Options) -> String {
-        let which = if o.peaks.is_empty() { "all fitted components".to_string() } else { o.peaks.join(", ") };
+        let which = if o.peaks.is_empty() {
+            "all fitted components".to_string()
+        } else {
+            o.peaks.join(", ")
+        };
         format!(
             "Component fractions of {which} were taken as each area over their sum, with uncertainties propagated from the fit's area covariance including correlations [jcgm2008]."
         )
@@ -51,8 +59,15 @@ impl TypedStage for XpsFractions {
         let idx: Vec<usize> = if o.peaks.is_empty() {
             (0..n).collect()
         } else {
-            o.peaks.iter().map(|p| f.peaks.iter().position(|q| &q.name == p)
-                .ok_or_else(|| StageError::input(format!("the fit has no peak '{p}'")))).collect::<Result<_, _>>()?
+            o.peaks
+                .iter()
+                .map(|p| {
+                    f.peaks
+                        .iter()
+                        .position(|q| &q.name == p)
+                        .ok_or_else(|| StageError::input(format!("the fit has no peak '{p}'")))
+                })
+                .collect::<Result<_, _>>()?
         };
         if idx.len() < 2 {
             return Err(StageError::input("fractions need at least two peaks"));
@@ -69,7 +84,9 @@ impl TypedStage for XpsFractions {
         for i in 0..m {
             let fi = areas[i] / total;
             let u = have_cov.then(|| {
-                let g: Vec<f64> = (0..m).map(|j| ((if i == j { 1.0 } else { 0.0 }) - fi) / total).collect();
+                let g: Vec<f64> = (0..m)
+                    .map(|j| ((if i == j { 1.0 } else { 0.0 }) - fi) / total)
+                    .collect();
                 let mut v = 0.0;
                 for a in 0..m {
                     for b in 0..m {
@@ -78,7 +95,12 @@ impl TypedStage for XpsFractions {
                 }
                 v.max(0.0).sqrt()
             });
-            art.record(Record::number(format!("fraction.{}", f.peaks[idx[i]].name), fi, u, ""));
+            art.record(Record::number(
+                format!("fraction.{}", f.peaks[idx[i]].name),
+                fi,
+                u,
+                "",
+            ));
         }
         if !have_cov {
             art.warn("the fit carries no area covariance: fractions have no uncertainty");

@@ -36,7 +36,10 @@ fn parse() -> Result<Vec<Rsf>, StageError> {
 /// Every row of the table (parsed once).
 pub fn table() -> Result<&'static [Rsf], StageError> {
     static T: OnceLock<Result<Vec<Rsf>, StageError>> = OnceLock::new();
-    T.get_or_init(parse).as_ref().map(|v| v.as_slice()).map_err(Clone::clone)
+    T.get_or_init(parse)
+        .as_ref()
+        .map(|v| v.as_slice())
+        .map_err(Clone::clone)
 }
 
 /// The factor for an element and core level in a set.

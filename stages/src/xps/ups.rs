@@ -16,7 +16,9 @@
 //! (sample biased) the cutoff lies at low kinetic energy and E_F (the kinetic energy of
 //! the Fermi edge of a metal reference) must be given or connected.
 
-use crate::quant_util::{self, check_range, indices_in, line_crossing, mean_and_se, polyfit, record_number};
+use crate::quant_util::{
+    self, check_range, indices_in, line_crossing, mean_and_se, polyfit, record_number,
+};
 use crate::stage::{Inputs, OptionError, Port, Reference, StageError, StageInfo, TypedStage};
 use crate::value::{Artifact, Curve, CurveRole, Kind, Record, Spectrum, Value};
 use schemars::JsonSchema;
@@ -55,7 +57,13 @@ pub struct EdgeOptions {
 
 impl Default for EdgeOptions {
     fn default() -> Self {
-        EdgeOptions { edge_range: None, edge_fractions: [0.2, 0.8], search_range: None, baseline_range: None, scale: Scale::Auto }
+        EdgeOptions {
+            edge_range: None,
+            edge_fractions: [0.2, 0.8],
+            search_range: None,
+            baseline_range: None,
+            scale: Scale::Auto,
+        }
     }
 }
 
@@ -65,7 +73,10 @@ fn check_edge(o: &EdgeOptions) -> Result<(), OptionError> {
     check_range("baseline_range", o.baseline_range)?;
     let [a, b] = o.edge_fractions;
     if !(0.0 <= a && a < b && b <= 1.0) {
-        return Err(OptionError::new("edge_fractions", "edge_fractions must be [low, high] with 0 ≤ low < high ≤ 1"));
+        return Err(OptionError::new(
+            "edge_fractions",
+            "edge_fractions must be [low, high] with 0 ≤ low < high ≤ 1",
+        ));
     }
     Ok(())
 }
@@ -96,6 +107,8 @@ pub struct Edge {
     pub to: f64,
     pub points: usize,
     pub baseline: f64,
+    /// Intensity of the maximum the edge was walked from.
+    pub top: f64,
 }
 
 /// Extrapolates the edge lying in direction `dir` (+1: towards higher x) from the maximum.
@@ -115,14 +128,20 @@ pub fn extrapolate_edge(s: &Spectrum, o: &EdgeOptions, dir: isize) -> Result<Edg
     if search.len() < 3 {
         return Err(StageError::input("fewer than 3 points in search_range"));
     }
-    let imax = search.iter().copied().fold(search[0], |b, i| if y[i] > y[b] { i } else { b });
+    let imax = search
+        .iter()
+        .copied()
+        .fold(search[0], |b, i| if y[i] > y[b] { i } else { b });
     // Preliminary baseline: the smallest intensity beyond the maximum.
-    let beyond: Vec<usize> = if dir > 0 { (imax..n).collect() } else { (0..=imax).collect() };
+    let beyond: Vec<usize> = if dir > 0 {
+        (imax..n).collect()
+    } else {
+        (0..=imax).collect()
+    };
     let pre = beyond.iter().map(|&i| y[i]).fold(f64::INFINITY, f64::min);
     let (lo_f, hi_f) = (o.edge_fractions[0], o.edge_fractions[1]);
-    let edge_idx: Vec<usize>;
-    match o.edge_range {
-        Some(r) => edge_idx = indices_in(&x, r),
+    let edge_idx: Vec<usize> = match o.edge_range {
+        Some(r) => indices_in(&x, r),
         None => {
             let h = y[imax] - pre;
             let (lo, hi) = (pre + lo_f * h, pre + hi_f * h);
@@ -139,9 +158,9 @@ pub fn extrapolate_edge(s: &Spectrum, o: &EdgeOptions, dir: isize) -> Result<Edg
                 i += dir;
             }
             v.sort();
-            edge_idx = v;
+            v
         }
-    }
+    };
     if edge_idx.len() < 3 {
         return Err(StageError::input(format!(
             "only {} points on the edge: widen edge_fractions or give edge_range",
@@ -152,32 +171,74 @@ pub fn extrapolate_edge(s: &Spectrum, o: &EdgeOptions, dir: isize) -> Result<Edg
     let ey: Vec<f64> = edge_idx.iter().map(|&i| y[i]).collect();
     let fit = polyfit(&ex, &ey, None, 1)?;
     let (level, u_level) = match o.baseline_range {
-        Some(r) => mean_and_se(&y, &indices_in(&x, r)).ok_or_else(|| StageError::input("no points in baseline_range"))?,
+        Some(r) => mean_and_se(&y, &indices_in(&x, r))
+            .ok_or_else(|| StageError::input("no points in baseline_range"))?,
         None => {
             // The points strictly beyond where the edge line reaches the lowest
             // intensity beyond the maximum (so no point of the edge itself is used).
             let (x_pre, _) = line_crossing(&fit, pre, 0.0)?;
-            let idx: Vec<usize> = (0..n).filter(|&i| if dir > 0 { x[i] > x_pre } else { x[i] < x_pre }).collect();
-            mean_and_se(&y, &idx).ok_or_else(|| StageError::input("no points beyond the edge for the baseline: give baseline_range"))?
+            let idx: Vec<usize> = (0..n)
+                .filter(|&i| if dir > 0 { x[i] > x_pre } else { x[i] < x_pre })
+                .collect();
+            mean_and_se(&y, &idx).ok_or_else(|| {
+                StageError::input("no points beyond the edge for the baseline: give baseline_range")
+            })?
         }
     };
     let (position, uncertainty) = line_crossing(&fit, level, u_level)?;
-    Ok(Edge { position, uncertainty, fit, from: ex[0], to: ex[ex.len() - 1], points: ex.len(), baseline: level })
+    Ok(Edge {
+        position,
+        uncertainty,
+        fit,
+        from: ex[0],
+        to: ex[ex.len() - 1],
+        points: ex.len(),
+        baseline: level,
+        top: y[imax],
+    })
 }
 
 fn with_guide(s: &Spectrum, e: &Edge, name: &str) -> Spectrum {
     let (lo, hi) = (e.position.min(e.from), e.position.max(e.to));
     let mut out = s.clone();
-    let y = s.x.iter().map(|&v| if v >= lo && v <= hi { e.fit.eval(v) } else { f64::NAN }).collect();
-    out.curves.push(Curve { name: name.into(), role: CurveRole::Guide, y });
+    let y =
+        s.x.iter()
+            .map(|&v| {
+                if v >= lo && v <= hi {
+                    e.fit.eval(v)
+                } else {
+                    f64::NAN
+                }
+            })
+            .collect();
+    out.curves.push(Curve {
+        name: name.into(),
+        role: CurveRole::Guide,
+        y,
+    });
     out
 }
 
 fn edge_records(art: &mut Artifact, prefix: &str, e: &Edge, yu: &str) {
-    art.record(Record::number(format!("{prefix}_fit_from"), e.from, None, "eV"));
+    art.record(Record::number(
+        format!("{prefix}_fit_from"),
+        e.from,
+        None,
+        "eV",
+    ));
     art.record(Record::number(format!("{prefix}_fit_to"), e.to, None, "eV"));
-    art.record(Record::number(format!("{prefix}_fit_points"), e.points as f64, None, ""));
-    art.record(Record::number(format!("{prefix}_baseline"), e.baseline, None, yu));
+    art.record(Record::number(
+        format!("{prefix}_fit_points"),
+        e.points as f64,
+        None,
+        "",
+    ));
+    art.record(Record::number(
+        format!("{prefix}_baseline"),
+        e.baseline,
+        None,
+        yu,
+    ));
 }
 
 fn edge_methods(o: &EdgeOptions) -> String {
@@ -197,7 +258,12 @@ fn edge_methods(o: &EdgeOptions) -> String {
 }
 
 /// The Fermi level from the options or the connected reference result.
-fn fermi_level(inputs: &Inputs, given: Option<f64>, record: &str, scale: Scale) -> Result<(f64, f64, &'static str), StageError> {
+fn fermi_level(
+    inputs: &Inputs,
+    given: Option<f64>,
+    record: &str,
+    scale: Scale,
+) -> Result<(f64, f64, &'static str), StageError> {
     if let Some(v) = given {
         return Ok((v, 0.0, "given"));
     }
@@ -236,15 +302,29 @@ pub struct WorkFunctionOptions {
 
 impl Default for WorkFunctionOptions {
     fn default() -> Self {
-        WorkFunctionOptions { photon_energy: None, fermi_level: None, fermi_record: "fermi_level".into(), edge: EdgeOptions::default() }
+        WorkFunctionOptions {
+            photon_energy: None,
+            fermi_level: None,
+            fermi_record: "fermi_level".into(),
+            edge: EdgeOptions::default(),
+        }
     }
 }
 
 pub struct WorkFunction;
 
 static WF_INPUTS: &[Port] = &[
-    Port::each("spectrum", Kind::Spectrum, "a UPS spectrum including the secondary-electron cutoff"),
-    Port::each("fermi", Kind::Any, "a metal reference result holding the Fermi level").optional(),
+    Port::each(
+        "spectrum",
+        Kind::Spectrum,
+        "a UPS spectrum including the secondary-electron cutoff",
+    ),
+    Port::each(
+        "fermi",
+        Kind::Any,
+        "a metal reference result holding the Fermi level",
+    )
+    .optional(),
 ];
 
 impl TypedStage for WorkFunction {
@@ -261,7 +341,12 @@ impl TypedStage for WorkFunction {
     fn check(&self, o: &WorkFunctionOptions) -> Result<(), OptionError> {
         match o.photon_energy {
             Some(h) => quant_util::check_positive("photon_energy", h)?,
-            None => return Err(OptionError::new("photon_energy", "give the photon energy hν in eV")),
+            None => {
+                return Err(OptionError::new(
+                    "photon_energy",
+                    "give the photon energy hν in eV",
+                ))
+            }
         }
         check_edge(&o.edge)
     }
@@ -269,7 +354,10 @@ impl TypedStage for WorkFunction {
     fn methods(&self, o: &WorkFunctionOptions) -> String {
         let ef = match o.fermi_level {
             Some(v) => format!("a Fermi level of {v} eV"),
-            None => "the Fermi level of the metal reference (or the zero of the binding-energy scale)".into(),
+            None => {
+                "the Fermi level of the metal reference (or the zero of the binding-energy scale)"
+                    .into()
+            }
         };
         format!(
             "The work function was calculated as φ = hν − |E_cutoff − E_F| with hν = {} eV and {ef}, the secondary-electron cutoff located by {} [cahen2003], with the uncertainty from the line fit [jcgm2008].",
@@ -280,7 +368,9 @@ impl TypedStage for WorkFunction {
 
     fn run(&self, inputs: &Inputs, o: &WorkFunctionOptions) -> Result<Artifact, StageError> {
         let s = inputs.spectrum(0)?;
-        let hv = o.photon_energy.ok_or_else(|| StageError::input("photon_energy is required"))?;
+        let hv = o
+            .photon_energy
+            .ok_or_else(|| StageError::input("photon_energy is required"))?;
         let scale = scale_of(s, o.edge.scale)?;
         let dir = if scale == Scale::Binding { 1 } else { -1 };
         let e = extrapolate_edge(s, &o.edge, dir)?;
@@ -290,13 +380,20 @@ impl TypedStage for WorkFunction {
         let u = (e.uncertainty.powi(2) + uef * uef).sqrt();
         let mut art = Artifact::new(Value::Spectrum(with_guide(s, &e, "cutoff line")));
         art.record(Record::number("work_function", phi, Some(u), "eV"));
-        art.record(Record::number("cutoff", e.position, Some(e.uncertainty), "eV"));
+        art.record(Record::number(
+            "cutoff",
+            e.position,
+            Some(e.uncertainty),
+            "eV",
+        ));
         art.record(Record::number("fermi_level", ef, Some(uef), "eV"));
         art.record(Record::text("fermi_level_source", ef_src));
         art.record(Record::number("photon_energy", hv, None, "eV"));
         edge_records(&mut art, "cutoff", &e, &s.y_axis.unit);
         if !(1.0..=7.0).contains(&phi) {
-            art.warn(format!("work function {phi:.2} eV is outside 1–7 eV: check the Fermi level and scale"));
+            art.warn(format!(
+                "work function {phi:.2} eV is outside 1–7 eV: check the Fermi level and scale"
+            ));
         }
         Ok(art)
     }
@@ -318,7 +415,11 @@ pub struct VbmOptions {
 
 impl Default for VbmOptions {
     fn default() -> Self {
-        VbmOptions { fermi_level: None, fermi_record: "fermi_level".into(), edge: EdgeOptions::default() }
+        VbmOptions {
+            fermi_level: None,
+            fermi_record: "fermi_level".into(),
+            edge: EdgeOptions::default(),
+        }
     }
 }
 
@@ -353,16 +454,93 @@ impl TypedStage for ValenceBandMaximum {
         let dir = if scale == Scale::Binding { -1 } else { 1 };
         let e = extrapolate_edge(s, &o.edge, dir)?;
         let mut art = Artifact::new(Value::Spectrum(with_guide(s, &e, "leading-edge line")));
-        art.record(Record::number("valence_band_maximum", e.position, Some(e.uncertainty), "eV"));
+        art.record(Record::number(
+            "valence_band_maximum",
+            e.position,
+            Some(e.uncertainty),
+            "eV",
+        ));
         if let Ok((ef, uef, src)) = fermi_level(inputs, o.fermi_level, &o.fermi_record, scale) {
             let d = (e.position - ef).abs();
-            art.record(Record::number("vbm_below_fermi", d, Some((e.uncertainty.powi(2) + uef * uef).sqrt()), "eV"));
+            art.record(Record::number(
+                "vbm_below_fermi",
+                d,
+                Some((e.uncertainty.powi(2) + uef * uef).sqrt()),
+                "eV",
+            ));
             art.record(Record::text("fermi_level_source", src));
         }
         edge_records(&mut art, "edge", &e, &s.y_axis.unit);
         if o.edge.search_range.is_none() && o.edge.edge_range.is_none() {
             art.warn("no search_range or edge_range: the leading edge was taken next to the spectrum's overall maximum");
         }
+        Ok(art)
+    }
+}
+
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize, JsonSchema, Default)]
+#[serde(deny_unknown_fields, default)]
+pub struct FermiOptions {
+    /// Energy range whose mean intensity is the level just inside the metal's occupied
+    /// states (below E_F); the intensity maximum next to the edge when absent.
+    #[schemars(extend("x-unit" = "eV"))]
+    pub plateau_range: Option<[f64; 2]>,
+    /// How the Fermi edge is found and fitted (give search_range around the edge).
+    pub edge: EdgeOptions,
+}
+
+pub struct FermiLevel;
+
+static FERMI_INPUTS: &[Port] = &[Port::each(
+    "spectrum",
+    Kind::Spectrum,
+    "a UPS or XPS spectrum of a clean metal reference across its Fermi edge",
+)];
+
+impl TypedStage for FermiLevel {
+    type Options = FermiOptions;
+    const INFO: &'static StageInfo = &StageInfo {
+        name: "ups.fermi_level",
+        version: 1,
+        summary: "Fermi level of a metal reference at the half height of its Fermi edge",
+        inputs: FERMI_INPUTS,
+        output: Kind::Spectrum,
+        references: &[CAHEN_KAHN, quant_util::GUM],
+    };
+
+    fn check(&self, o: &FermiOptions) -> Result<(), OptionError> {
+        check_range("plateau_range", o.plateau_range)?;
+        check_edge(&o.edge)
+    }
+
+    fn methods(&self, o: &FermiOptions) -> String {
+        let top = match o.plateau_range {
+            Some(r) => format!("the mean intensity between {} and {} eV", r[0], r[1]),
+            None => "the intensity maximum next to the edge".to_string(),
+        };
+        format!(
+            "The Fermi level of the metal reference was taken where the Fermi edge (fitted by {}) reaches half the height between the baseline and {top}, where the Fermi–Dirac occupancy is 1/2 (common practice) [cahen2003], with the uncertainty from the line fit [jcgm2008].",
+            edge_methods(&o.edge)
+        )
+    }
+
+    fn run(&self, inputs: &Inputs, o: &FermiOptions) -> Result<Artifact, StageError> {
+        let s = inputs.spectrum(0)?;
+        let scale = scale_of(s, o.edge.scale)?;
+        // Occupied states lie at higher binding / lower kinetic energy than E_F.
+        let dir = if scale == Scale::Binding { -1 } else { 1 };
+        let e = extrapolate_edge(s, &o.edge, dir)?;
+        let (top, u_top) = match o.plateau_range {
+            Some(r) => mean_and_se(&s.y, &indices_in(&s.x, r))
+                .ok_or_else(|| StageError::input("no points in plateau_range"))?,
+            None => (e.top, 0.0),
+        };
+        let mid = 0.5 * (e.baseline + top);
+        let (ef, u) = line_crossing(&e.fit, mid, 0.5 * u_top)?;
+        let mut art = Artifact::new(Value::Spectrum(with_guide(s, &e, "Fermi-edge line")));
+        art.record(Record::number("fermi_level", ef, Some(u), "eV"));
+        art.record(Record::number("half_height", mid, None, &s.y_axis.unit));
+        edge_records(&mut art, "edge", &e, &s.y_axis.unit);
         Ok(art)
     }
 }

@@ -33,20 +33,47 @@ pub struct Options {
 
 impl Default for Options {
     fn default() -> Self {
-        Options { wavelength: None, wavelength_uncertainty: None, order: 1, two_theta: Vec::new(), two_theta_uncertainty: None, range: None }
+        Options {
+            wavelength: None,
+            wavelength_uncertainty: None,
+            order: 1,
+            two_theta: Vec::new(),
+            two_theta_uncertainty: None,
+            range: None,
+        }
     }
 }
 
 pub struct XrdBragg;
 
-static INPUTS: &[Port] = &[Port::each("peaks", Kind::Any, "a peak list or fit on a 2θ axis (optional when two_theta is given)").optional()];
+static INPUTS: &[Port] = &[Port::each(
+    "peaks",
+    Kind::Any,
+    "a peak list or fit on a 2θ axis (optional when two_theta is given)",
+)
+.optional()];
 
 /// Peak positions in 2θ from the options or the input.
-pub fn positions(input: Option<&Artifact>, given: &[f64], u_default: Option<f64>, range: Option<[f64; 2]>) -> Vec<Located> {
+pub fn positions(
+    input: Option<&Artifact>,
+    given: &[f64],
+    u_default: Option<f64>,
+    range: Option<[f64; 2]>,
+) -> Vec<Located> {
     let mut v: Vec<Located> = if given.is_empty() {
         located_peaks(input)
     } else {
-        given.iter().enumerate().map(|(i, p)| Located { name: (i + 1).to_string(), position: *p, uncertainty: None, fwhm: None, height: None }).collect()
+        given
+            .iter()
+            .enumerate()
+            .map(|(i, p)| Located {
+                name: (i + 1).to_string(),
+                position: *p,
+                uncertainty: None,
+                fwhm: None,
+                height: None,
+            })
+            .collect()
     };
     for p in &mut v {
         p.uncertainty = p.uncertainty.or(u_default);
@@ -69,7 +96,10 @@ impl TypedStage for XrdBragg {
     fn check(&self, o: &Options) -> Result<(), OptionError> {
         check_wavelength(&o.wavelength)?;
         if o.order == 0 {
-            return Err(OptionError::new("order", "the diffraction order must be at least 1"));
+            return Err(OptionError::new(
+                "order",
+                "the diffraction order must be at least 1",
+            ));
         }
         quant_util::check_uncertainty("wavelength_uncertainty", o.wavelength_uncertainty)?;
         quant_util::check_uncertainty("two_theta_uncertainty", o.two_theta_uncertainty)?;
@@ -86,14 +116,28 @@ impl TypedStage for XrdBragg {
 
     fn run(&self, inputs: &Inputs, o: &Options) -> Result<Artifact, StageError> {
         let (lambda, _) = resolve(&o.wavelength)?;
-        let peaks = positions(inputs.optional(0), &o.two_theta, o.two_theta_uncertainty, o.range);
+        let peaks = positions(
+            inputs.optional(0),
+            &o.two_theta,
+            o.two_theta_uncertainty,
+            o.range,
+        );
         if peaks.is_empty() {
-            return Err(StageError::input("no 2θ positions: connect peaks or give two_theta"));
+            return Err(StageError::input(
+                "no 2θ positions: connect peaks or give two_theta",
+            ));
         }
         let mut art = Artifact::new(Value::Summary);
-        let (mut names, mut tt, mut utt, mut ds, mut uds) = (vec![], vec![], vec![], vec![], vec![]);
+        let (mut names, mut tt, mut utt, mut ds, mut uds) =
+            (vec![], vec![], vec![], vec![], vec![]);
         for p in &peaks {
-            let (d, u) = bragg_d(p.position, lambda, o.order, p.uncertainty, o.wavelength_uncertainty.unwrap_or(0.0))?;
+            let (d, u) = bragg_d(
+                p.position,
+                lambda,
+                o.order,
+                p.uncertainty,
+                o.wavelength_uncertainty.unwrap_or(0.0),
+            )?;
             art.record(Record::number(format!("d.{}", p.name), d, u, "Å"));
             names.push(p.name.clone());
             tt.push(p.position);
@@ -101,13 +145,36 @@ impl TypedStage for XrdBragg {
             ds.push(d);
             uds.push(u.unwrap_or(f64::NAN));
         }
-        art.record(Record::number("wavelength", lambda, o.wavelength_uncertainty, "Å"));
+        art.record(Record::number(
+            "wavelength",
+            lambda,
+            o.wavelength_uncertainty,
+            "Å",
+        ));
         art.value = Value::Table(Table {
             title: "Bragg d-spacings".into(),
             columns: vec![
-                Column { name: "peak".into(), unit: String::new(), data: ColumnData::Text(names) },
-                Column { name: "two_theta".into(), unit: "°".into(), data: ColumnData::Number { values: tt, uncertainty: Some(utt) } },
-                Column { name: "d".into(), unit: "Å".into(), data: ColumnData::Number { values: ds, uncertainty: Some(uds) } },
+                Column {
+                    name: "peak".into(),
+                    unit: String::new(),
+                    data: ColumnData::Text(names),
+                },
+                Column {
+                    name: "two_theta".into(),
+                    unit: "°".into(),
+                    data: ColumnData::Number {
+                        values: tt,
+                        uncertainty: Some(utt),
+                    },
+                },
+                Column {
+                    name: "d".into(),
+                    unit: "Å".into(),
+                    data: ColumnData::Number {
+                        values: ds,
+                        uncertainty: Some(uds),
+                    },
+                },
             ],
         });
         Ok(art)

@@ -43,7 +43,12 @@ pub struct Options {
 
 pub struct CubicLattice;
 
-static INPUTS: &[Port] = &[Port::each("peaks", Kind::Any, "a fit or peak list whose peaks the reflections name").optional()];
+static INPUTS: &[Port] = &[Port::each(
+    "peaks",
+    Kind::Any,
+    "a fit or peak list whose peaks the reflections name",
+)
+.optional()];
 
 pub const CULLITY: Reference = Reference {
     key: "cullity2001",
@@ -63,18 +68,33 @@ impl TypedStage for CubicLattice {
 
     fn check(&self, o: &Options) -> Result<(), OptionError> {
         if o.reflections.len() < 2 {
-            return Err(OptionError::new("reflections", "give at least two indexed reflections"));
+            return Err(OptionError::new(
+                "reflections",
+                "give at least two indexed reflections",
+            ));
         }
         for (i, r) in o.reflections.iter().enumerate() {
-            let n = [r.two_theta.is_some(), r.d.is_some(), r.peak.is_some()].iter().filter(|b| **b).count();
+            let n = [r.two_theta.is_some(), r.d.is_some(), r.peak.is_some()]
+                .iter()
+                .filter(|b| **b)
+                .count();
             if n != 1 {
-                return Err(OptionError::new(format!("reflections.{i}"), "give exactly one of two_theta, d or peak"));
+                return Err(OptionError::new(
+                    format!("reflections.{i}"),
+                    "give exactly one of two_theta, d or peak",
+                ));
             }
             if r.hkl == [0, 0, 0] {
-                return Err(OptionError::new(format!("reflections.{i}.hkl"), "hkl cannot be 000"));
+                return Err(OptionError::new(
+                    format!("reflections.{i}.hkl"),
+                    "hkl cannot be 000",
+                ));
             }
             if (r.two_theta.is_some() || r.peak.is_some()) && o.wavelength.is_none() {
-                return Err(OptionError::new("wavelength", "2θ positions need a wavelength"));
+                return Err(OptionError::new(
+                    "wavelength",
+                    "2θ positions need a wavelength",
+                ));
             }
         }
         if o.wavelength.is_some() {
@@ -84,7 +104,11 @@ impl TypedStage for CubicLattice {
     }
 
     fn methods(&self, o: &Options) -> String {
-        let w = if o.wavelength.is_some() { format!(" (λ = {})", wavelength_words(&o.wavelength)) } else { String::new() };
+        let w = if o.wavelength.is_some() {
+            format!(" (λ = {})", wavelength_words(&o.wavelength))
+        } else {
+            String::new()
+        };
         format!(
             "The cubic lattice parameter was obtained by least squares on d = a/√(h² + k² + l²) over {} indexed reflections{w} [bragg1913] [cullity2001], with its standard uncertainty from the fit [jcgm2008].",
             o.reflections.len()
@@ -105,7 +129,9 @@ impl TypedStage for CubicLattice {
                 let lam = lambda.ok_or_else(|| StageError::input("a wavelength is needed"))?;
                 let (tt, ut) = match (&r.peak, r.two_theta) {
                     (Some(name), _) => {
-                        let p = peaks.iter().find(|p| &p.name == name).ok_or_else(|| StageError::input(format!("no peak '{name}' in the input")))?;
+                        let p = peaks.iter().find(|p| &p.name == name).ok_or_else(|| {
+                            StageError::input(format!("no peak '{name}' in the input"))
+                        })?;
                         (p.position, p.uncertainty.or(r.uncertainty))
                     }
                     (None, Some(t)) => (t, r.uncertainty),
@@ -118,24 +144,48 @@ impl TypedStage for CubicLattice {
             rows.push((format!("{h}{k}{l}"), d, ud, s));
         }
         let weighted = rows.iter().all(|r| r.2.is_some_and(|u| u > 0.0));
-        let w: Vec<f64> = rows.iter().map(|r| if weighted { 1.0 / r.2.unwrap_or(1.0).powi(2) } else { 1.0 }).collect();
+        let w: Vec<f64> = rows
+            .iter()
+            .map(|r| {
+                if weighted {
+                    1.0 / r.2.unwrap_or(1.0).powi(2)
+                } else {
+                    1.0
+                }
+            })
+            .collect();
         let num: f64 = rows.iter().zip(&w).map(|(r, w)| w * r.1 / r.3).sum();
         let den: f64 = rows.iter().zip(&w).map(|(r, w)| w / (r.3 * r.3)).sum();
         let a = quant_util::finite("lattice parameter", num / den)?;
         let n = rows.len() as f64;
-        let chi2: f64 = rows.iter().zip(&w).map(|(r, w)| w * (r.1 - a / r.3).powi(2)).sum();
-        let ua = if weighted { (1.0 / den).sqrt() } else { (chi2 / (n - 1.0) / den).sqrt() };
+        let chi2: f64 = rows
+            .iter()
+            .zip(&w)
+            .map(|(r, w)| w * (r.1 - a / r.3).powi(2))
+            .sum();
+        let ua = if weighted {
+            (1.0 / den).sqrt()
+        } else {
+            (chi2 / (n - 1.0) / den).sqrt()
+        };
         let mut art = Artifact::new(Value::Summary);
         art.record(Record::number("lattice_parameter", a, Some(ua), "Å"));
         for r in &rows {
-            art.record(Record::number(format!("a.{}", r.0), r.1 * r.3, r.2.map(|u| u * r.3), "Å"));
+            art.record(Record::number(
+                format!("a.{}", r.0),
+                r.1 * r.3,
+                r.2.map(|u| u * r.3),
+                "Å",
+            ));
         }
         art.record(Record::number("reflections", n, None, ""));
         if weighted && n > 1.0 {
             let rc = chi2 / (n - 1.0);
             art.record(Record::number("reduced_chi_square", rc, None, ""));
             if !(0.1..=10.0).contains(&rc) {
-                art.warn(format!("reduced χ² = {rc:.2}: the d uncertainties do not match the scatter"));
+                art.warn(format!(
+                    "reduced χ² = {rc:.2}: the d uncertainties do not match the scatter"
+                ));
             }
         }
         Ok(art)

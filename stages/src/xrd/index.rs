@@ -41,13 +41,24 @@ pub struct Options {
 
 impl Default for Options {
     fn default() -> Self {
-        Options { wavelength: None, expected: Vec::new(), tolerance: 0.02, two_theta: Vec::new(), range: None }
+        Options {
+            wavelength: None,
+            expected: Vec::new(),
+            tolerance: 0.02,
+            two_theta: Vec::new(),
+            range: None,
+        }
     }
 }
 
 pub struct XrdIndex;
 
-static INPUTS: &[Port] = &[Port::each("peaks", Kind::Any, "a peak list or fit on a 2θ axis (optional when two_theta is given)").optional()];
+static INPUTS: &[Port] = &[Port::each(
+    "peaks",
+    Kind::Any,
+    "a peak list or fit on a 2θ axis (optional when two_theta is given)",
+)
+.optional()];
 
 impl TypedStage for XrdIndex {
     type Options = Options;
@@ -63,7 +74,10 @@ impl TypedStage for XrdIndex {
     fn check(&self, o: &Options) -> Result<(), OptionError> {
         super::check_wavelength(&o.wavelength)?;
         if o.expected.is_empty() {
-            return Err(OptionError::new("expected", "give the expected reflections: [{label, d}]"));
+            return Err(OptionError::new(
+                "expected",
+                "give the expected reflections: [{label, d}]",
+            ));
         }
         for (i, e) in o.expected.iter().enumerate() {
             quant_util::check_positive(&format!("expected.{i}.d"), e.d)?;
@@ -85,14 +99,21 @@ impl TypedStage for XrdIndex {
         let (lambda, _) = resolve(&o.wavelength)?;
         let peaks = positions(inputs.optional(0), &o.two_theta, None, o.range);
         if peaks.is_empty() {
-            return Err(StageError::input("no 2θ positions: connect peaks or give two_theta"));
+            return Err(StageError::input(
+                "no 2θ positions: connect peaks or give two_theta",
+            ));
         }
         let mut art = Artifact::new(Value::Summary);
-        let (mut names, mut tts, mut ds, mut labels, mut eds, mut deltas) = (vec![], vec![], vec![], vec![], vec![], vec![]);
+        let (mut names, mut tts, mut ds, mut labels, mut eds, mut deltas) =
+            (vec![], vec![], vec![], vec![], vec![], vec![]);
         let mut used = vec![false; o.expected.len()];
         for p in &peaks {
             let (d, ud) = bragg_d(p.position, lambda, 1, p.uncertainty, 0.0)?;
-            let best = o.expected.iter().enumerate().min_by(|a, b| (a.1.d - d).abs().total_cmp(&(b.1.d - d).abs()));
+            let best = o
+                .expected
+                .iter()
+                .enumerate()
+                .min_by(|a, b| (a.1.d - d).abs().total_cmp(&(b.1.d - d).abs()));
             art.record(Record::number(format!("d.{}", p.name), d, ud, "Å"));
             names.push(p.name.clone());
             tts.push(p.position);
@@ -101,7 +122,12 @@ impl TypedStage for XrdIndex {
                 Some((i, e)) if (e.d - d).abs() <= o.tolerance => {
                     used[i] = true;
                     art.record(Record::text(format!("match.{}", p.name), e.label.clone()));
-                    art.record(Record::number(format!("delta_d.{}", p.name), d - e.d, ud, "Å"));
+                    art.record(Record::number(
+                        format!("delta_d.{}", p.name),
+                        d - e.d,
+                        ud,
+                        "Å",
+                    ));
                     labels.push(e.label.clone());
                     eds.push(e.d);
                     deltas.push(d - e.d);
@@ -116,22 +142,56 @@ impl TypedStage for XrdIndex {
         }
         let matched = labels.iter().filter(|l| !l.is_empty()).count();
         art.record(Record::number("matched", matched as f64, None, ""));
-        art.record(Record::number("unmatched", (peaks.len() - matched) as f64, None, ""));
+        art.record(Record::number(
+            "unmatched",
+            (peaks.len() - matched) as f64,
+            None,
+            "",
+        ));
         if matched < peaks.len() {
-            art.warn(format!("{} of {} peaks match no expected reflection within ±{} Å", peaks.len() - matched, peaks.len(), o.tolerance));
+            art.warn(format!(
+                "{} of {} peaks match no expected reflection within ±{} Å",
+                peaks.len() - matched,
+                peaks.len(),
+                o.tolerance
+            ));
         }
-        let missing: Vec<&str> = o.expected.iter().zip(&used).filter(|(_, u)| !**u).map(|(e, _)| e.label.as_str()).collect();
+        let missing: Vec<&str> = o
+            .expected
+            .iter()
+            .zip(&used)
+            .filter(|(_, u)| !**u)
+            .map(|(e, _)| e.label.as_str())
+            .collect();
         if !missing.is_empty() {
-            art.info(format!("expected reflections not observed: {}", missing.join(", ")));
+            art.info(format!(
+                "expected reflections not observed: {}",
+                missing.join(", ")
+            ));
         }
-        let num = |name: &str, unit: &str, v: Vec<f64>| Column { name: name.into(), unit: unit.into(), data: ColumnData::Number { values: v, uncertainty: None } };
+        let num = |name: &str, unit: &str, v: Vec<f64>| Column {
+            name: name.into(),
+            unit: unit.into(),
+            data: ColumnData::Number {
+                values: v,
+                uncertainty: None,
+            },
+        };
         art.value = Value::Table(Table {
             title: "Indexing".into(),
             columns: vec![
-                Column { name: "peak".into(), unit: String::new(), data: ColumnData::Text(names) },
+                Column {
+                    name: "peak".into(),
+                    unit: String::new(),
+                    data: ColumnData::Text(names),
+                },
                 num("two_theta", "°", tts),
                 num("d", "Å", ds),
-                Column { name: "reflection".into(), unit: String::new(), data: ColumnData::Text(labels) },
+                Column {
+                    name: "reflection".into(),
+                    unit: String::new(),
+                    data: ColumnData::Text(labels),
+                },
                 num("d_expected", "Å", eds),
                 num("delta_d", "Å", deltas),
             ],

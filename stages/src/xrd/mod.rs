@@ -42,11 +42,21 @@ pub struct WavelengthRow {
 pub fn wavelengths() -> Result<&'static [WavelengthRow], StageError> {
     static T: OnceLock<Result<Vec<WavelengthRow>, StageError>> = OnceLock::new();
     T.get_or_init(|| {
-        read_table(WAVELENGTH_FILE, WAVELENGTHS, &["name", "wavelength_angstrom", "source"])?
-            .iter()
-            .enumerate()
-            .map(|(i, r)| Ok(WavelengthRow { name: r[0].clone(), angstrom: cell_number(WAVELENGTH_FILE, i, &r[1])?, source: r[2].clone() }))
-            .collect()
+        read_table(
+            WAVELENGTH_FILE,
+            WAVELENGTHS,
+            &["name", "wavelength_angstrom", "source"],
+        )?
+        .iter()
+        .enumerate()
+        .map(|(i, r)| {
+            Ok(WavelengthRow {
+                name: r[0].clone(),
+                angstrom: cell_number(WAVELENGTH_FILE, i, &r[1])?,
+                source: r[2].clone(),
+            })
+        })
+        .collect()
     })
     .as_ref()
     .map(|v| v.as_slice())
@@ -56,35 +66,61 @@ pub fn wavelengths() -> Result<&'static [WavelengthRow], StageError> {
 /// The wavelength in Å and a short description of where it came from.
 pub fn resolve(w: &Option<Wavelength>) -> Result<(f64, String), StageError> {
     match w {
-        Some(Wavelength::Value(v)) if *v > 0.0 && v.is_finite() => Ok((*v, format!("{v} Å (given)"))),
-        Some(Wavelength::Value(v)) => Err(StageError::input(format!("wavelength {v} Å is not positive"))),
+        Some(Wavelength::Value(v)) if *v > 0.0 && v.is_finite() => {
+            Ok((*v, format!("{v} Å (given)")))
+        }
+        Some(Wavelength::Value(v)) => Err(StageError::input(format!(
+            "wavelength {v} Å is not positive"
+        ))),
         Some(Wavelength::Named(n)) => {
             let key = fold_name(n);
-            let row = wavelengths()?.iter().find(|r| fold_name(&r.name) == key).ok_or_else(|| {
-                let names: Vec<&str> = wavelengths().map(|t| t.iter().map(|r| r.name.as_str()).collect()).unwrap_or_default();
-                StageError::input(format!("unknown wavelength '{n}' (known: {})", names.join(", ")))
-            })?;
+            let row = wavelengths()?
+                .iter()
+                .find(|r| fold_name(&r.name) == key)
+                .ok_or_else(|| {
+                    let names: Vec<&str> = wavelengths()
+                        .map(|t| t.iter().map(|r| r.name.as_str()).collect())
+                        .unwrap_or_default();
+                    StageError::input(format!(
+                        "unknown wavelength '{n}' (known: {})",
+                        names.join(", ")
+                    ))
+                })?;
             Ok((row.angstrom, format!("{} = {} Å", row.name, row.angstrom)))
         }
-        None => Err(StageError::input("give the wavelength (a name such as 'Cu Ka1' or a value in Å)")),
+        None => Err(StageError::input(
+            "give the wavelength (a name such as 'Cu Ka1' or a value in Å)",
+        )),
     }
 }
 
 /// Option check: a wavelength is present and, if a name, known.
 pub fn check_wavelength(w: &Option<Wavelength>) -> Result<(), OptionError> {
-    resolve(w).map(|_| ()).map_err(|e| OptionError::new("wavelength", e.to_string()))
+    resolve(w)
+        .map(|_| ())
+        .map_err(|e| OptionError::new("wavelength", e.to_string()))
 }
 
 /// Words for the methods sentence.
 pub fn wavelength_words(w: &Option<Wavelength>) -> String {
-    resolve(w).map(|r| r.1).unwrap_or_else(|_| "(no wavelength)".into())
+    resolve(w)
+        .map(|r| r.1)
+        .unwrap_or_else(|_| "(no wavelength)".into())
 }
 
 /// Bragg's law d = nλ/(2 sin θ) with 2θ in degrees, and the first-order uncertainty
 /// from u(2θ) (degrees) and u(λ): u_rel²(d) = (cot θ · u_θ)² + (u_λ/λ)².
-pub fn bragg_d(two_theta_deg: f64, lambda: f64, order: u32, u_2theta: Option<f64>, u_lambda: f64) -> Result<(f64, Option<f64>), StageError> {
+pub fn bragg_d(
+    two_theta_deg: f64,
+    lambda: f64,
+    order: u32,
+    u_2theta: Option<f64>,
+    u_lambda: f64,
+) -> Result<(f64, Option<f64>), StageError> {
     if !(two_theta_deg > 0.0 && two_theta_deg < 180.0) {
-        return Err(StageError::input(format!("2θ = {two_theta_deg}° is outside (0°, 180°)")));
+        return Err(StageError::input(format!(
+            "2θ = {two_theta_deg}° is outside (0°, 180°)"
+        )));
     }
     let th = (two_theta_deg / 2.0).to_radians();
     let d = order as f64 * lambda / (2.0 * th.sin());
@@ -111,18 +147,39 @@ mod tests {
     #[test]
     fn table_rows_have_sources_and_weighted_means_are_consistent() {
         let t = wavelengths().unwrap();
-        assert!(t.iter().all(|r| !r.source.trim().is_empty() && r.angstrom > 0.0));
+        assert!(t
+            .iter()
+            .all(|r| !r.source.trim().is_empty() && r.angstrom > 0.0));
         // Kα = (2·Kα1 + Kα2)/3 (common practice) for every anode in the table.
         for a in ["Cu", "Mo", "Co", "Cr", "Fe", "Ag"] {
-            let g = |s: &str| resolve(&Some(Wavelength::Named(format!("{a} {s}")))).unwrap().0;
-            assert!((g("Ka") - (2.0 * g("Ka1") + g("Ka2")) / 3.0).abs() < 1.5e-6, "{a}");
+            let g = |s: &str| {
+                resolve(&Some(Wavelength::Named(format!("{a} {s}"))))
+                    .unwrap()
+                    .0
+            };
+            assert!(
+                (g("Ka") - (2.0 * g("Ka1") + g("Ka2")) / 3.0).abs() < 1.5e-6,
+                "{a}"
+            );
         }
-        assert_eq!(resolve(&Some(Wavelength::Named("cu kα1".into()))).unwrap().0, 1.540598);
+        assert_eq!(
+            resolve(&Some(Wavelength::Named("cu kα1".into())))
+                .unwrap()
+                .0,
+            1.540598
+        );
     }
 
     #[test]
     fn bragg_round_trip() {
-        let (d, _) = bragg_d(two_theta_of(3.1356, 1.540598).unwrap(), 1.540598, 1, None, 0.0).unwrap();
+        let (d, _) = bragg_d(
+            two_theta_of(3.1356, 1.540598).unwrap(),
+            1.540598,
+            1,
+            None,
+            0.0,
+        )
+        .unwrap();
         assert!((d - 3.1356).abs() < 1e-12);
     }
 }

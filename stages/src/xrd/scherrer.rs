@@ -63,13 +63,25 @@ pub struct Options {
 
 impl Default for Options {
     fn default() -> Self {
-        Options { wavelength: None, k: 0.9, instrument_fwhm: 0.0, instrument_fwhm_uncertainty: None, correction: Correction::Gaussian, peaks: Vec::new() }
+        Options {
+            wavelength: None,
+            k: 0.9,
+            instrument_fwhm: 0.0,
+            instrument_fwhm_uncertainty: None,
+            correction: Correction::Gaussian,
+            peaks: Vec::new(),
+        }
     }
 }
 
 pub struct Scherrer;
 
-static INPUTS: &[Port] = &[Port::each("fit", Kind::Fit, "a fit of the diffraction peaks (optional when peaks are given)").optional()];
+static INPUTS: &[Port] = &[Port::each(
+    "fit",
+    Kind::Fit,
+    "a fit of the diffraction peaks (optional when peaks are given)",
+)
+.optional()];
 
 pub const SCHERRER: Reference = Reference {
     key: "scherrer1918",
@@ -100,7 +112,8 @@ impl TypedStage for Scherrer {
     const INFO: &'static StageInfo = &StageInfo {
         name: "xrd.scherrer",
         version: 1,
-        summary: "Crystallite size by the Scherrer equation with instrumental-broadening correction",
+        summary:
+            "Crystallite size by the Scherrer equation with instrumental-broadening correction",
         inputs: INPUTS,
         output: Kind::Summary,
         references: &[SCHERRER, LANGFORD, KLUG, quant_util::GUM],
@@ -110,7 +123,10 @@ impl TypedStage for Scherrer {
         check_wavelength(&o.wavelength)?;
         quant_util::check_positive("k", o.k)?;
         if !(o.instrument_fwhm.is_finite() && o.instrument_fwhm >= 0.0) {
-            return Err(OptionError::new("instrument_fwhm", "instrument_fwhm must be zero or positive"));
+            return Err(OptionError::new(
+                "instrument_fwhm",
+                "instrument_fwhm must be zero or positive",
+            ));
         }
         for (i, p) in o.peaks.iter().enumerate() {
             quant_util::check_positive(&format!("peaks.{i}.fwhm"), p.fwhm)?;
@@ -139,7 +155,15 @@ impl TypedStage for Scherrer {
         } else {
             crate::quant_util::located_peaks(inputs.optional(0))
                 .into_iter()
-                .filter_map(|p| p.fwhm.map(|(w, uw)| GivenPeak { name: p.name, two_theta: p.position, two_theta_uncertainty: p.uncertainty, fwhm: w, fwhm_uncertainty: uw }))
+                .filter_map(|p| {
+                    p.fwhm.map(|(w, uw)| GivenPeak {
+                        name: p.name,
+                        two_theta: p.position,
+                        two_theta_uncertainty: p.uncertainty,
+                        fwhm: w,
+                        fwhm_uncertainty: uw,
+                    })
+                })
                 .collect()
         };
         if peaks.is_empty() {
@@ -155,7 +179,11 @@ impl TypedStage for Scherrer {
                 )));
             }
             let x = [p.two_theta, p.fwhm, b];
-            let u = [p.two_theta_uncertainty.unwrap_or(0.0), p.fwhm_uncertainty.unwrap_or(0.0), o.instrument_fwhm_uncertainty.unwrap_or(0.0)];
+            let u = [
+                p.two_theta_uncertainty.unwrap_or(0.0),
+                p.fwhm_uncertainty.unwrap_or(0.0),
+                o.instrument_fwhm_uncertainty.unwrap_or(0.0),
+            ];
             let f = |v: &[f64]| size_nm(v[0], v[1], v[2], lambda, o.k, o.correction);
             let tau = quant_util::finite("crystallite size", f(&x))?;
             let known = u.iter().any(|v| *v > 0.0);
@@ -165,7 +193,12 @@ impl TypedStage for Scherrer {
                 Correction::Lorentzian => p.fwhm - b,
             };
             art.record(Record::number(format!("size.{}", p.name), tau, ut, "nm"));
-            art.record(Record::number(format!("beta.{}", p.name), beta.to_radians(), None, "rad"));
+            art.record(Record::number(
+                format!("beta.{}", p.name),
+                beta.to_radians(),
+                None,
+                "rad",
+            ));
             if b > 0.0 && p.fwhm < 1.2 * b {
                 art.warn(format!("peak {}: the measured width is within 20 % of the instrumental width; the size is poorly determined", p.name));
             }
