@@ -236,20 +236,53 @@ pub fn box_line(line: &[f64], width: usize, out: &mut [f64]) {
 }
 
 /// Gaussian approximated by three cascaded box filters per axis (Wells 1986, Kovesi 2010):
-/// linear in the pixel count whatever σ.
-pub fn gaussian_boxes(data: &mut [f64], w: usize, h: usize, sx: f64, sy: f64) {
+/// linear in the pixel count whatever σ. Samples are stored as f32 and summed in f64;
+/// rows are filtered in a line buffer, columns by running sums over whole rows (no
+/// transpose), so memory is read in order.
+pub fn gaussian_boxes(data: &mut [f32], w: usize, h: usize, sx: f64, sy: f64) {
     let bx = box_widths(sx, 3);
     let by = box_widths(sy, 3);
-    let mut tmp = vec![0.0; w.max(h)];
-    separable(data, w, h, |l, o, along_x| {
-        let widths = if along_x { &bx } else { &by };
-        let n = l.len();
-        o.copy_from_slice(l);
-        for &bw in widths {
-            tmp[..n].copy_from_slice(o);
-            box_line(&tmp[..n], bw, o);
+    let mut line = vec![0.0; w];
+    let mut out = vec![0.0; w];
+    for row in data.chunks_mut(w) {
+        for (l, &v) in line.iter_mut().zip(row.iter()) {
+            *l = v as f64;
         }
-    });
+        for &bw in &bx {
+            box_line(&line, bw, &mut out);
+            std::mem::swap(&mut line, &mut out);
+        }
+        for (v, &l) in row.iter_mut().zip(line.iter()) {
+            *v = l as f32;
+        }
+    }
+    let mut next = vec![0f32; w * h];
+    let mut acc = vec![0f64; w];
+    for &bw in &by {
+        let r = (bw / 2) as isize;
+        let inv = 1.0 / bw as f64;
+        acc.iter_mut().for_each(|a| *a = 0.0);
+        let rowref = |i: isize| -> std::ops::Range<usize> {
+            let k = if i >= 0 && (i as usize) < h { i as usize } else { reflect(i, h) };
+            k * w..(k + 1) * w
+        };
+        for k in -r..=r {
+            for (a, &v) in acc.iter_mut().zip(&data[rowref(k)]) {
+                *a += v as f64;
+            }
+        }
+        for i in 0..h {
+            let o = &mut next[i * w..(i + 1) * w];
+            for (ov, &a) in o.iter_mut().zip(acc.iter()) {
+                *ov = (a * inv) as f32;
+            }
+            let (add, sub) = (rowref(i as isize + r + 1), rowref(i as isize - r));
+            for ((a, &p), &m) in acc.iter_mut().zip(&data[add]).zip(&data[sub]) {
+                *a += p as f64 - m as f64;
+            }
+        }
+        data.copy_from_slice(&next);
+    }
 }
 
 /// Lower envelope of parabolas (Felzenszwalb & Huttenlocher 2012):

@@ -225,7 +225,9 @@ fn local_mean(img: &Image, o: &ThresholdOptions) -> Vec<f64> {
         if s <= 8.0 {
             common::gaussian_exact(&mut d, w, h, s, s);
         } else {
-            common::gaussian_boxes(&mut d, w, h, s, s);
+            let mut f: Vec<f32> = img.data.clone();
+            common::gaussian_boxes(&mut f, w, h, s, s);
+            d = f.iter().map(|&v| v as f64).collect();
         }
     }
     d
