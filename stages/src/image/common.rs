@@ -136,7 +136,12 @@ pub fn transpose(src: &[f64], w: usize, h: usize, dst: &mut [f64]) {
 
 /// Applies a 1-D operation to every row, then every column, of a w×h buffer. The flag
 /// tells the operation whether it runs along x (rows) or y (columns).
-pub fn separable(data: &mut [f64], w: usize, h: usize, mut op: impl FnMut(&[f64], &mut [f64], bool)) {
+pub fn separable(
+    data: &mut [f64],
+    w: usize,
+    h: usize,
+    mut op: impl FnMut(&[f64], &mut [f64], bool),
+) {
     let mut out = vec![0.0; w.max(h)];
     for r in 0..h {
         op(&data[r * w..(r + 1) * w], &mut out[..w], true);
@@ -229,8 +234,16 @@ pub fn box_line(line: &[f64], width: usize, out: &mut [f64]) {
         out[i] = acc * inv;
         // Index arithmetic only near the ends (reflection costs a division).
         let add = i + r + 1;
-        let a = if add < n { line[add] } else { line[reflect(add as isize, n)] };
-        let s = if i >= r { line[i - r] } else { line[reflect(i as isize - ri, n)] };
+        let a = if add < n {
+            line[add]
+        } else {
+            line[reflect(add as isize, n)]
+        };
+        let s = if i >= r {
+            line[i - r]
+        } else {
+            line[reflect(i as isize - ri, n)]
+        };
         acc += a - s;
     }
 }
@@ -263,7 +276,11 @@ pub fn gaussian_boxes(data: &mut [f32], w: usize, h: usize, sx: f64, sy: f64) {
         let inv = 1.0 / bw as f64;
         acc.iter_mut().for_each(|a| *a = 0.0);
         let rowref = |i: isize| -> std::ops::Range<usize> {
-            let k = if i >= 0 && (i as usize) < h { i as usize } else { reflect(i, h) };
+            let k = if i >= 0 && (i as usize) < h {
+                i as usize
+            } else {
+                reflect(i, h)
+            };
             k * w..(k + 1) * w
         };
         for k in -r..=r {
@@ -357,7 +374,13 @@ pub fn squared_distance(
     let (mut v, mut z) = (Vec::new(), Vec::new());
     // Rows (weight px²), then columns (weight py²); exact in either order.
     separable(&mut d, w, h, |l, o, along_x| {
-        lower_envelope(l, if along_x { px * px } else { py * py }, o, &mut v, &mut z)
+        lower_envelope(
+            l,
+            if along_x { px * px } else { py * py },
+            o,
+            &mut v,
+            &mut z,
+        )
     });
     d
 }
