@@ -40,7 +40,7 @@ pub const PLANCK: f64 = 6.626_070_15e-34;
 /// Elementary charge, C (CODATA 2018, exact).
 pub const ELEMENTARY_CHARGE: f64 = 1.602_176_634e-19;
 /// Electron rest mass, kg (CODATA 2018: 9.109 383 7015(28) × 10⁻³¹ kg).
-pub const ELECTRON_MASS: f64 = 9.109_383_7015e-31;
+pub const ELECTRON_MASS: f64 = 9.109_383_701_5e-31;
 /// Speed of light in vacuum, m/s (exact).
 pub const SPEED_OF_LIGHT: f64 = 299_792_458.0;
 
@@ -402,7 +402,7 @@ impl TypedStage for Rings {
         if o.max_rings == 0 {
             return Err(OptionError::new("max_rings", "at least 1"));
         }
-        if !(o.tolerance > 0.0) {
+        if o.tolerance.is_nan() || o.tolerance <= 0.0 {
             return Err(OptionError::new("tolerance", "must be positive"));
         }
         let routes = [
@@ -637,7 +637,7 @@ pub fn find_rings(x: &[f64], y: &[f64], o: &RingsOptions) -> Result<Vec<Ring>, S
             (a.min(v), b.max(v))
         });
     let range = hi - lo;
-    if !(range > 0.0) {
+    if range.is_nan() || range <= 0.0 {
         return Err(StageError::input("the profile is flat: no rings"));
     }
     let mut peaks = Vec::new();
@@ -775,7 +775,7 @@ fn finish(
     x: &[f64],
     jac_row: &dyn Fn(&[f64; 5], f64) -> [f64; 5],
 ) -> Option<Ring> {
-    if n <= 5 || !(p[0] > 0.0) {
+    if n <= 5 || p[0].is_nan() || p[0] <= 0.0 {
         return None;
     }
     let mut jtj = DMatrix::<f64>::zeros(5, 5);

@@ -207,7 +207,7 @@ pub fn box_widths(sigma: f64, passes: usize) -> Vec<usize> {
     let n = passes as f64;
     let w_ideal = (12.0 * sigma * sigma / n + 1.0).sqrt();
     let mut wl = w_ideal.floor() as usize;
-    if wl % 2 == 0 {
+    if wl.is_multiple_of(2) {
         wl = wl.saturating_sub(1);
     }
     let wl = wl.max(1);
@@ -434,6 +434,7 @@ mod tests {
     use super::*;
 
     #[test]
+    #[allow(clippy::needless_range_loop)]
     fn lower_envelope_matches_brute_force() {
         let f = [3.0, f64::INFINITY, 0.5, 7.0, 2.0, f64::INFINITY, 9.0, 1.0];
         let mut out = vec![0.0; f.len()];
@@ -450,6 +451,7 @@ mod tests {
     }
 
     #[test]
+    #[allow(clippy::needless_range_loop)]
     fn distance_transform_matches_brute_force() {
         let (w, h) = (13, 9);
         let src = |i: usize| i % 7 == 3 || i == 100;

@@ -132,7 +132,7 @@ impl TypedStage for Median {
         references: &[HUANG1979],
     };
     fn check(&self, o: &MedianOptions) -> Result<(), OptionError> {
-        if o.size % 2 == 0 || o.size == 0 {
+        if o.size.is_multiple_of(2) {
             return Err(OptionError::new("size", "the window size must be odd"));
         }
         Ok(())

@@ -262,7 +262,7 @@ pub fn size_stats(values: &[f64], o: &DistributionOptions) -> Result<SizeStats, 
             "{n} particle(s): at least 2 are needed for a distribution"
         )));
     }
-    if values.iter().any(|&v| !(v > 0.0)) {
+    if values.iter().any(|&v| v.is_nan() || v <= 0.0) {
         return Err(StageError::input(
             "sizes must be positive for the log-normal fit",
         ));

@@ -11,6 +11,7 @@
 //!   Toussaint 1983); aspect ratio = Feret max / Feret min.
 //! - Centroid of pixel centres (pixel (0,0) spans [0, 1)×[0, 1) in pixel units), and mean
 //!   intensity of the image port when given.
+//!
 //! Perimeter and Feret lengths assume the pixel's x size for both directions when pixels are
 //! not square (coordinates are scaled by each axis for Feret and centroid).
 

@@ -107,7 +107,7 @@ impl TypedStage for Threshold {
                 "bins must be between 2 and 1048576",
             )),
             Method::AdaptiveMean | Method::AdaptiveGaussian
-                if o.window % 2 == 0 || o.window < 3 =>
+                if o.window.is_multiple_of(2) || o.window < 3 =>
             {
                 Err(OptionError::new(
                     "window",
@@ -174,7 +174,7 @@ fn method_name(m: Method) -> &'static str {
 pub fn otsu_threshold(data: &[f32], bins: usize) -> Result<f64, StageError> {
     let (lo, hi) = common::min_max(data);
     let (lo, hi) = (lo as f64, hi as f64);
-    if !(hi > lo) {
+    if hi <= lo {
         return Err(StageError::input(
             "the image is uniform: no threshold separates two classes",
         ));
@@ -199,9 +199,9 @@ pub fn otsu_threshold(data: &[f32], bins: usize) -> Result<f64, StageError> {
     let total_m: f64 = hist.iter().enumerate().map(|(i, h)| h * centre(i)).sum();
     let (mut w1, mut m1) = (0.0, 0.0);
     let mut best = (f64::NEG_INFINITY, 0usize);
-    for i in 0..bins - 1 {
-        w1 += hist[i];
-        m1 += hist[i] * centre(i);
+    for (i, &bin_count) in hist.iter().enumerate().take(bins - 1) {
+        w1 += bin_count;
+        m1 += bin_count * centre(i);
         let w2 = total - w1;
         if w1 == 0.0 || w2 == 0.0 {
             continue;
