@@ -85,6 +85,18 @@ pub fn check_image(img: &Image) -> Result<(), StageError> {
     Ok(())
 }
 
+/// The bytes as UTF-8 text without a byte-order mark; otherwise a data error at the
+/// 1-based line of the first invalid byte, with `message`.
+pub fn utf8_text<'a>(name: &str, bytes: &'a [u8], message: &str) -> Result<&'a str, StageError> {
+    match std::str::from_utf8(bytes) {
+        Ok(t) => Ok(t.strip_prefix('\u{feff}').unwrap_or(t)),
+        Err(e) => {
+            let line = bytes[..e.valid_up_to()].split(|&b| b == b'\n').count();
+            Err(StageError::data(name, Some(line), message))
+        }
+    }
+}
+
 /// Symmetric (half-sample) reflection of an index into 0..n.
 #[inline]
 pub fn reflect(i: isize, n: usize) -> usize {

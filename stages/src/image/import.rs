@@ -577,15 +577,8 @@ fn decode_text(
     o: &Options,
     header: &mut BTreeMap<String, String>,
 ) -> Result<Decoded, StageError> {
-    let text = std::str::from_utf8(bytes).map_err(|e| {
-        let line = bytes[..e.valid_up_to()]
-            .iter()
-            .filter(|&&b| b == b'\n')
-            .count()
-            + 1;
-        StageError::data(name, Some(line), "neither PNG, TIFF nor valid UTF-8 text")
-    })?;
-    let text = text.strip_prefix('\u{feff}').unwrap_or(text);
+    let text =
+        crate::image::common::utf8_text(name, bytes, "neither PNG, TIFF nor valid UTF-8 text")?;
     let mut rows: Vec<Vec<f32>> = Vec::new();
     let mut width = 0;
     let mut skipped_title = false;

@@ -109,7 +109,7 @@ impl TypedStage for Label {
                 o.smooth, o.min_height
             )
         } else {
-            String::new()
+            " (touching particles were not split)".to_string()
         };
         format!(
             "Particles were labelled as {}-connected components{split}; particles touching the image border were {}, and particles smaller than {} {} were excluded.",
