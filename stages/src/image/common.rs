@@ -494,4 +494,36 @@ mod tests {
         assert!((percentile_sorted(&[1.0, 2.0, 3.0, 4.0], 0.25) - 1.75).abs() < 1e-12);
         assert_eq!(percentile_sorted(&[5.0], 0.9), 5.0);
     }
+
+    #[test]
+    #[allow(clippy::needless_range_loop)]
+    fn paraboloid_erosion_matches_brute_force_in_2d() {
+        // Separability: min over the plane of f(q) + |p − q|²/(2R) equals rows then columns.
+        let (w, h, radius) = (15usize, 11usize, 3.0);
+        let f: Vec<f64> = (0..w * h).map(|i| ((i * 37 + 11) % 23) as f64 * 0.7).collect();
+        let mut e = f.clone();
+        erode_paraboloid(&mut e, w, h, radius);
+        for p in 0..w * h {
+            let (pc, pr) = ((p % w) as f64, (p / w) as f64);
+            let brute = (0..w * h)
+                .map(|q| {
+                    let d2 = ((q % w) as f64 - pc).powi(2) + ((q / w) as f64 - pr).powi(2);
+                    f[q] + d2 / (2.0 * radius)
+                })
+                .fold(f64::INFINITY, f64::min);
+            assert!((e[p] - brute).abs() < 1e-9);
+        }
+    }
+
+    #[test]
+    fn gaussian_kernel_has_unit_sum_and_variance_sigma_squared() {
+        // Analytic: a normalised Gaussian of σ has ∑k = 1 and ∑k·x² = σ² (truncation at 4σ
+        // leaves a relative error below 1e-3).
+        let sigma = 2.5;
+        let k = gaussian_kernel(sigma);
+        let r = (k.len() / 2) as f64;
+        let var: f64 = k.iter().enumerate().map(|(i, v)| v * (i as f64 - r).powi(2)).sum();
+        assert!((k.iter().sum::<f64>() - 1.0).abs() < 1e-12);
+        assert!((var - sigma * sigma).abs() / (sigma * sigma) < 1e-3);
+    }
 }
