@@ -500,7 +500,9 @@ mod tests {
     fn paraboloid_erosion_matches_brute_force_in_2d() {
         // Separability: min over the plane of f(q) + |p − q|²/(2R) equals rows then columns.
         let (w, h, radius) = (15usize, 11usize, 3.0);
-        let f: Vec<f64> = (0..w * h).map(|i| ((i * 37 + 11) % 23) as f64 * 0.7).collect();
+        let f: Vec<f64> = (0..w * h)
+            .map(|i| ((i * 37 + 11) % 23) as f64 * 0.7)
+            .collect();
         let mut e = f.clone();
         erode_paraboloid(&mut e, w, h, radius);
         for p in 0..w * h {
@@ -522,7 +524,11 @@ mod tests {
         let sigma = 2.5;
         let k = gaussian_kernel(sigma);
         let r = (k.len() / 2) as f64;
-        let var: f64 = k.iter().enumerate().map(|(i, v)| v * (i as f64 - r).powi(2)).sum();
+        let var: f64 = k
+            .iter()
+            .enumerate()
+            .map(|(i, v)| v * (i as f64 - r).powi(2))
+            .sum();
         assert!((k.iter().sum::<f64>() - 1.0).abs() < 1e-12);
         assert!((var - sigma * sigma).abs() / (sigma * sigma) < 1e-3);
     }

@@ -89,7 +89,7 @@ impl TypedStage for Gaussian {
         let sx = to_pixels(o.sigma, &o.unit, &img.pixel_size)?;
         let (px, py, _) = common::pixel_dims(&img.pixel_size);
         let sy = sx * px / py;
-        if sx.max(sy) > 0.25 * (img.width.max(img.height) as f64) * 4.0 {
+        if sx.max(sy) > img.width.max(img.height) as f64 {
             return Err(StageError::input("sigma is larger than the image"));
         }
         let mut d = to_f64(img);
