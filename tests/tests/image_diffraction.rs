@@ -22,7 +22,11 @@ fn synthetic_lattice_period_is_recovered() {
     });
     let a = run1("lattice.fft", &img, json!({ "spots": 2 }));
     let (d1, d2) = (num(&a, "spot1.d"), num(&a, "spot2.d"));
-    eprintln!("lattice: d1 = {d1} ± {} nm, d2 = {d2} ± {} nm", unc(&a, "spot1.d"), unc(&a, "spot2.d"));
+    eprintln!(
+        "lattice: d1 = {d1} ± {} nm, d2 = {d2} ± {} nm",
+        unc(&a, "spot1.d"),
+        unc(&a, "spot2.d")
+    );
     assert!((d1 - 0.365).abs() / 0.365 < 0.005, "d1 = {d1}");
     assert!((d2 - 0.255).abs() / 0.255 < 0.005, "d2 = {d2}");
     // The stated uncertainty is small against the 0.5% goal and non-zero.
@@ -94,7 +98,11 @@ fn synthetic_ring_pattern_gives_the_right_spacings() {
         json!({ "camera_constant": 20.0, "expected": expected, "max_rings": 4 }),
     );
     let ds = column(&rings, "d");
-    eprintln!("rings: centre ({}, {}), d = {ds:?}", num(&prof, "centre_x"), num(&prof, "centre_y"));
+    eprintln!(
+        "rings: centre ({}, {}), d = {ds:?}",
+        num(&prof, "centre_x"),
+        num(&prof, "centre_y")
+    );
     assert_eq!(ds.len(), 4);
     for (k, (label, dv)) in d.iter().enumerate() {
         assert!(
@@ -142,7 +150,10 @@ fn noisy_hexagonal_lattice_of_columns() {
     let mut z = vec![0.0f64; w * h];
     for i in -60i32..60 {
         for j in -60i32..60 {
-            let (x, y) = (i as f64 * a1.0 + j as f64 * a2.0, i as f64 * a1.1 + j as f64 * a2.1);
+            let (x, y) = (
+                i as f64 * a1.0 + j as f64 * a2.0,
+                i as f64 * a1.1 + j as f64 * a2.1,
+            );
             if x < -5.0 || y < -5.0 || x > w as f64 + 5.0 || y > h as f64 + 5.0 {
                 continue;
             }
@@ -156,12 +167,17 @@ fn noisy_hexagonal_lattice_of_columns() {
     }
     let mut rng = image_support::Lcg(11);
     let noise: Vec<f64> = (0..w * h).map(|_| 60.0 * rng.normal()).collect();
-    let img = image(w, h, Some((0.02, "nm")), "counts", |c, r| 100.0 + z[r * w + c] + noise[r * w + c]);
+    let img = image(w, h, Some((0.02, "nm")), "counts", |c, r| {
+        100.0 + z[r * w + c] + noise[r * w + c]
+    });
     let out = run1("lattice.fft", &img, json!({ "spots": 3 }));
     let d_expected = 9.4 * 3f64.sqrt() / 2.0 * 0.02;
     for k in 1..=3 {
         let d = num(&out, &format!("spot{k}.d"));
-        assert!((d - d_expected).abs() / d_expected < 0.005, "spot {k}: {d} vs {d_expected}");
+        assert!(
+            (d - d_expected).abs() / d_expected < 0.005,
+            "spot {k}: {d} vs {d_expected}"
+        );
     }
     for pair in ["1_2", "1_3", "2_3"] {
         let ang = num(&out, &format!("angle.{pair}"));
