@@ -143,7 +143,12 @@ impl TypedStage for Measure {
             .get("threshold.value")
             .and_then(|v| v.parse::<f64>().ok())
         {
-            a.record(Record::number("threshold", t, None, ""));
+            a.record(Record::number(
+                "threshold",
+                t,
+                None,
+                img.map_or("", |i| i.z_axis.unit.as_str()),
+            ));
         }
         if n > 0 {
             let mean = |f: fn(&Particle) -> f64| parts.iter().map(f).sum::<f64>() / n as f64;
