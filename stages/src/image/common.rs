@@ -33,6 +33,17 @@ pub fn image_in<'a>(inputs: &Inputs<'a>, i: usize) -> Result<&'a Image, StageErr
     }
 }
 
+/// The input file on port `i` (importers).
+pub fn file_in<'a>(
+    inputs: &Inputs<'a>,
+    i: usize,
+) -> Result<&'a crate::value::InputFile, StageError> {
+    if let Value::File(f) = &inputs.one(i)?.value {
+        return Ok(f);
+    }
+    Err(StageError::input("an importer needs a file as its input"))
+}
+
 /// The label image on port `i`.
 pub fn labels_in<'a>(inputs: &Inputs<'a>, i: usize) -> Result<&'a Labels, StageError> {
     match &inputs.one(i)?.value {

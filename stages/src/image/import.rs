@@ -220,15 +220,7 @@ impl TypedStage for ImportImage {
     }
 
     fn run(&self, inputs: &Inputs, o: &Options) -> Result<Artifact, StageError> {
-        let file = match &inputs.one(0)?.value {
-            Value::File(f) => f,
-            other => {
-                return Err(StageError::input(format!(
-                    "expected a file, got a {}",
-                    other.kind().name()
-                )))
-            }
-        };
+        let file = crate::image::common::file_in(inputs, 0)?;
         let (img, notes) = decode(&file.name, &file.bytes, o)?;
         let (px, _, unit) = crate::image::common::pixel_dims(&img.pixel_size);
         let recs = vec![
