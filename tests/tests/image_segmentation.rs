@@ -181,6 +181,35 @@ fn watershed_splits_two_overlapping_discs() {
     assert_eq!(num(&l1, "count"), 1.0);
 }
 
+/// A chain of three touching discs of different radii (12, 9 and 15 px) splits into three,
+/// each particle's area within 10% of its disc's share (the cut follows the neck).
+#[test]
+fn watershed_splits_a_chain_of_three() {
+    let list = [(25.0, 30.0, 12.0), (44.0, 30.0, 9.0), (66.0, 32.0, 15.0)];
+    let img = discs(100, 64, &list, Some((1.0, "nm")));
+    let mask = run1("particles.threshold", &img, json!({}));
+    let split = run1("particles.label", &mask, json!({ "split": true }));
+    assert_eq!(num(&split, "count"), 3.0);
+    let m = run(
+        "particles.measure",
+        vec![PortValue::One(&split), PortValue::One(&img)],
+        json!({}),
+    )
+    .unwrap();
+    let cx = column(&m, "centroid_x");
+    let mut order: Vec<usize> = (0..3).collect();
+    order.sort_by(|&a, &b| cx[a].total_cmp(&cx[b]));
+    let area = column(&m, "area");
+    for (k, &(_, _, r)) in list.iter().enumerate() {
+        let a = area[order[k]];
+        assert!(
+            (a - PI * r * r).abs() < 0.1 * PI * r * r,
+            "disc {k}: {a} vs {}",
+            PI * r * r
+        );
+    }
+}
+
 /// Gathered over two images: N, exclusions and the count per area (N / total area; analytic),
 /// and the warning below 100 particles.
 #[test]
