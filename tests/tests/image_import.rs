@@ -9,7 +9,10 @@ use stages::stage::PortValue;
 use stages::{Artifact, InputFile, Value};
 
 fn file(name: &str, bytes: Vec<u8>) -> Artifact {
-    Artifact::new(Value::File(InputFile { name: name.into(), bytes }))
+    Artifact::new(Value::File(InputFile {
+        name: name.into(),
+        bytes,
+    }))
 }
 
 fn png16(w: u32, h: u32, vals: &[u16]) -> Vec<u8> {
@@ -32,11 +35,18 @@ fn sixteen_bit_png_is_not_squashed() {
     let vals: Vec<u16> = (0..64u32).map(|i| (i * 1031 % 65536) as u16).collect();
     let f = file("grey16.png", png16(8, 8, &vals));
     let a = run("image.import", vec![PortValue::One(&f)], json!({})).unwrap();
-    let Value::Image(img) = &a.value else { panic!() };
+    let Value::Image(img) = &a.value else {
+        panic!()
+    };
     assert_eq!(img.data, vals.iter().map(|&v| v as f32).collect::<Vec<_>>());
     assert_eq!(a.result("pixel_size").unwrap().unit, "px");
     assert!(a.notes.iter().any(|n| n.text.contains("px")));
-    let b = run("image.import", vec![PortValue::One(&f)], json!({ "pixel_size": 0.5, "unit": "µm" })).unwrap();
+    let b = run(
+        "image.import",
+        vec![PortValue::One(&f)],
+        json!({ "pixel_size": 0.5, "unit": "µm" }),
+    )
+    .unwrap();
     assert_eq!(num(&b, "pixel_size"), 0.5);
     assert_eq!(b.result("pixel_size").unwrap().unit, "µm");
 }
@@ -49,7 +59,8 @@ fn damaged_files_are_refused_without_panic() {
     let mut tif = std::io::Cursor::new(Vec::new());
     {
         let mut enc = tiff::encoder::TiffEncoder::new(&mut tif).unwrap();
-        enc.write_image::<tiff::encoder::colortype::Gray16>(5, 4, &[9; 20]).unwrap();
+        enc.write_image::<tiff::encoder::colortype::Gray16>(5, 4, &[9; 20])
+            .unwrap();
     }
     let tif = tif.into_inner();
     for (name, good) in [("d.png", &png), ("d.tif", &tif)] {
@@ -62,7 +73,11 @@ fn damaged_files_are_refused_without_panic() {
     }
     let mut rng = Lcg(3);
     for k in 0..300 {
-        let mut bytes: Vec<u8> = if k % 2 == 0 { b"\x89PNG\r\n\x1a\n".to_vec() } else { b"II*\0".to_vec() };
+        let mut bytes: Vec<u8> = if k % 2 == 0 {
+            b"\x89PNG\r\n\x1a\n".to_vec()
+        } else {
+            b"II*\0".to_vec()
+        };
         let n = (rng.next() * 200.0) as usize;
         bytes.extend((0..n).map(|_| (rng.next() * 256.0) as u8));
         let f = file("noise.bin", bytes);

@@ -15,13 +15,14 @@ fn data_path(rel: &str) -> std::path::PathBuf {
 }
 
 /// Source: scikit-image 0.24.0 `threshold_otsu` (numpy 2.1.3), values committed by
-/// tests/refgen/otsu_values.py in tests/data/otsu_values.json for the images it wrote.
+/// tests/refgen/otsu_values.py in tests/data/otsu_values.json for the images it wrote:
+/// four on a 256-bin histogram of the range, one 16-bit image one bin per integer level.
 #[test]
 fn otsu_threshold_matches_scikit_image() {
     let text = std::fs::read_to_string(data_path("otsu_values.json")).unwrap();
     let doc: serde_json::Value = serde_json::from_str(&text).unwrap();
     let values = doc["values"].as_object().unwrap();
-    assert_eq!(values.len(), 4);
+    assert_eq!(values.len(), 5);
     for (name, v) in values {
         let file = v["file"].as_str().unwrap();
         let bytes = std::fs::read(data_path(file)).unwrap();
@@ -30,10 +31,12 @@ fn otsu_threshold_matches_scikit_image() {
             bytes,
         }));
         let img = run1("image.import", &f, json!({}));
+        // 256 bins over the range, or one bin per integer level (bins = 0) for the uint16 case.
+        let bins = v["bins"].as_u64().unwrap_or(256);
         let mask = run1(
             "particles.threshold",
             &img,
-            json!({ "method": "otsu", "bins": 256 }),
+            json!({ "method": "otsu", "bins": bins }),
         );
         let t = num(&mask, "threshold");
         let expected = v["threshold"].as_f64().unwrap();
@@ -176,6 +179,35 @@ fn watershed_splits_two_overlapping_discs() {
         json!({ "split": true }),
     );
     assert_eq!(num(&l1, "count"), 1.0);
+}
+
+/// A chain of three touching discs of different radii (12, 9 and 15 px) splits into three,
+/// each particle's area within 10% of its disc's share (the cut follows the neck).
+#[test]
+fn watershed_splits_a_chain_of_three() {
+    let list = [(25.0, 30.0, 12.0), (44.0, 30.0, 9.0), (66.0, 32.0, 15.0)];
+    let img = discs(100, 64, &list, Some((1.0, "nm")));
+    let mask = run1("particles.threshold", &img, json!({}));
+    let split = run1("particles.label", &mask, json!({ "split": true }));
+    assert_eq!(num(&split, "count"), 3.0);
+    let m = run(
+        "particles.measure",
+        vec![PortValue::One(&split), PortValue::One(&img)],
+        json!({}),
+    )
+    .unwrap();
+    let cx = column(&m, "centroid_x");
+    let mut order: Vec<usize> = (0..3).collect();
+    order.sort_by(|&a, &b| cx[a].total_cmp(&cx[b]));
+    let area = column(&m, "area");
+    for (k, &(_, _, r)) in list.iter().enumerate() {
+        let a = area[order[k]];
+        assert!(
+            (a - PI * r * r).abs() < 0.1 * PI * r * r,
+            "disc {k}: {a} vs {}",
+            PI * r * r
+        );
+    }
 }
 
 /// Gathered over two images: N, exclusions and the count per area (N / total area; analytic),

@@ -33,6 +33,17 @@ pub fn image_in<'a>(inputs: &Inputs<'a>, i: usize) -> Result<&'a Image, StageErr
     }
 }
 
+/// The input file on port `i` (importers).
+pub fn file_in<'a>(
+    inputs: &Inputs<'a>,
+    i: usize,
+) -> Result<&'a crate::value::InputFile, StageError> {
+    if let Value::File(f) = &inputs.one(i)?.value {
+        return Ok(f);
+    }
+    Err(StageError::input("an importer needs a file as its input"))
+}
+
 /// The label image on port `i`.
 pub fn labels_in<'a>(inputs: &Inputs<'a>, i: usize) -> Result<&'a Labels, StageError> {
     match &inputs.one(i)?.value {
@@ -83,6 +94,18 @@ pub fn check_image(img: &Image) -> Result<(), StageError> {
         )));
     }
     Ok(())
+}
+
+/// The bytes as UTF-8 text without a byte-order mark; otherwise a data error at the
+/// 1-based line of the first invalid byte, with `message`.
+pub fn utf8_text<'a>(name: &str, bytes: &'a [u8], message: &str) -> Result<&'a str, StageError> {
+    match std::str::from_utf8(bytes) {
+        Ok(t) => Ok(t.strip_prefix('\u{feff}').unwrap_or(t)),
+        Err(e) => {
+            let line = bytes[..e.valid_up_to()].split(|&b| b == b'\n').count();
+            Err(StageError::data(name, Some(line), message))
+        }
+    }
 }
 
 /// Symmetric (half-sample) reflection of an index into 0..n.
@@ -136,7 +159,12 @@ pub fn transpose(src: &[f64], w: usize, h: usize, dst: &mut [f64]) {
 
 /// Applies a 1-D operation to every row, then every column, of a w×h buffer. The flag
 /// tells the operation whether it runs along x (rows) or y (columns).
-pub fn separable(data: &mut [f64], w: usize, h: usize, mut op: impl FnMut(&[f64], &mut [f64], bool)) {
+pub fn separable(
+    data: &mut [f64],
+    w: usize,
+    h: usize,
+    mut op: impl FnMut(&[f64], &mut [f64], bool),
+) {
     let mut out = vec![0.0; w.max(h)];
     for r in 0..h {
         op(&data[r * w..(r + 1) * w], &mut out[..w], true);
@@ -202,7 +230,7 @@ pub fn box_widths(sigma: f64, passes: usize) -> Vec<usize> {
     let n = passes as f64;
     let w_ideal = (12.0 * sigma * sigma / n + 1.0).sqrt();
     let mut wl = w_ideal.floor() as usize;
-    if wl % 2 == 0 {
+    if wl.is_multiple_of(2) {
         wl = wl.saturating_sub(1);
     }
     let wl = wl.max(1);
@@ -229,27 +257,72 @@ pub fn box_line(line: &[f64], width: usize, out: &mut [f64]) {
         out[i] = acc * inv;
         // Index arithmetic only near the ends (reflection costs a division).
         let add = i + r + 1;
-        let a = if add < n { line[add] } else { line[reflect(add as isize, n)] };
-        let s = if i >= r { line[i - r] } else { line[reflect(i as isize - ri, n)] };
+        let a = if add < n {
+            line[add]
+        } else {
+            line[reflect(add as isize, n)]
+        };
+        let s = if i >= r {
+            line[i - r]
+        } else {
+            line[reflect(i as isize - ri, n)]
+        };
         acc += a - s;
     }
 }
 
 /// Gaussian approximated by three cascaded box filters per axis (Wells 1986, Kovesi 2010):
-/// linear in the pixel count whatever σ.
-pub fn gaussian_boxes(data: &mut [f64], w: usize, h: usize, sx: f64, sy: f64) {
+/// linear in the pixel count whatever σ. Samples are stored as f32 and summed in f64;
+/// rows are filtered in a line buffer, columns by running sums over whole rows (no
+/// transpose), so memory is read in order.
+pub fn gaussian_boxes(data: &mut [f32], w: usize, h: usize, sx: f64, sy: f64) {
     let bx = box_widths(sx, 3);
     let by = box_widths(sy, 3);
-    let mut tmp = vec![0.0; w.max(h)];
-    separable(data, w, h, |l, o, along_x| {
-        let widths = if along_x { &bx } else { &by };
-        let n = l.len();
-        o.copy_from_slice(l);
-        for &bw in widths {
-            tmp[..n].copy_from_slice(o);
-            box_line(&tmp[..n], bw, o);
+    let mut line = vec![0.0; w];
+    let mut out = vec![0.0; w];
+    for row in data.chunks_mut(w) {
+        for (l, &v) in line.iter_mut().zip(row.iter()) {
+            *l = v as f64;
         }
-    });
+        for &bw in &bx {
+            box_line(&line, bw, &mut out);
+            std::mem::swap(&mut line, &mut out);
+        }
+        for (v, &l) in row.iter_mut().zip(line.iter()) {
+            *v = l as f32;
+        }
+    }
+    let mut next = vec![0f32; w * h];
+    let mut acc = vec![0f64; w];
+    for &bw in &by {
+        let r = (bw / 2) as isize;
+        let inv = 1.0 / bw as f64;
+        acc.iter_mut().for_each(|a| *a = 0.0);
+        let rowref = |i: isize| -> std::ops::Range<usize> {
+            let k = if i >= 0 && (i as usize) < h {
+                i as usize
+            } else {
+                reflect(i, h)
+            };
+            k * w..(k + 1) * w
+        };
+        for k in -r..=r {
+            for (a, &v) in acc.iter_mut().zip(&data[rowref(k)]) {
+                *a += v as f64;
+            }
+        }
+        for i in 0..h {
+            let o = &mut next[i * w..(i + 1) * w];
+            for (ov, &a) in o.iter_mut().zip(acc.iter()) {
+                *ov = (a * inv) as f32;
+            }
+            let (add, sub) = (rowref(i as isize + r + 1), rowref(i as isize - r));
+            for ((a, &p), &m) in acc.iter_mut().zip(&data[add]).zip(&data[sub]) {
+                *a += p as f64 - m as f64;
+            }
+        }
+        data.copy_from_slice(&next);
+    }
 }
 
 /// Lower envelope of parabolas (Felzenszwalb & Huttenlocher 2012):
@@ -324,7 +397,13 @@ pub fn squared_distance(
     let (mut v, mut z) = (Vec::new(), Vec::new());
     // Rows (weight px²), then columns (weight py²); exact in either order.
     separable(&mut d, w, h, |l, o, along_x| {
-        lower_envelope(l, if along_x { px * px } else { py * py }, o, &mut v, &mut z)
+        lower_envelope(
+            l,
+            if along_x { px * px } else { py * py },
+            o,
+            &mut v,
+            &mut z,
+        )
     });
     d
 }
@@ -378,6 +457,7 @@ mod tests {
     use super::*;
 
     #[test]
+    #[allow(clippy::needless_range_loop)]
     fn lower_envelope_matches_brute_force() {
         let f = [3.0, f64::INFINITY, 0.5, 7.0, 2.0, f64::INFINITY, 9.0, 1.0];
         let mut out = vec![0.0; f.len()];
@@ -394,6 +474,7 @@ mod tests {
     }
 
     #[test]
+    #[allow(clippy::needless_range_loop)]
     fn distance_transform_matches_brute_force() {
         let (w, h) = (13, 9);
         let src = |i: usize| i % 7 == 3 || i == 100;
@@ -423,5 +504,43 @@ mod tests {
         // numpy.percentile's default ("linear") is definition 7: [1,2,3,4] at 0.25 → 1.75.
         assert!((percentile_sorted(&[1.0, 2.0, 3.0, 4.0], 0.25) - 1.75).abs() < 1e-12);
         assert_eq!(percentile_sorted(&[5.0], 0.9), 5.0);
+    }
+
+    #[test]
+    #[allow(clippy::needless_range_loop)]
+    fn paraboloid_erosion_matches_brute_force_in_2d() {
+        // Separability: min over the plane of f(q) + |p − q|²/(2R) equals rows then columns.
+        let (w, h, radius) = (15usize, 11usize, 3.0);
+        let f: Vec<f64> = (0..w * h)
+            .map(|i| ((i * 37 + 11) % 23) as f64 * 0.7)
+            .collect();
+        let mut e = f.clone();
+        erode_paraboloid(&mut e, w, h, radius);
+        for p in 0..w * h {
+            let (pc, pr) = ((p % w) as f64, (p / w) as f64);
+            let brute = (0..w * h)
+                .map(|q| {
+                    let d2 = ((q % w) as f64 - pc).powi(2) + ((q / w) as f64 - pr).powi(2);
+                    f[q] + d2 / (2.0 * radius)
+                })
+                .fold(f64::INFINITY, f64::min);
+            assert!((e[p] - brute).abs() < 1e-9);
+        }
+    }
+
+    #[test]
+    fn gaussian_kernel_has_unit_sum_and_variance_sigma_squared() {
+        // Analytic: a normalised Gaussian of σ has ∑k = 1 and ∑k·x² = σ² (truncation at 4σ
+        // leaves a relative error below 1e-3).
+        let sigma = 2.5;
+        let k = gaussian_kernel(sigma);
+        let r = (k.len() / 2) as f64;
+        let var: f64 = k
+            .iter()
+            .enumerate()
+            .map(|(i, v)| v * (i as f64 - r).powi(2))
+            .sum();
+        assert!((k.iter().sum::<f64>() - 1.0).abs() < 1e-12);
+        assert!((var - sigma * sigma).abs() / (sigma * sigma) < 1e-3);
     }
 }

@@ -89,7 +89,7 @@ impl TypedStage for Gaussian {
         let sx = to_pixels(o.sigma, &o.unit, &img.pixel_size)?;
         let (px, py, _) = common::pixel_dims(&img.pixel_size);
         let sy = sx * px / py;
-        if sx.max(sy) > 0.25 * (img.width.max(img.height) as f64) * 4.0 {
+        if sx.max(sy) > img.width.max(img.height) as f64 {
             return Err(StageError::input("sigma is larger than the image"));
         }
         let mut d = to_f64(img);
@@ -132,7 +132,7 @@ impl TypedStage for Median {
         references: &[HUANG1979],
     };
     fn check(&self, o: &MedianOptions) -> Result<(), OptionError> {
-        if o.size % 2 == 0 || o.size == 0 {
+        if o.size.is_multiple_of(2) {
             return Err(OptionError::new("size", "the window size must be odd"));
         }
         Ok(())
@@ -350,10 +350,14 @@ pub fn flatten(
     bright_objects: bool,
 ) -> Result<(Image, f64), StageError> {
     let (w, h) = (img.width, img.height);
-    let mut bg = to_f64(img);
-    match background {
-        Background::Gaussian => common::gaussian_boxes(&mut bg, w, h, size, size),
+    let bg: Vec<f32> = match background {
+        Background::Gaussian => {
+            let mut bg = img.data.clone();
+            common::gaussian_boxes(&mut bg, w, h, size, size);
+            bg
+        }
         Background::RollingBall => {
+            let mut bg = to_f64(img);
             if !bright_objects {
                 bg.iter_mut().for_each(|v| *v = -*v);
             }
@@ -362,15 +366,16 @@ pub fn flatten(
             if !bright_objects {
                 bg.iter_mut().for_each(|v| *v = -*v);
             }
+            to_f32(&bg)
         }
-    }
-    let mean = bg.iter().sum::<f64>() / bg.len() as f64;
+    };
+    let mean = bg.iter().map(|&b| b as f64).sum::<f64>() / bg.len() as f64;
     let out: Vec<f32> = match removal {
         Removal::Subtract => img
             .data
             .iter()
             .zip(&bg)
-            .map(|(&v, &b)| (v as f64 - b + mean) as f32)
+            .map(|(&v, &b)| (v as f64 - b as f64 + mean) as f32)
             .collect(),
         Removal::Divide => {
             if bg.iter().any(|&b| b <= 0.0) {
@@ -381,7 +386,7 @@ pub fn flatten(
             img.data
                 .iter()
                 .zip(&bg)
-                .map(|(&v, &b)| (v as f64 / b * mean) as f32)
+                .map(|(&v, &b)| (v as f64 / b as f64 * mean) as f32)
                 .collect()
         }
     };

@@ -220,15 +220,7 @@ impl TypedStage for ImportImage {
     }
 
     fn run(&self, inputs: &Inputs, o: &Options) -> Result<Artifact, StageError> {
-        let file = match &inputs.one(0)?.value {
-            Value::File(f) => f,
-            other => {
-                return Err(StageError::input(format!(
-                    "expected a file, got a {}",
-                    other.kind().name()
-                )))
-            }
-        };
+        let file = crate::image::common::file_in(inputs, 0)?;
         let (img, notes) = decode(&file.name, &file.bytes, o)?;
         let (px, _, unit) = crate::image::common::pixel_dims(&img.pixel_size);
         let recs = vec![
@@ -577,15 +569,8 @@ fn decode_text(
     o: &Options,
     header: &mut BTreeMap<String, String>,
 ) -> Result<Decoded, StageError> {
-    let text = std::str::from_utf8(bytes).map_err(|e| {
-        let line = bytes[..e.valid_up_to()]
-            .iter()
-            .filter(|&&b| b == b'\n')
-            .count()
-            + 1;
-        StageError::data(name, Some(line), "neither PNG, TIFF nor valid UTF-8 text")
-    })?;
-    let text = text.strip_prefix('\u{feff}').unwrap_or(text);
+    let text =
+        crate::image::common::utf8_text(name, bytes, "neither PNG, TIFF nor valid UTF-8 text")?;
     let mut rows: Vec<Vec<f32>> = Vec::new();
     let mut width = 0;
     let mut skipped_title = false;

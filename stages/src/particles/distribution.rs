@@ -9,7 +9,8 @@
 //! μ̂ = mean(ln d), σ̂² = (1/N)Σ(ln d − μ̂)², with standard errors σ̂/√N and σ̂/√(2N)
 //! (from the Fisher information, e.g. Limpert, Stahel & Abbt 2001 for the log-normal in
 //! the sciences); and the particle count per analysed area (particles kept / total image
-//! area of all images). A distribution of fewer than 100 particles carries a warning.
+//! area of all images, with the Poisson standard uncertainty √N / area). A distribution of
+//! fewer than 100 particles carries a warning.
 
 use crate::image::common::{percentile_sorted, HYNDMAN1996};
 use crate::stage::{Inputs, OptionError, Port, Reference, StageError, StageInfo, TypedStage};
@@ -262,7 +263,7 @@ pub fn size_stats(values: &[f64], o: &DistributionOptions) -> Result<SizeStats, 
             "{n} particle(s): at least 2 are needed for a distribution"
         )));
     }
-    if values.iter().any(|&v| !(v > 0.0)) {
+    if values.iter().any(|&v| v.is_nan() || v <= 0.0) {
         return Err(StageError::input(
             "sizes must be positive for the log-normal fit",
         ));

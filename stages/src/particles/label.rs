@@ -109,7 +109,7 @@ impl TypedStage for Label {
                 o.smooth, o.min_height
             )
         } else {
-            String::new()
+            " (touching particles were not split)".to_string()
         };
         format!(
             "Particles were labelled as {}-connected components{split}; particles touching the image border were {}, and particles smaller than {} {} were excluded.",
@@ -209,60 +209,60 @@ fn union(parent: &mut [u32], a: u32, b: u32) -> u32 {
 pub fn label_components(mask: &[bool], w: usize, h: usize, connectivity: u8) -> (Vec<u32>, u32) {
     let mut lab = vec![0u32; w * h];
     let mut parent: Vec<u32> = vec![0];
+    // Provisional labels in the first pass; a pixel takes its first labelled neighbour's
+    // label and joins the sets of the others.
+    let join = |cur: u32, q: u32, parent: &mut Vec<u32>| -> u32 {
+        if q == 0 || q == cur {
+            cur
+        } else if cur == 0 {
+            q
+        } else {
+            union(parent, cur, q)
+        }
+    };
     for r in 0..h {
         for c in 0..w {
             let i = r * w + c;
             if !mask[i] {
                 continue;
             }
-            let mut neigh = [0u32; 4];
-            let mut n = 0;
-            if c > 0 && lab[i - 1] != 0 {
-                neigh[n] = lab[i - 1];
-                n += 1;
+            let mut cur = 0;
+            if c > 0 {
+                cur = join(cur, lab[i - 1], &mut parent);
             }
             if r > 0 {
-                if lab[i - w] != 0 {
-                    neigh[n] = lab[i - w];
-                    n += 1;
-                }
+                cur = join(cur, lab[i - w], &mut parent);
                 if connectivity == 8 {
-                    if c > 0 && lab[i - w - 1] != 0 {
-                        neigh[n] = lab[i - w - 1];
-                        n += 1;
+                    if c > 0 {
+                        cur = join(cur, lab[i - w - 1], &mut parent);
                     }
-                    if c + 1 < w && lab[i - w + 1] != 0 {
-                        neigh[n] = lab[i - w + 1];
-                        n += 1;
+                    if c + 1 < w {
+                        cur = join(cur, lab[i - w + 1], &mut parent);
                     }
                 }
             }
-            if n == 0 {
-                let id = parent.len() as u32;
-                parent.push(id);
-                lab[i] = id;
-            } else {
-                let mut root = find(&mut parent, neigh[0]);
-                for &q in &neigh[1..n] {
-                    root = union(&mut parent, root, q);
-                }
-                lab[i] = root;
+            if cur == 0 {
+                cur = parent.len() as u32;
+                parent.push(cur);
             }
+            lab[i] = cur;
         }
     }
-    // Final numbering in raster order of first appearance.
+    // A set's root is its smallest provisional label, the one created first in raster
+    // order, so numbering roots in increasing order numbers particles by first pixel.
     let mut number = vec![0u32; parent.len()];
     let mut count = 0;
-    for v in lab.iter_mut() {
-        if *v == 0 {
-            continue;
-        }
-        let root = find(&mut parent, *v) as usize;
-        if number[root] == 0 {
+    for id in 1..parent.len() as u32 {
+        let root = find(&mut parent, id);
+        if root == id {
             count += 1;
-            number[root] = count;
+            number[id as usize] = count;
+        } else {
+            number[id as usize] = number[root as usize];
         }
-        *v = number[root];
+    }
+    for v in lab.iter_mut() {
+        *v = number[*v as usize];
     }
     (lab, count)
 }

@@ -11,6 +11,7 @@
 //!   Toussaint 1983); aspect ratio = Feret max / Feret min.
 //! - Centroid of pixel centres (pixel (0,0) spans [0, 1)×[0, 1) in pixel units), and mean
 //!   intensity of the image port when given.
+//!
 //! Perimeter and Feret lengths assume the pixel's x size for both directions when pixels are
 //! not square (coordinates are scaled by each axis for Feret and centroid).
 
@@ -142,7 +143,12 @@ impl TypedStage for Measure {
             .get("threshold.value")
             .and_then(|v| v.parse::<f64>().ok())
         {
-            a.record(Record::number("threshold", t, None, ""));
+            a.record(Record::number(
+                "threshold",
+                t,
+                None,
+                img.map_or("", |i| i.z_axis.unit.as_str()),
+            ));
         }
         if n > 0 {
             let mean = |f: fn(&Particle) -> f64| parts.iter().map(f).sum::<f64>() / n as f64;
@@ -230,9 +236,17 @@ pub fn measure(l: &Labels, img: Option<&Image>) -> Vec<Particle> {
     let mut cross_diag = vec![0usize; n + 1];
     // Row extents per label: (row, first column, last column), rows increasing.
     let mut rows: Vec<Vec<(usize, usize, usize)>> = vec![Vec::new(); n + 1];
+    // A zero border of one pixel around the labels, so neighbours need no bounds checks.
+    let pw = w + 2;
+    let mut pad = vec![0u32; pw * (h + 2)];
+    for r in 0..h {
+        pad[(r + 1) * pw + 1..(r + 1) * pw + 1 + w].copy_from_slice(&l.labels[r * w..(r + 1) * w]);
+    }
     for r in 0..h {
         for c in 0..w {
-            let v = l.labels[r * w + c] as usize;
+            let i = (r + 1) * pw + c + 1;
+            let lv = pad[i];
+            let v = lv as usize;
             if v == 0 || v > n {
                 continue;
             }
@@ -246,40 +260,18 @@ pub fn measure(l: &Labels, img: Option<&Image>) -> Vec<Particle> {
                 Some(e) if e.0 == r => e.2 = c,
                 _ => rows[v].push((r, c, c)),
             }
-        }
-    }
-    // Boundary crossings: every pixel pair along 0°, 90°, 45°, 135°, including pairs with
-    // one pixel outside the image (a zero border of one pixel is added around the labels).
-    let pw = w + 2;
-    let mut pad = vec![0u32; pw * (h + 2)];
-    for r in 0..h {
-        pad[(r + 1) * pw + 1..(r + 1) * pw + 1 + w].copy_from_slice(&l.labels[r * w..(r + 1) * w]);
-    }
-    let mut count_pair = |a: u32, b: u32, diag: bool| {
-        if a != b {
-            for v in [a as usize, b as usize] {
-                if v != 0 && v <= n {
-                    if diag {
-                        cross_diag[v] += 1;
-                    } else {
-                        cross_axis[v] += 1;
-                    }
-                }
-            }
-        }
-    };
-    for r in 0..h + 1 {
-        for c in 0..pw {
-            let i = r * pw + c;
-            let a = pad[i];
-            if c + 1 < pw {
-                count_pair(a, pad[i + 1], false);
-                count_pair(a, pad[i + pw + 1], true);
-            }
-            count_pair(a, pad[i + pw], false);
-            if c > 0 {
-                count_pair(a, pad[i + pw - 1], true);
-            }
+            // Boundary crossings: pairs along 0°, 90° (both ways) and 45°, 135° (both
+            // ways) with the other pixel outside this particle (or outside the image).
+            let axis = u32::from(pad[i - 1] != lv)
+                + u32::from(pad[i + 1] != lv)
+                + u32::from(pad[i - pw] != lv)
+                + u32::from(pad[i + pw] != lv);
+            let diag = u32::from(pad[i - pw - 1] != lv)
+                + u32::from(pad[i - pw + 1] != lv)
+                + u32::from(pad[i + pw - 1] != lv)
+                + u32::from(pad[i + pw + 1] != lv);
+            cross_axis[v] += axis as usize;
+            cross_diag[v] += diag as usize;
         }
     }
     let mut out = Vec::new();

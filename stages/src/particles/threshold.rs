@@ -2,7 +2,8 @@
 //! one label) from an image, and its binary opening / closing.
 //!
 //! Global threshold by Otsu's method (Otsu 1979): the histogram of the image's actual
-//! range in `bins` equal bins (256 by default; 65536 keeps every level of 16-bit data),
+//! range in `bins` equal bins (256 by default), or one bin per integer level (`bins` = 0,
+//! which keeps every level of 16-bit data),
 //! and the threshold is the centre of the bin that maximises the between-class variance
 //! w₁(t)·w₂(t)·(μ₁(t) − μ₂(t))², the first such bin on ties; pixels above it are bright
 //! objects. Or a fixed value; or an adaptive local threshold, where a pixel is an object
@@ -58,7 +59,7 @@ pub struct ThresholdOptions {
     pub method: Method,
     /// Threshold for `fixed`, in the image's sample unit.
     pub value: Option<f64>,
-    /// Histogram bins over the image's range for Otsu (default 256).
+    /// Histogram bins over the image's range for Otsu (default 256; 0 = one bin per integer level).
     pub bins: usize,
     /// Neighbourhood side k for the adaptive methods, in pixels (odd; default 51).
     #[schemars(extend("x-unit" = "px"))]
@@ -102,12 +103,12 @@ impl TypedStage for Threshold {
                 "value",
                 "the fixed method needs a finite value",
             )),
-            Method::Otsu if !(2..=1 << 20).contains(&o.bins) => Err(OptionError::new(
+            Method::Otsu if o.bins == 1 || o.bins > MAX_BINS => Err(OptionError::new(
                 "bins",
-                "bins must be between 2 and 1048576",
+                "bins must be 0 (one per integer level) or between 2 and 1048576",
             )),
             Method::AdaptiveMean | Method::AdaptiveGaussian
-                if o.window % 2 == 0 || o.window < 3 =>
+                if o.window.is_multiple_of(2) || o.window < 3 =>
             {
                 Err(OptionError::new(
                     "window",
@@ -125,8 +126,12 @@ impl TypedStage for Threshold {
         };
         match o.method {
             Method::Otsu => format!(
-                "Images were segmented into {obj} objects and background by Otsu's threshold [otsu1979] on a {}-bin histogram of each image's range.",
-                o.bins
+                "Images were segmented into {obj} objects and background by Otsu's threshold [otsu1979] on {}.",
+                if o.bins == 0 {
+                    "a histogram with one bin per integer grey level".to_string()
+                } else {
+                    format!("a {}-bin histogram of each image's range", o.bins)
+                }
             ),
             Method::Fixed => format!(
                 "Images were segmented into {obj} objects and background at a fixed threshold of {}.",
@@ -169,15 +174,34 @@ fn method_name(m: Method) -> &'static str {
     }
 }
 
-/// Otsu's threshold of the samples on a `bins`-bin histogram of their range.
-/// Error when the image is uniform.
+/// Otsu's threshold of the samples on a `bins`-bin histogram of their range, or with
+/// `bins` = 0 on one bin per integer level (integer-valued data only). Error when the
+/// image is uniform.
 pub fn otsu_threshold(data: &[f32], bins: usize) -> Result<f64, StageError> {
     let (lo, hi) = common::min_max(data);
     let (lo, hi) = (lo as f64, hi as f64);
-    if !(hi > lo) {
+    if hi <= lo {
         return Err(StageError::input(
             "the image is uniform: no threshold separates two classes",
         ));
+    }
+    if bins == 0 {
+        if data.iter().any(|v| v.fract() != 0.0) {
+            return Err(StageError::input(
+                "bins = 0 (one bin per level) needs integer-valued samples",
+            ));
+        }
+        let levels = (hi - lo) as usize + 1;
+        if levels > MAX_BINS {
+            return Err(StageError::input(format!(
+                "{levels} integer levels exceed the {MAX_BINS} bins allowed"
+            )));
+        }
+        let mut hist = vec![0f64; levels];
+        for &v in data {
+            hist[(v as f64 - lo) as usize] += 1.0;
+        }
+        return Ok(otsu_from_histogram(&hist, |i| lo + i as f64));
     }
     let mut hist = vec![0f64; bins];
     let norm = bins as f64 / (hi - lo);
@@ -194,14 +218,23 @@ pub fn otsu_threshold(data: &[f32], bins: usize) -> Result<f64, StageError> {
         }
         hist[i] += 1.0;
     }
-    let centre = |i: usize| (edge(i) + edge(i + 1)) / 2.0;
+    Ok(otsu_from_histogram(&hist, |i| {
+        (edge(i) + edge(i + 1)) / 2.0
+    }))
+}
+
+/// Largest histogram accepted for Otsu's method.
+const MAX_BINS: usize = 1 << 20;
+
+/// The bin centre maximising w₁·w₂·(μ₁ − μ₂)², class 1 being bins 0..=i (first on ties).
+fn otsu_from_histogram(hist: &[f64], centre: impl Fn(usize) -> f64) -> f64 {
     let total: f64 = hist.iter().sum();
     let total_m: f64 = hist.iter().enumerate().map(|(i, h)| h * centre(i)).sum();
     let (mut w1, mut m1) = (0.0, 0.0);
     let mut best = (f64::NEG_INFINITY, 0usize);
-    for i in 0..bins - 1 {
-        w1 += hist[i];
-        m1 += hist[i] * centre(i);
+    for (i, &bin_count) in hist.iter().enumerate().take(hist.len() - 1) {
+        w1 += bin_count;
+        m1 += bin_count * centre(i);
         let w2 = total - w1;
         if w1 == 0.0 || w2 == 0.0 {
             continue;
@@ -212,7 +245,7 @@ pub fn otsu_threshold(data: &[f32], bins: usize) -> Result<f64, StageError> {
             best = (var, i);
         }
     }
-    Ok(centre(best.1))
+    centre(best.1)
 }
 
 fn local_mean(img: &Image, o: &ThresholdOptions) -> Vec<f64> {
@@ -225,7 +258,9 @@ fn local_mean(img: &Image, o: &ThresholdOptions) -> Vec<f64> {
         if s <= 8.0 {
             common::gaussian_exact(&mut d, w, h, s, s);
         } else {
-            common::gaussian_boxes(&mut d, w, h, s, s);
+            let mut f: Vec<f32> = img.data.clone();
+            common::gaussian_boxes(&mut f, w, h, s, s);
+            d = f.iter().map(|&v| v as f64).collect();
         }
     }
     d

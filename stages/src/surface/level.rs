@@ -7,6 +7,7 @@
 //! - `line_median`: each scan line (row) is shifted so that its median is zero, removing
 //!   line-to-line offsets of the slow scan axis.
 //! - `line_linear`: a least-squares straight line is subtracted from each row.
+//!
 //! Linear least squares (common practice of scanning-probe data processing; the plane and
 //! polynomial fits are ordinary least squares, e.g. Press et al., Numerical Recipes, §15.4).
 

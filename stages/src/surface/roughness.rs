@@ -10,8 +10,10 @@
 //! - Sp  = max z                              maximum peak height
 //! - Sv  = |min z|                            maximum pit height (a positive number)
 //! - Sz  = Sp + Sv                            maximum height
+//!
 //! Line parameters on a row (each row relative to its own mean line, the row's mean):
 //! - Ra = (1/n) Σ |Z|,  Rq = √((1/n) Σ Z²), for one chosen row or averaged over all rows.
+//!
 //! The sums are the discrete forms of the standards' integrals over the evaluation area
 //! (ISO 25178-2:2012 §4.1–4.2; ISO 4287:1997 §4.2).
 
@@ -138,7 +140,7 @@ pub fn areal(z: &[f64]) -> Option<Areal> {
         hi = hi.max(d);
     }
     let sq = (s2 / n).sqrt();
-    if !(sq > 0.0) {
+    if sq.is_nan() || sq <= 0.0 {
         return None;
     }
     Some(Areal {
