@@ -674,9 +674,14 @@ pub fn render(
             }
             // Figures.
             let drawn = match &art.value {
-                Value::Spectrum(_) | Value::Fit(_) | Value::Peaks(_) => art
-                    .spectrum()
-                    .map(|s| figure::spectrum_svg(s, points).map(Some)),
+                Value::Spectrum(s) | Value::Fit(stages::FitResult { spectrum: s, .. }) => {
+                    Some(figure::spectrum_svg(s, points, &[]).map(Some))
+                }
+                Value::Peaks(pl) => {
+                    let marks: Vec<(f64, f64)> =
+                        pl.peaks.iter().map(|p| (p.position, p.height)).collect();
+                    Some(figure::spectrum_svg(&pl.spectrum, points, &marks).map(Some))
+                }
                 Value::Image(img) => Some(figure::micrograph_svg(Some(img), None).map(Some)),
                 Value::Labels(l) => {
                     let img = upstream_image(node, &by_key, record, &loaded);

@@ -376,6 +376,15 @@ pub fn fixture() -> Fixture {
         &["tauc"],
         true,
     ));
+    steps.push(step(
+        r,
+        "maxima",
+        "measure.peaks",
+        "Local maxima with a prominence of at least 10 % of the data range were located.",
+        &[],
+        &["uv"],
+        false,
+    ));
     let ev = Axis::new("photon energy", "eV");
     let mut uv_keys = Vec::new();
     for (k, item) in ["film_a", "film_c"].iter().enumerate() {
@@ -400,6 +409,30 @@ pub fn fixture() -> Fixture {
             )))),
         );
         uv_keys.push(ku.clone());
+        let top = y.len() - 1;
+        let located = PeakList {
+            spectrum: Spectrum::new(
+                x.clone(),
+                y.clone(),
+                ev.clone(),
+                Axis::new("absorbance", ""),
+            ),
+            peaks: vec![Peak {
+                index: top,
+                position: x[top],
+                height: y[top],
+                prominence: y[top],
+                fwhm: 0.25,
+            }],
+        };
+        b.add(
+            r,
+            "maxima",
+            Some(item),
+            NodeStatus::Ran,
+            std::slice::from_ref(&ku),
+            Some(Artifact::new(Value::Peaks(located))),
+        );
         let mut ts = Spectrum::new(
             x.clone(),
             y.clone(),
