@@ -371,3 +371,48 @@ fn a_step_over_forty_files_is_one_sentence() {
     ));
     assert_eq!(m.references.len(), 3);
 }
+
+#[test]
+fn an_empty_run_and_unreadable_artifacts_still_render() {
+    // Nothing at all: a report that says so, not a panic.
+    let mut f = fixture();
+    let dir = tempfile::tempdir().unwrap();
+    let empty = engine::record::RunRecord {
+        recipes: vec![],
+        steps: vec![],
+        nodes: vec![],
+        checks: vec![],
+        parameters: vec![],
+        ..f.record.clone()
+    };
+    let none = |_: &str| None;
+    report::render(&empty, &none, dir.path(), None).unwrap();
+    assert!(Html::parse_document(
+        &std::fs::read_to_string(dir.path().join("report.html")).unwrap()
+    )
+    .errors
+    .is_empty());
+    // Every artifact missing from the cache: each node is reported, none is drawn.
+    let dir = tempfile::tempdir().unwrap();
+    f.artifacts.clear();
+    let s = report::render(&f.record, &none, dir.path(), None).unwrap();
+    assert_eq!(s.figures, 0);
+    let md = std::fs::read_to_string(dir.path().join("report.md")).unwrap();
+    assert!(md.contains("could not be read"));
+}
+
+#[test]
+fn a_step_named_results_does_not_take_the_engines_file() {
+    let mut f = fixture();
+    for s in f.record.steps.iter_mut().filter(|s| s.id == "calib") {
+        s.id = "results".into();
+    }
+    for n in f.record.nodes.iter_mut().filter(|n| n.step == "calib") {
+        n.step = "results".into();
+    }
+    let dir = tempfile::tempdir().unwrap();
+    let src = f.source();
+    report::render(&f.record, &src, dir.path(), None).unwrap();
+    assert!(!dir.path().join("tables/results.csv").exists());
+    assert!(dir.path().join("tables/results-2.csv").is_file());
+}

@@ -683,6 +683,8 @@ pub fn render(
 
     let mut fig_names = Names::default();
     let mut table_names = Names::default();
+    // The engine writes tables/results.csv itself.
+    table_names.0.insert("results.csv".to_string());
     let mut counts = Counts {
         recipes: record.recipes.len(),
         steps: record.steps.len(),
