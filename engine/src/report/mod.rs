@@ -769,6 +769,10 @@ pub fn render(
             &["item", "peak", "shape", "centre", "FWHM", "height", "area"],
             &peak_csv_header,
         );
+        let mut param_grid = Grid::new(
+            &["item", "parameter", "value", "status"],
+            &["item", "parameter", "value", "stderr", "unit", "status"],
+        );
         let mut found_grid = Grid::new(
             &["item", "position", "height", "prominence", "FWHM"],
             &["item", "position", "height", "prominence", "fwhm"],
@@ -898,6 +902,30 @@ pub fn render(
                         s.converged.to_string(),
                         s.reason.clone(),
                     ]);
+                    for p in &f.parameters {
+                        let status = match &p.status {
+                            stages::ParameterStatus::Free => "free".to_string(),
+                            stages::ParameterStatus::Fixed => "fixed".to_string(),
+                            stages::ParameterStatus::Tied(expr) => format!("tied: {expr}"),
+                            stages::ParameterStatus::AtBound => {
+                                "at a bound (its error is not meaningful)".to_string()
+                            }
+                        };
+                        param_grid.rows.push(vec![
+                            label.clone(),
+                            p.name.clone(),
+                            with_unit(number::format_measurement(p.value, p.stderr), &p.unit),
+                            status.clone(),
+                        ]);
+                        param_grid.csv_rows.push(vec![
+                            item.clone(),
+                            p.name.clone(),
+                            csv_number(p.value),
+                            p.stderr.map(csv_number).unwrap_or_default(),
+                            p.unit.clone(),
+                            status,
+                        ]);
+                    }
                     for p in &f.peaks {
                         let m = |m: &stages::Measurement| {
                             with_unit(number::format_measurement(m.value, m.uncertainty), &m.unit)
@@ -975,6 +1003,7 @@ pub fn render(
         for (suffix, title, grid) in [
             ("fit", "Fit statistics", fit_grid),
             ("peaks", "Fitted peaks", peak_grid),
+            ("parameters", "Fit parameters", param_grid),
             ("located", "Located peaks", found_grid),
         ] {
             if !grid.rows.is_empty() {

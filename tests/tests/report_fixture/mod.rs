@@ -208,7 +208,29 @@ fn add_c1s_item(b: &mut Builder, r: &str, item: &str, k: usize, n: usize) -> Str
         .collect();
     let fit = FitResult {
         model: "3 pseudo-Voigt peaks + Shirley background".into(),
-        parameters: vec![],
+        parameters: vec![
+            FitParameter {
+                name: "cc.center".into(),
+                value: 284.8 + 0.1 * k as f64,
+                stderr: Some(0.0123),
+                unit: "eV".into(),
+                status: ParameterStatus::Free,
+            },
+            FitParameter {
+                name: "co.fwhm".into(),
+                value: 1.4128,
+                stderr: None,
+                unit: "eV".into(),
+                status: ParameterStatus::Tied("cc.fwhm".into()),
+            },
+            FitParameter {
+                name: "oco.eta".into(),
+                value: 1.0,
+                stderr: None,
+                unit: String::new(),
+                status: ParameterStatus::AtBound,
+            },
+        ],
         correlation: vec![],
         peaks,
         area_covariance: vec![],
