@@ -88,9 +88,9 @@ fn html_parses_and_shows_every_step() {
         let name = name.trim_matches(|c| c == '(' || c == ')');
         assert!(dir.path().join(name).is_file(), "{name} missing");
     }
-    // 3 photoelectron steps × 3 items + table, 2 Tauc + 2 import + calib + table,
-    // image, labels, histogram.
-    assert_eq!(summary.figures, 3 * 3 + 2 + 2 + 1 + 1 + 1 + 1 + 1 - 1);
+    // 3 photoelectron steps × 3 items, 2 imports + 2 Tauc + 2 peak lists + the
+    // calibration, image, labels, histogram (the band-gap tables draw nothing).
+    assert_eq!(summary.figures, 3 * 3 + 2 + 2 + 2 + 1 + 1 + 1 + 1);
 }
 
 #[test]
@@ -336,7 +336,7 @@ fn markup_in_svg_text_is_escaped() {
         role: stages::CurveRole::Component,
         y: vec![0.5, 3.0, 1.0],
     });
-    let svg = report::figure::spectrum_svg(&s, 1000).unwrap();
+    let svg = report::figure::spectrum_svg(&s, 1000, &[]).unwrap();
     assert!(!svg.contains("<script") && !svg.contains("<b>"));
     assert!(svg.contains("&lt;script&gt;alert(1)&lt;/script&gt;"));
     assert!(svg.contains("counts &amp; &quot;more&quot;"));
@@ -370,4 +370,49 @@ fn a_step_over_forty_files_is_one_sentence() {
         "from a recipe that records every setting and the content hash of each input file."
     ));
     assert_eq!(m.references.len(), 3);
+}
+
+#[test]
+fn an_empty_run_and_unreadable_artifacts_still_render() {
+    // Nothing at all: a report that says so, not a panic.
+    let mut f = fixture();
+    let dir = tempfile::tempdir().unwrap();
+    let empty = engine::record::RunRecord {
+        recipes: vec![],
+        steps: vec![],
+        nodes: vec![],
+        checks: vec![],
+        parameters: vec![],
+        ..f.record.clone()
+    };
+    let none = |_: &str| None;
+    report::render(&empty, &none, dir.path(), None).unwrap();
+    assert!(Html::parse_document(
+        &std::fs::read_to_string(dir.path().join("report.html")).unwrap()
+    )
+    .errors
+    .is_empty());
+    // Every artifact missing from the cache: each node is reported, none is drawn.
+    let dir = tempfile::tempdir().unwrap();
+    f.artifacts.clear();
+    let s = report::render(&f.record, &none, dir.path(), None).unwrap();
+    assert_eq!(s.figures, 0);
+    let md = std::fs::read_to_string(dir.path().join("report.md")).unwrap();
+    assert!(md.contains("could not be read"));
+}
+
+#[test]
+fn a_step_named_results_does_not_take_the_engines_file() {
+    let mut f = fixture();
+    for s in f.record.steps.iter_mut().filter(|s| s.id == "calib") {
+        s.id = "results".into();
+    }
+    for n in f.record.nodes.iter_mut().filter(|n| n.step == "calib") {
+        n.step = "results".into();
+    }
+    let dir = tempfile::tempdir().unwrap();
+    let src = f.source();
+    report::render(&f.record, &src, dir.path(), None).unwrap();
+    assert!(!dir.path().join("tables/results.csv").exists());
+    assert!(dir.path().join("tables/results-2.csv").is_file());
 }

@@ -123,8 +123,9 @@ pub fn guide_intercept(x: &[f64], guide: &[f64]) -> Option<f64> {
 
 /// A spectrum with every curve it carries: data, background, components, envelope,
 /// smoothed and reference copies, guide lines with their x intercept marked, and a
-/// lower panel for residuals or derivatives. `points` is the per-curve budget.
-pub fn spectrum_svg(s: &Spectrum, points: usize) -> Fig<String> {
+/// lower panel for residuals or derivatives. `points` is the per-curve budget;
+/// `marks` are located peaks (x, y), drawn as small triangles.
+pub fn spectrum_svg(s: &Spectrum, points: usize, marks: &[(f64, f64)]) -> Fig<String> {
     let upper_curves: Vec<&stages::Curve> =
         s.curves.iter().filter(|c| !style_of(c.role, 0).1).collect();
     let lower_curves: Vec<&stages::Curve> =
@@ -212,6 +213,19 @@ pub fn spectrum_svg(s: &Spectrum, points: usize) -> Fig<String> {
                     first = false;
                 }
             }
+            legend_data = true;
+        }
+        if !marks.is_empty() {
+            chart
+                .draw_series(
+                    marks
+                        .iter()
+                        .filter(|(x, y)| x.is_finite() && y.is_finite())
+                        .map(|&p| TriangleMarker::new(p, 5, VERMILLION.filled())),
+                )
+                .map_err(pe)?
+                .label("located peaks")
+                .legend(|(x, y)| TriangleMarker::new((x + 9, y), 5, VERMILLION.filled()));
             legend_data = true;
         }
         if let Some(x0) = intercept {
@@ -485,6 +499,26 @@ fn calibration_svg(t: &Table, results: &[Record]) -> Fig<Option<String>> {
             .axis_desc_style((FONT, 16))
             .draw()
             .map_err(pe)?;
+        let is_unknown = |i: usize| {
+            roles
+                .and_then(|r| r.get(i))
+                .is_some_and(|r| r.eq_ignore_ascii_case("unknown"))
+        };
+        if let Some(band) = slope
+            .zip(intercept)
+            .and_then(|(m, b)| line_band(xc.1, yc.1, &|i| !is_unknown(i), m, b, xlo, xhi))
+        {
+            chart
+                .draw_series(std::iter::once(Polygon::new(
+                    band,
+                    SKY_BLUE.mix(0.35).filled(),
+                )))
+                .map_err(pe)?
+                .label("line ± 1 standard error")
+                .legend(|(x, y)| {
+                    Rectangle::new([(x, y - 4), (x + 18, y + 4)], SKY_BLUE.mix(0.35).filled())
+                });
+        }
         if let (Some(m), Some(b)) = (slope, intercept) {
             chart
                 .draw_series(LineSeries::new(
@@ -497,11 +531,6 @@ fn calibration_svg(t: &Table, results: &[Record]) -> Fig<Option<String>> {
                     PathElement::new(vec![(x, y), (x + 18, y)], VERMILLION.stroke_width(2))
                 });
         }
-        let is_unknown = |i: usize| {
-            roles
-                .and_then(|r| r.get(i))
-                .is_some_and(|r| r.eq_ignore_ascii_case("unknown"))
-        };
         let rows = xc.1.len().min(yc.1.len());
         let finite = |i: &usize| xc.1[*i].is_finite() && yc.1[*i].is_finite();
         if let Some(u) = y_unc {
@@ -552,6 +581,54 @@ fn calibration_svg(t: &Table, results: &[Record]) -> Fig<Option<String>> {
         root.present().map_err(pe)?;
     }
     Ok(Some(buf))
+}
+
+/// The band of a straight line fitted by least squares to the standards, ± one
+/// standard error of the line: s·√(1/n + (x − x̄)²/Sxx), with s² the residual
+/// variance on n − 2 degrees of freedom (the textbook result for simple linear
+/// regression, e.g. N. R. Draper and H. Smith, Applied Regression Analysis, 3rd ed.,
+/// Wiley, 1998, chapter 3, cited from memory). Needs three standards or more. The polygon runs
+/// along the upper edge and back along the lower one.
+fn line_band(
+    x: &[f64],
+    y: &[f64],
+    standard: &dyn Fn(usize) -> bool,
+    slope: f64,
+    intercept: f64,
+    xlo: f64,
+    xhi: f64,
+) -> Option<Vec<(f64, f64)>> {
+    let pts: Vec<(f64, f64)> = (0..x.len().min(y.len()))
+        .filter(|&i| standard(i) && x[i].is_finite() && y[i].is_finite())
+        .map(|i| (x[i], y[i]))
+        .collect();
+    let n = pts.len();
+    if n < 3 {
+        return None;
+    }
+    let mean = pts.iter().map(|p| p.0).sum::<f64>() / n as f64;
+    let sxx: f64 = pts.iter().map(|p| (p.0 - mean).powi(2)).sum();
+    let ss: f64 = pts
+        .iter()
+        .map(|p| (p.1 - slope * p.0 - intercept).powi(2))
+        .sum();
+    if sxx <= 0.0 {
+        return None;
+    }
+    let s = (ss / (n - 2) as f64).sqrt();
+    const STEPS: usize = 40;
+    let at = |k: usize| xlo + (xhi - xlo) * k as f64 / STEPS as f64;
+    let half = |x: f64| s * (1.0 / n as f64 + (x - mean).powi(2) / sxx).sqrt();
+    let upper = (0..=STEPS).map(|k| {
+        let x = at(k);
+        (x, slope * x + intercept + half(x))
+    });
+    let lower = (0..=STEPS).rev().map(|k| {
+        let x = at(k);
+        (x, slope * x + intercept - half(x))
+    });
+    let band: Vec<(f64, f64)> = upper.chain(lower).collect();
+    band.iter().all(|p| p.1.is_finite()).then_some(band)
 }
 
 /// A greyscale thumbnail: block means over `f`×`f` pixels, stretched between the

@@ -462,32 +462,157 @@ struct Tables<'a> {
     out: &'a Path,
 }
 
+/// A table as shown (rounded) and as written to CSV (every digit).
+struct Grid {
+    headers: Vec<String>,
+    rows: Vec<Vec<String>>,
+    csv_header: Vec<String>,
+    csv_rows: Vec<Vec<String>>,
+}
+
+impl Grid {
+    fn new(headers: &[&str], csv_header: &[&str]) -> Grid {
+        Grid {
+            headers: headers.iter().map(|s| s.to_string()).collect(),
+            rows: Vec::new(),
+            csv_header: csv_header.iter().map(|s| s.to_string()).collect(),
+            csv_rows: Vec::new(),
+        }
+    }
+}
+
 impl Tables<'_> {
-    /// Writes `rows` (full precision) as CSV and returns the file name under tables/.
-    fn csv(
+    /// Writes the grid's CSV under tables/ and returns the table as shown.
+    fn write(
         &mut self,
         parts: &[&str],
-        header: &[String],
-        rows: &[Vec<String>],
-    ) -> Result<String, ReportError> {
+        title: String,
+        grid: Grid,
+    ) -> Result<TableView, ReportError> {
         let name = self.names.take(parts, "csv");
         let path = self.out.join("tables").join(&name);
-        let mut w = csv::Writer::from_writer(Vec::new());
-        let err = |e: csv::Error| ReportError::Write {
+        let failed = |e: String| ReportError::Write {
             path: path.display().to_string(),
-            source: std::io::Error::other(e.to_string()),
+            source: std::io::Error::other(e),
         };
-        w.write_record(header).map_err(err)?;
-        for r in rows {
-            w.write_record(r).map_err(err)?;
+        let mut w = csv::Writer::from_writer(Vec::new());
+        w.write_record(&grid.csv_header)
+            .map_err(|e| failed(e.to_string()))?;
+        for r in &grid.csv_rows {
+            w.write_record(r).map_err(|e| failed(e.to_string()))?;
         }
-        let bytes = w.into_inner().map_err(|e| ReportError::Write {
-            path: path.display().to_string(),
-            source: std::io::Error::other(e.to_string()),
-        })?;
+        let bytes = w.into_inner().map_err(|e| failed(e.to_string()))?;
         write(&path, &bytes)?;
-        Ok(format!("tables/{name}"))
+        Ok(TableView::new(
+            title,
+            format!("tables/{name}"),
+            grid.headers,
+            grid.rows,
+        ))
     }
+}
+
+/// A Table value: numbers rounded with their uncertainties; in CSV each number
+/// column with uncertainties is followed by a `u(name)` column.
+fn table_grid(t: &stages::Table) -> Grid {
+    let mut g = Grid::new(&[], &[]);
+    for c in &t.columns {
+        g.headers.push(record_header(&c.name, &c.unit));
+        g.csv_header.push(record_header(&c.name, &c.unit));
+        if let ColumnData::Number {
+            uncertainty: Some(_),
+            ..
+        } = &c.data
+        {
+            g.csv_header.push(format!("u({})", c.name));
+        }
+    }
+    for r in 0..t.rows() {
+        let (mut row, mut crow) = (Vec::new(), Vec::new());
+        for c in &t.columns {
+            match &c.data {
+                ColumnData::Text(v) => {
+                    let s = v.get(r).cloned().unwrap_or_default();
+                    row.push(s.clone());
+                    crow.push(s);
+                }
+                ColumnData::Number {
+                    values,
+                    uncertainty,
+                } => {
+                    let v = values.get(r).copied().unwrap_or(f64::NAN);
+                    let u = uncertainty.as_ref().and_then(|u| u.get(r).copied());
+                    row.push(number::format_measurement(v, u));
+                    crow.push(csv_number(v));
+                    if uncertainty.is_some() {
+                        crow.push(u.map(csv_number).unwrap_or_default());
+                    }
+                }
+            }
+        }
+        g.rows.push(row);
+        g.csv_rows.push(crow);
+    }
+    g
+}
+
+/// A step's published records: a row per item, a column per (name, unit). A column
+/// is numeric when its first record is a number; only those get `u(name)` in CSV.
+fn results_grid(
+    columns: &[(String, String)],
+    nodes: &[usize],
+    record: &RunRecord,
+    loaded: &[Option<Artifact>],
+    step_id: &str,
+) -> Grid {
+    let numeric: Vec<bool> = columns
+        .iter()
+        .map(|(n, u)| {
+            nodes
+                .iter()
+                .filter_map(|&i| loaded[i].as_ref())
+                .find_map(|a| a.results.iter().find(|r| &r.name == n && &r.unit == u))
+                .is_some_and(|r| matches!(r.value, Scalar::Number(_)))
+        })
+        .collect();
+    let mut g = Grid::new(&["item"], &["item"]);
+    for ((n, u), num) in columns.iter().zip(&numeric) {
+        g.headers.push(record_header(n, u));
+        g.csv_header.push(record_header(n, u));
+        if *num {
+            g.csv_header.push(format!("u({n})"));
+        }
+    }
+    for &i in nodes {
+        let Some(art) = &loaded[i] else { continue };
+        let item = item_of(&record.nodes[i]);
+        let mut row = vec![if item.is_empty() {
+            step_id.to_string()
+        } else {
+            item.clone()
+        }];
+        let mut crow = vec![item];
+        for ((n, u), num) in columns.iter().zip(&numeric) {
+            let r = art.results.iter().find(|r| &r.name == n && &r.unit == u);
+            let (shown, value, unc) = match r.map(|r| (&r.value, r.uncertainty)) {
+                Some((Scalar::Number(v), unc)) => (
+                    number::format_measurement(*v, unc),
+                    csv_number(*v),
+                    unc.map(csv_number).unwrap_or_default(),
+                ),
+                Some((Scalar::Text(t), _)) => (t.clone(), t.clone(), String::new()),
+                None => Default::default(),
+            };
+            row.push(shown);
+            crow.push(value);
+            if *num {
+                crow.push(unc);
+            }
+        }
+        g.rows.push(row);
+        g.csv_rows.push(crow);
+    }
+    g
 }
 
 /// Full-precision text of a number for CSV (shortest round-trip form).
@@ -558,6 +683,8 @@ pub fn render(
 
     let mut fig_names = Names::default();
     let mut table_names = Names::default();
+    // The engine writes tables/results.csv itself.
+    table_names.0.insert("results.csv".to_string());
     let mut counts = Counts {
         recipes: record.recipes.len(),
         steps: record.steps.len(),
@@ -595,12 +722,61 @@ pub fn render(
         };
         // Results: one row per item, one column per (name, unit) in order of first use.
         let mut columns: Vec<(String, String)> = Vec::new();
-        let mut fit_rows = Vec::new();
-        let mut fit_csv = Vec::new();
-        let mut peak_rows = Vec::new();
-        let mut peak_csv = Vec::new();
-        let mut found_rows = Vec::new();
-        let mut found_csv = Vec::new();
+        let mut fit_grid = Grid::new(
+            &[
+                "item",
+                "model",
+                "χ²",
+                "reduced χ²",
+                "R²",
+                "points",
+                "free parameters",
+                "iterations",
+                "converged",
+                "stop reason",
+            ],
+            &[
+                "item",
+                "model",
+                "chi_square",
+                "reduced_chi_square",
+                "r_squared",
+                "points",
+                "free_parameters",
+                "iterations",
+                "converged",
+                "reason",
+            ],
+        );
+        let mut peak_csv_header = vec!["item", "peak", "shape"];
+        for q in [
+            "center",
+            "u(center)",
+            "unit(center)",
+            "fwhm",
+            "u(fwhm)",
+            "unit(fwhm)",
+            "height",
+            "u(height)",
+            "unit(height)",
+            "area",
+            "u(area)",
+            "unit(area)",
+        ] {
+            peak_csv_header.push(q);
+        }
+        let mut peak_grid = Grid::new(
+            &["item", "peak", "shape", "centre", "FWHM", "height", "area"],
+            &peak_csv_header,
+        );
+        let mut param_grid = Grid::new(
+            &["item", "parameter", "value", "status"],
+            &["item", "parameter", "value", "stderr", "unit", "status"],
+        );
+        let mut found_grid = Grid::new(
+            &["item", "position", "height", "prominence", "FWHM"],
+            &["item", "position", "height", "prominence", "fwhm"],
+        );
         let mut value_tables = Vec::new();
         for &i in &nodes {
             let node = &record.nodes[i];
@@ -613,48 +789,34 @@ pub fn render(
             match &node.status {
                 NodeStatus::Ran => counts.ran += 1,
                 NodeStatus::Cached => counts.cached += 1,
-                NodeStatus::Failed { error } => {
-                    counts.failed += 1;
-                    let p = ProblemView {
-                        step: step.id.clone(),
-                        anchor: anchor_id.clone(),
-                        item: label.clone(),
-                        failed: true,
-                        message: error.clone(),
-                    };
-                    view.failures.push(p.clone());
-                    problems.push(p);
-                    continue;
-                }
-                NodeStatus::Skipped { because } => {
-                    counts.skipped += 1;
-                    let p = ProblemView {
-                        step: step.id.clone(),
-                        anchor: anchor_id.clone(),
-                        item: label.clone(),
-                        failed: false,
-                        message: because.clone(),
-                    };
-                    view.failures.push(p.clone());
-                    problems.push(p);
-                    continue;
-                }
+                NodeStatus::Failed { .. } => counts.failed += 1,
+                NodeStatus::Skipped { .. } => counts.skipped += 1,
             }
-            let Some(art) = &loaded[i] else {
+            let problem = match (&node.status, &loaded[i]) {
+                (NodeStatus::Failed { error }, _) => Some((true, error.clone())),
+                (NodeStatus::Skipped { because }, _) => Some((false, because.clone())),
+                (_, None) => Some((
+                    true,
+                    format!(
+                        "its stored result (cache key {}) could not be read",
+                        node.key
+                    ),
+                )),
+                (_, Some(_)) => None,
+            };
+            if let Some((failed, message)) = problem {
                 let p = ProblemView {
                     step: step.id.clone(),
                     anchor: anchor_id.clone(),
                     item: label.clone(),
-                    failed: true,
-                    message: format!(
-                        "its stored result (cache key {}) could not be read",
-                        node.key
-                    ),
+                    failed,
+                    message,
                 };
                 view.failures.push(p.clone());
                 problems.push(p);
                 continue;
-            };
+            }
+            let Some(art) = &loaded[i] else { continue };
             for r in &art.results {
                 let key = (r.name.clone(), r.unit.clone());
                 if !columns.contains(&key) {
@@ -674,9 +836,14 @@ pub fn render(
             }
             // Figures.
             let drawn = match &art.value {
-                Value::Spectrum(_) | Value::Fit(_) | Value::Peaks(_) => art
-                    .spectrum()
-                    .map(|s| figure::spectrum_svg(s, points).map(Some)),
+                Value::Spectrum(s) | Value::Fit(stages::FitResult { spectrum: s, .. }) => {
+                    Some(figure::spectrum_svg(s, points, &[]).map(Some))
+                }
+                Value::Peaks(pl) => {
+                    let marks: Vec<(f64, f64)> =
+                        pl.peaks.iter().map(|p| (p.position, p.height)).collect();
+                    Some(figure::spectrum_svg(&pl.spectrum, points, &marks).map(Some))
+                }
                 Value::Image(img) => Some(figure::micrograph_svg(Some(img), None).map(Some)),
                 Value::Labels(l) => {
                     let img = upstream_image(node, &by_key, record, &loaded);
@@ -711,7 +878,7 @@ pub fn render(
             match &art.value {
                 Value::Fit(f) => {
                     let s = &f.statistics;
-                    fit_rows.push(vec![
+                    fit_grid.rows.push(vec![
                         label.clone(),
                         f.model.clone(),
                         number::format_significant(s.chi_square, 4),
@@ -723,7 +890,7 @@ pub fn render(
                         if s.converged { "yes" } else { "no" }.to_string(),
                         s.reason.clone(),
                     ]);
-                    fit_csv.push(vec![
+                    fit_grid.csv_rows.push(vec![
                         item.clone(),
                         f.model.clone(),
                         csv_number(s.chi_square),
@@ -735,11 +902,35 @@ pub fn render(
                         s.converged.to_string(),
                         s.reason.clone(),
                     ]);
+                    for p in &f.parameters {
+                        let status = match &p.status {
+                            stages::ParameterStatus::Free => "free".to_string(),
+                            stages::ParameterStatus::Fixed => "fixed".to_string(),
+                            stages::ParameterStatus::Tied(expr) => format!("tied: {expr}"),
+                            stages::ParameterStatus::AtBound => {
+                                "at a bound (its error is not meaningful)".to_string()
+                            }
+                        };
+                        param_grid.rows.push(vec![
+                            label.clone(),
+                            p.name.clone(),
+                            with_unit(number::format_measurement(p.value, p.stderr), &p.unit),
+                            status.clone(),
+                        ]);
+                        param_grid.csv_rows.push(vec![
+                            item.clone(),
+                            p.name.clone(),
+                            csv_number(p.value),
+                            p.stderr.map(csv_number).unwrap_or_default(),
+                            p.unit.clone(),
+                            status,
+                        ]);
+                    }
                     for p in &f.peaks {
                         let m = |m: &stages::Measurement| {
                             with_unit(number::format_measurement(m.value, m.uncertainty), &m.unit)
                         };
-                        peak_rows.push(vec![
+                        peak_grid.rows.push(vec![
                             label.clone(),
                             p.name.clone(),
                             p.shape.clone(),
@@ -759,20 +950,20 @@ pub fn render(
                         for q in [&p.center, &p.fwhm, &p.height, &p.area] {
                             row.extend(c(q));
                         }
-                        peak_csv.push(row);
+                        peak_grid.csv_rows.push(row);
                     }
                 }
                 Value::Peaks(pl) => {
                     let unit = &pl.spectrum.x_axis.unit;
                     for p in &pl.peaks {
-                        found_rows.push(vec![
+                        found_grid.rows.push(vec![
                             label.clone(),
                             with_unit(number::format_plain(p.position), unit),
                             number::format_plain(p.height),
                             number::format_plain(p.prominence),
                             with_unit(number::format_plain(p.fwhm), unit),
                         ]);
-                        found_csv.push(vec![
+                        found_grid.csv_rows.push(vec![
                             item.clone(),
                             csv_number(p.position),
                             csv_number(p.height),
@@ -797,183 +988,28 @@ pub fn render(
         // Table values first: they are what a gathering step is for.
         for (parts, label, t) in &value_tables {
             let p: Vec<&str> = parts.iter().map(String::as_str).collect();
-            let header: Vec<String> = t
-                .columns
-                .iter()
-                .map(|c| record_header(&c.name, &c.unit))
-                .collect();
-            let mut csv_header = Vec::new();
-            for c in &t.columns {
-                csv_header.push(record_header(&c.name, &c.unit));
-                if let ColumnData::Number {
-                    uncertainty: Some(_),
-                    ..
-                } = &c.data
-                {
-                    csv_header.push(format!("u({})", c.name));
-                }
-            }
-            let (mut rows, mut csv_rows) = (Vec::new(), Vec::new());
-            for r in 0..t.rows() {
-                let (mut row, mut crow) = (Vec::new(), Vec::new());
-                for c in &t.columns {
-                    match &c.data {
-                        ColumnData::Text(v) => {
-                            let s = v.get(r).cloned().unwrap_or_default();
-                            row.push(s.clone());
-                            crow.push(s);
-                        }
-                        ColumnData::Number {
-                            values,
-                            uncertainty,
-                        } => {
-                            let v = values.get(r).copied().unwrap_or(f64::NAN);
-                            let u = uncertainty.as_ref().and_then(|u| u.get(r).copied());
-                            row.push(number::format_measurement(v, u));
-                            crow.push(csv_number(v));
-                            if uncertainty.is_some() {
-                                crow.push(u.map(csv_number).unwrap_or_default());
-                            }
-                        }
-                    }
-                }
-                rows.push(row);
-                csv_rows.push(crow);
-            }
-            let file = tables.csv(&p, &csv_header, &csv_rows)?;
             let title = if t.title.is_empty() {
                 label.clone()
             } else {
                 t.title.clone()
             };
-            view.tables.push(TableView::new(title, file, header, rows));
+            view.tables.push(tables.write(&p, title, table_grid(t))?);
         }
         if !columns.is_empty() {
-            let mut headers = vec!["item".to_string()];
-            headers.extend(columns.iter().map(|(n, u)| record_header(n, u)));
-            // A column is numeric when its first record is a number; only those get u().
-            let numeric: Vec<bool> = columns
-                .iter()
-                .map(|(n, u)| {
-                    nodes
-                        .iter()
-                        .filter_map(|&i| loaded[i].as_ref())
-                        .find_map(|a| a.results.iter().find(|r| &r.name == n && &r.unit == u))
-                        .is_some_and(|r| matches!(r.value, Scalar::Number(_)))
-                })
-                .collect();
-            let mut csv_header = vec!["item".to_string()];
-            for ((n, u), num) in columns.iter().zip(&numeric) {
-                csv_header.push(record_header(n, u));
-                if *num {
-                    csv_header.push(format!("u({n})"));
-                }
-            }
-            let (mut rows, mut csv_rows) = (Vec::new(), Vec::new());
-            for &i in &nodes {
-                let Some(art) = &loaded[i] else { continue };
-                let node = &record.nodes[i];
-                let item = item_of(node);
-                let mut row = vec![if item.is_empty() {
-                    step.id.clone()
-                } else {
-                    item.clone()
-                }];
-                let mut crow = vec![item];
-                for ((n, u), num) in columns.iter().zip(&numeric) {
-                    let r = art.results.iter().find(|r| &r.name == n && &r.unit == u);
-                    let (shown, value, unc) = match r.map(|r| (&r.value, r.uncertainty)) {
-                        Some((Scalar::Number(v), unc)) => (
-                            number::format_measurement(*v, unc),
-                            csv_number(*v),
-                            unc.map(csv_number).unwrap_or_default(),
-                        ),
-                        Some((Scalar::Text(t), _)) => (t.clone(), t.clone(), String::new()),
-                        None => Default::default(),
-                    };
-                    row.push(shown);
-                    crow.push(value);
-                    if *num {
-                        crow.push(unc);
-                    }
-                }
-                rows.push(row);
-                csv_rows.push(crow);
-            }
-            let file = tables.csv(&with_part(&stem, "results"), &csv_header, &csv_rows)?;
+            let grid = results_grid(&columns, &nodes, record, loaded.as_slice(), &step.id);
             view.tables
-                .push(TableView::new("Results".into(), file, headers, rows));
+                .push(tables.write(&with_part(&stem, "results"), "Results".into(), grid)?);
         }
-        if !fit_rows.is_empty() {
-            let headers: Vec<String> = [
-                "item",
-                "model",
-                "χ²",
-                "reduced χ²",
-                "R²",
-                "points",
-                "free parameters",
-                "iterations",
-                "converged",
-                "stop reason",
-            ]
-            .map(String::from)
-            .to_vec();
-            let csv_header: Vec<String> = [
-                "item",
-                "model",
-                "chi_square",
-                "reduced_chi_square",
-                "r_squared",
-                "points",
-                "free_parameters",
-                "iterations",
-                "converged",
-                "reason",
-            ]
-            .map(String::from)
-            .to_vec();
-            let file = tables.csv(&with_part(&stem, "fit"), &csv_header, &fit_csv)?;
-            view.tables.push(TableView::new(
-                "Fit statistics".into(),
-                file,
-                headers,
-                fit_rows,
-            ));
-        }
-        if !peak_rows.is_empty() {
-            let headers: Vec<String> =
-                ["item", "peak", "shape", "centre", "FWHM", "height", "area"]
-                    .map(String::from)
-                    .to_vec();
-            let mut csv_header: Vec<String> = ["item", "peak", "shape"].map(String::from).to_vec();
-            for q in ["center", "fwhm", "height", "area"] {
-                csv_header.push(q.to_string());
-                csv_header.push(format!("u({q})"));
-                csv_header.push(format!("unit({q})"));
+        for (suffix, title, grid) in [
+            ("fit", "Fit statistics", fit_grid),
+            ("peaks", "Fitted peaks", peak_grid),
+            ("parameters", "Fit parameters", param_grid),
+            ("located", "Located peaks", found_grid),
+        ] {
+            if !grid.rows.is_empty() {
+                view.tables
+                    .push(tables.write(&with_part(&stem, suffix), title.into(), grid)?);
             }
-            let file = tables.csv(&with_part(&stem, "peaks"), &csv_header, &peak_csv)?;
-            view.tables.push(TableView::new(
-                "Fitted peaks".into(),
-                file,
-                headers,
-                peak_rows,
-            ));
-        }
-        if !found_rows.is_empty() {
-            let headers: Vec<String> = ["item", "position", "height", "prominence", "FWHM"]
-                .map(String::from)
-                .to_vec();
-            let csv_header: Vec<String> = ["item", "position", "height", "prominence", "fwhm"]
-                .map(String::from)
-                .to_vec();
-            let file = tables.csv(&with_part(&stem, "located"), &csv_header, &found_csv)?;
-            view.tables.push(TableView::new(
-                "Located peaks".into(),
-                file,
-                headers,
-                found_rows,
-            ));
         }
         counts.figures += view.figures.len();
         step_svg.push(view.figures.iter().map(|f| f.svg.len()).collect::<Vec<_>>());

@@ -208,7 +208,29 @@ fn add_c1s_item(b: &mut Builder, r: &str, item: &str, k: usize, n: usize) -> Str
         .collect();
     let fit = FitResult {
         model: "3 pseudo-Voigt peaks + Shirley background".into(),
-        parameters: vec![],
+        parameters: vec![
+            FitParameter {
+                name: "cc.center".into(),
+                value: 284.8 + 0.1 * k as f64,
+                stderr: Some(0.0123),
+                unit: "eV".into(),
+                status: ParameterStatus::Free,
+            },
+            FitParameter {
+                name: "co.fwhm".into(),
+                value: 1.4128,
+                stderr: None,
+                unit: "eV".into(),
+                status: ParameterStatus::Tied("cc.fwhm".into()),
+            },
+            FitParameter {
+                name: "oco.eta".into(),
+                value: 1.0,
+                stderr: None,
+                unit: String::new(),
+                status: ParameterStatus::AtBound,
+            },
+        ],
         correlation: vec![],
         peaks,
         area_covariance: vec![],
@@ -376,6 +398,15 @@ pub fn fixture() -> Fixture {
         &["tauc"],
         true,
     ));
+    steps.push(step(
+        r,
+        "maxima",
+        "measure.peaks",
+        "Local maxima with a prominence of at least 10 % of the data range were located.",
+        &[],
+        &["uv"],
+        false,
+    ));
     let ev = Axis::new("photon energy", "eV");
     let mut uv_keys = Vec::new();
     for (k, item) in ["film_a", "film_c"].iter().enumerate() {
@@ -400,6 +431,30 @@ pub fn fixture() -> Fixture {
             )))),
         );
         uv_keys.push(ku.clone());
+        let top = y.len() - 1;
+        let located = PeakList {
+            spectrum: Spectrum::new(
+                x.clone(),
+                y.clone(),
+                ev.clone(),
+                Axis::new("absorbance", ""),
+            ),
+            peaks: vec![Peak {
+                index: top,
+                position: x[top],
+                height: y[top],
+                prominence: y[top],
+                fwhm: 0.25,
+            }],
+        };
+        b.add(
+            r,
+            "maxima",
+            Some(item),
+            NodeStatus::Ran,
+            std::slice::from_ref(&ku),
+            Some(Artifact::new(Value::Peaks(located))),
+        );
         let mut ts = Spectrum::new(
             x.clone(),
             y.clone(),
