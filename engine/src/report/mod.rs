@@ -26,6 +26,7 @@ pub mod methods;
 pub mod number;
 
 use crate::record::{ArtifactSource, NodeRecord, NodeStatus, RunRecord, StepRecord};
+use rayon::prelude::*;
 use serde::Serialize;
 use stages::{Artifact, ColumnData, Image, NoteLevel, Scalar, Value};
 use std::collections::{BTreeSet, HashMap};
@@ -448,6 +449,34 @@ fn input_files<'a>(
     files
 }
 
+/// The figure of one node, if its value is drawable: None when nothing is drawn,
+/// `Ok(None)` for a table that has no plottable shape, `Err` when drawing failed.
+fn draw_node(
+    i: usize,
+    record: &RunRecord,
+    loaded: &[Option<Artifact>],
+    by_key: &HashMap<&str, usize>,
+    points: usize,
+) -> Option<Result<Option<String>, String>> {
+    let art = loaded[i].as_ref()?;
+    match &art.value {
+        Value::Spectrum(s) | Value::Fit(stages::FitResult { spectrum: s, .. }) => {
+            Some(figure::spectrum_svg(s, points, &[]).map(Some))
+        }
+        Value::Peaks(pl) => {
+            let marks: Vec<(f64, f64)> = pl.peaks.iter().map(|p| (p.position, p.height)).collect();
+            Some(figure::spectrum_svg(&pl.spectrum, points, &marks).map(Some))
+        }
+        Value::Image(img) => Some(figure::micrograph_svg(Some(img), None).map(Some)),
+        Value::Labels(l) => {
+            let img = upstream_image(&record.nodes[i], by_key, record, loaded);
+            Some(figure::micrograph_svg(img.as_ref(), Some(l)).map(Some))
+        }
+        Value::Table(t) => Some(figure::table_svg(t, &art.results)),
+        Value::File(_) | Value::Summary => None,
+    }
+}
+
 /// Column key of a published record in a step's results table.
 fn record_header(name: &str, unit: &str) -> String {
     if unit.is_empty() {
@@ -681,6 +710,12 @@ pub fn render(
         }
     };
 
+    // Figures are independent: draw them in parallel, in node order.
+    let mut drawings: Vec<Option<Result<Option<String>, String>>> = (0..record.nodes.len())
+        .into_par_iter()
+        .map(|i| draw_node(i, record, &loaded, &by_key, points))
+        .collect();
+
     let mut fig_names = Names::default();
     let mut table_names = Names::default();
     // The engine writes tables/results.csv itself.
@@ -834,28 +869,10 @@ pub fn render(
             if !item.is_empty() {
                 parts.push(&item);
             }
-            // Figures.
-            let drawn = match &art.value {
-                Value::Spectrum(s) | Value::Fit(stages::FitResult { spectrum: s, .. }) => {
-                    Some(figure::spectrum_svg(s, points, &[]).map(Some))
-                }
-                Value::Peaks(pl) => {
-                    let marks: Vec<(f64, f64)> =
-                        pl.peaks.iter().map(|p| (p.position, p.height)).collect();
-                    Some(figure::spectrum_svg(&pl.spectrum, points, &marks).map(Some))
-                }
-                Value::Image(img) => Some(figure::micrograph_svg(Some(img), None).map(Some)),
-                Value::Labels(l) => {
-                    let img = upstream_image(node, &by_key, record, &loaded);
-                    Some(figure::micrograph_svg(img.as_ref(), Some(l)).map(Some))
-                }
-                Value::Table(t) => Some(figure::table_svg(t, &art.results)),
-                Value::File(_) | Value::Summary => None,
-            };
+            let drawn = drawings[i].take();
             match drawn {
                 Some(Ok(Some(svg))) => {
                     let name = fig_names.take(&parts, "svg");
-                    write(&out.join("figures").join(&name), svg.as_bytes())?;
                     view.figures.push(FigureView {
                         file: format!("figures/{name}"),
                         svg,
@@ -1050,6 +1067,13 @@ pub fn render(
         });
         step_views.push((step.recipe.clone(), view));
     }
+
+    // Write the figure files (in parallel: thousands of small files).
+    step_views
+        .par_iter()
+        .flat_map(|(_, v)| v.figures.par_iter())
+        .map(|f| write(&out.join(&f.file), f.svg.as_bytes()))
+        .collect::<Result<Vec<()>, ReportError>>()?;
 
     // Inline figures up to each step's share of the budget; link the rest.
     let drawing = step_svg.iter().filter(|v| !v.is_empty()).count().max(1);
