@@ -165,6 +165,12 @@ fn failed_checks_and_failures_are_impossible_to_miss() {
     assert!(page.contains("not run: onset failed for film_c"));
 
     let md = std::fs::read_to_string(dir.path().join("report.md")).unwrap();
+    // The cautions of the product brief close both reports.
+    for text in [&page, &md] {
+        assert!(text.contains("Results support, and do not replace, a qualified analyst."));
+        assert!(text.contains("regulated release testing without local validation"));
+        assert!(text.contains("cryogens, nanoparticle handling"));
+    }
     let banner = md
         .find("check FAILED")
         .or_else(|| md.find("checks FAILED"))
