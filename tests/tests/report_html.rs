@@ -241,7 +241,7 @@ fn rendering_is_deterministic() {
             assert!(x == y, "{sub}/{n:?} differs between renders");
         }
     }
-    for f in ["report.md", "report.html"] {
+    for f in ["report.md", "report.html", "methods.txt"] {
         assert!(
             std::fs::read(a.path().join(f)).unwrap() == std::fs::read(b.path().join(f)).unwrap(),
             "{f} differs"
@@ -308,6 +308,12 @@ fn methods_paragraph_matches_snapshot() {
     );
     assert!(!text.contains("[shirley1972]") && text.contains("[1]"));
     assert!(text.contains("retort 0.1.0"));
+    // The same text is written beside the report.
+    let (dir, _) = rendered();
+    assert_eq!(
+        std::fs::read_to_string(dir.path().join("methods.txt")).unwrap(),
+        text
+    );
 }
 
 #[test]

@@ -12,7 +12,8 @@
 //! a histogram or a calibration curve (see [`figure::table_svg`]). What is tabled:
 //! per step, the published records (one row per item, one column per result and
 //! unit), fit statistics and fitted peaks, located peaks, and every Table value.
-//! Every table shown is also written as CSV with full precision.
+//! Every table shown is also written as CSV with full precision, and the methods
+//! paragraph with its reference list as plain text in `methods.txt`.
 //!
 //! Templates are tera templates embedded from `engine/templates/`; a folder given
 //! as `templates` replaces `report.html` and/or `report.md` when it holds them.
@@ -375,13 +376,26 @@ fn md_filter(v: &tera::Value, _args: &HashMap<String, tera::Value>) -> tera::Res
     Ok(tera::Value::String(markdown_escape(&s)))
 }
 
-fn anchor(parts: &[&str]) -> String {
-    let s = parts
-        .iter()
-        .map(|p| sanitize(p))
-        .collect::<Vec<_>>()
-        .join("-");
-    format!("s-{}", s.to_ascii_lowercase())
+/// Hands out unique element ids: `prefix-part-part`, lower case, `-2`... on repeats.
+#[derive(Default)]
+struct Anchors(BTreeSet<String>);
+
+impl Anchors {
+    fn take(&mut self, prefix: &str, parts: &[&str]) -> String {
+        let s = parts
+            .iter()
+            .map(|p| sanitize(p))
+            .collect::<Vec<_>>()
+            .join("-");
+        let base = format!("{prefix}-{}", s.to_ascii_lowercase());
+        let mut id = base.clone();
+        let mut n = 2;
+        while !self.0.insert(id.clone()) {
+            id = format!("{base}-{n}");
+            n += 1;
+        }
+        id
+    }
 }
 
 fn status_word(s: &NodeStatus) -> &'static str {
@@ -717,6 +731,7 @@ pub fn render(
         .collect();
 
     let mut fig_names = Names::default();
+    let mut anchors = Anchors::default();
     let mut table_names = Names::default();
     // The engine writes tables/results.csv itself.
     table_names.0.insert("results.csv".to_string());
@@ -734,7 +749,7 @@ pub fn render(
 
     for step in &record.steps {
         let stem = stem(step);
-        let anchor_id = anchor(&[&step.recipe, &step.id]);
+        let anchor_id = anchors.take("s", &[&step.recipe, &step.id]);
         let nodes: Vec<usize> = record
             .nodes
             .iter()
@@ -1131,7 +1146,7 @@ pub fn render(
             .filter(|(rid, _)| rid == &r.id)
             .map(|(_, v)| std::mem::take(v))
             .collect();
-        let anchor_id = anchor(&[&r.id]);
+        let anchor_id = anchors.take("r", &[&r.id]);
         let rnodes: Vec<&NodeRecord> = record.nodes.iter().filter(|n| n.recipe == r.id).collect();
         let rchecks: Vec<_> = record.checks.iter().filter(|c| c.recipe == r.id).collect();
         summaries.push(SummaryView {
@@ -1160,6 +1175,9 @@ pub fn render(
             steps,
         });
     }
+
+    // The methods paragraph on its own, for pasting into a manuscript.
+    write(&out.join("methods.txt"), methods.plain_text().as_bytes())?;
 
     let top = record.recipes.first();
     let view = View {
