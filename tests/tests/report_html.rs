@@ -165,6 +165,12 @@ fn failed_checks_and_failures_are_impossible_to_miss() {
     assert!(page.contains("not run: onset failed for film_c"));
 
     let md = std::fs::read_to_string(dir.path().join("report.md")).unwrap();
+    // The cautions of the product brief close both reports.
+    for text in [&page, &md] {
+        assert!(text.contains("Results support, and do not replace, a qualified analyst."));
+        assert!(text.contains("regulated release testing without local validation"));
+        assert!(text.contains("cryogens, nanoparticle handling"));
+    }
     let banner = md
         .find("check FAILED")
         .or_else(|| md.find("checks FAILED"))
@@ -235,7 +241,7 @@ fn rendering_is_deterministic() {
             assert!(x == y, "{sub}/{n:?} differs between renders");
         }
     }
-    for f in ["report.md", "report.html"] {
+    for f in ["report.md", "report.html", "methods.txt"] {
         assert!(
             std::fs::read(a.path().join(f)).unwrap() == std::fs::read(b.path().join(f)).unwrap(),
             "{f} differs"
@@ -302,6 +308,12 @@ fn methods_paragraph_matches_snapshot() {
     );
     assert!(!text.contains("[shirley1972]") && text.contains("[1]"));
     assert!(text.contains("retort 0.1.0"));
+    // The same text is written beside the report.
+    let (dir, _) = rendered();
+    assert_eq!(
+        std::fs::read_to_string(dir.path().join("methods.txt")).unwrap(),
+        text
+    );
 }
 
 #[test]
@@ -415,4 +427,35 @@ fn a_step_named_results_does_not_take_the_engines_file() {
     report::render(&f.record, &src, dir.path(), None).unwrap();
     assert!(!dir.path().join("tables/results.csv").exists());
     assert!(dir.path().join("tables/results-2.csv").is_file());
+}
+
+#[test]
+fn markdown_parses_as_commonmark_with_tables() {
+    // pulldown-cmark (CommonMark with the GFM table extension) stands for the
+    // common converters: every pipe table is a table, every figure an image whose
+    // file exists, and no data-derived text turns into raw HTML.
+    use pulldown_cmark::{Event, Options, Parser, Tag, TagEnd};
+    let (dir, summary) = rendered();
+    let md = std::fs::read_to_string(dir.path().join("report.md")).unwrap();
+    let (mut tables, mut images, mut in_code) = (0, 0, false);
+    for event in Parser::new_ext(&md, Options::ENABLE_TABLES) {
+        match event {
+            Event::Start(Tag::Table(_)) => tables += 1,
+            Event::Start(Tag::Image { dest_url, .. }) => {
+                images += 1;
+                assert!(dir.path().join(dest_url.as_ref()).is_file(), "{dest_url}");
+            }
+            Event::Start(Tag::CodeBlock(_)) => in_code = true,
+            Event::End(TagEnd::CodeBlock) => in_code = false,
+            Event::Html(h) | Event::InlineHtml(h) if !in_code => {
+                panic!("raw HTML in report.md: {h}")
+            }
+            _ => {}
+        }
+    }
+    assert_eq!(images, summary.figures);
+    // Every table of the report, plus checks, chapter summary, parameters and one
+    // provenance table per step.
+    let f = fixture();
+    assert_eq!(tables, summary.tables + 3 + f.record.steps.len());
 }

@@ -104,6 +104,34 @@ fn style_of(role: CurveRole, component: usize) -> (ShapeStyle, bool) {
     }
 }
 
+/// The upper corner where the data are lower: the legend covers less there.
+/// Compares the highest y in the leftmost and rightmost 35 % of the drawn x range.
+fn legend_corner(s: &Spectrum, reversed: bool) -> SeriesLabelPosition {
+    let Some((lo, hi)) = extent([s.x.as_slice()]) else {
+        return SeriesLabelPosition::UpperRight;
+    };
+    let span = hi - lo;
+    let (mut low_side, mut high_side) = (f64::NEG_INFINITY, f64::NEG_INFINITY);
+    for (x, y) in s.x.iter().zip(&s.y) {
+        if *x <= lo + 0.35 * span {
+            low_side = low_side.max(*y);
+        } else if *x >= hi - 0.35 * span {
+            high_side = high_side.max(*y);
+        }
+    }
+    // Drawn left is low x, unless the axis is reversed.
+    let (left, right) = if reversed {
+        (high_side, low_side)
+    } else {
+        (low_side, high_side)
+    };
+    if left < right {
+        SeriesLabelPosition::UpperLeft
+    } else {
+        SeriesLabelPosition::UpperRight
+    }
+}
+
 /// Where a straight guide line crosses y = 0, from its first and last finite points.
 pub fn guide_intercept(x: &[f64], guide: &[f64]) -> Option<f64> {
     let pts: Vec<(f64, f64)> = x
@@ -255,7 +283,7 @@ pub fn spectrum_svg(s: &Spectrum, points: usize, marks: &[(f64, f64)]) -> Fig<St
         if legend_data {
             chart
                 .configure_series_labels()
-                .position(SeriesLabelPosition::UpperRight)
+                .position(legend_corner(s, reversed))
                 .background_style(WHITE.mix(0.85))
                 .border_style(GREY)
                 .label_font((FONT, 14))

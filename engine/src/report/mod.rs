@@ -12,7 +12,8 @@
 //! a histogram or a calibration curve (see [`figure::table_svg`]). What is tabled:
 //! per step, the published records (one row per item, one column per result and
 //! unit), fit statistics and fitted peaks, located peaks, and every Table value.
-//! Every table shown is also written as CSV with full precision.
+//! Every table shown is also written as CSV with full precision, and the methods
+//! paragraph with its reference list as plain text in `methods.txt`.
 //!
 //! Templates are tera templates embedded from `engine/templates/`; a folder given
 //! as `templates` replaces `report.html` and/or `report.md` when it holds them.
@@ -26,6 +27,7 @@ pub mod methods;
 pub mod number;
 
 use crate::record::{ArtifactSource, NodeRecord, NodeStatus, RunRecord, StepRecord};
+use rayon::prelude::*;
 use serde::Serialize;
 use stages::{Artifact, ColumnData, Image, NoteLevel, Scalar, Value};
 use std::collections::{BTreeSet, HashMap};
@@ -374,13 +376,26 @@ fn md_filter(v: &tera::Value, _args: &HashMap<String, tera::Value>) -> tera::Res
     Ok(tera::Value::String(markdown_escape(&s)))
 }
 
-fn anchor(parts: &[&str]) -> String {
-    let s = parts
-        .iter()
-        .map(|p| sanitize(p))
-        .collect::<Vec<_>>()
-        .join("-");
-    format!("s-{}", s.to_ascii_lowercase())
+/// Hands out unique element ids: `prefix-part-part`, lower case, `-2`... on repeats.
+#[derive(Default)]
+struct Anchors(BTreeSet<String>);
+
+impl Anchors {
+    fn take(&mut self, prefix: &str, parts: &[&str]) -> String {
+        let s = parts
+            .iter()
+            .map(|p| sanitize(p))
+            .collect::<Vec<_>>()
+            .join("-");
+        let base = format!("{prefix}-{}", s.to_ascii_lowercase());
+        let mut id = base.clone();
+        let mut n = 2;
+        while !self.0.insert(id.clone()) {
+            id = format!("{base}-{n}");
+            n += 1;
+        }
+        id
+    }
 }
 
 fn status_word(s: &NodeStatus) -> &'static str {
@@ -446,6 +461,34 @@ fn input_files<'a>(
         );
     }
     files
+}
+
+/// The figure of one node, if its value is drawable: None when nothing is drawn,
+/// `Ok(None)` for a table that has no plottable shape, `Err` when drawing failed.
+fn draw_node(
+    i: usize,
+    record: &RunRecord,
+    loaded: &[Option<Artifact>],
+    by_key: &HashMap<&str, usize>,
+    points: usize,
+) -> Option<Result<Option<String>, String>> {
+    let art = loaded[i].as_ref()?;
+    match &art.value {
+        Value::Spectrum(s) | Value::Fit(stages::FitResult { spectrum: s, .. }) => {
+            Some(figure::spectrum_svg(s, points, &[]).map(Some))
+        }
+        Value::Peaks(pl) => {
+            let marks: Vec<(f64, f64)> = pl.peaks.iter().map(|p| (p.position, p.height)).collect();
+            Some(figure::spectrum_svg(&pl.spectrum, points, &marks).map(Some))
+        }
+        Value::Image(img) => Some(figure::micrograph_svg(Some(img), None).map(Some)),
+        Value::Labels(l) => {
+            let img = upstream_image(&record.nodes[i], by_key, record, loaded);
+            Some(figure::micrograph_svg(img.as_ref(), Some(l)).map(Some))
+        }
+        Value::Table(t) => Some(figure::table_svg(t, &art.results)),
+        Value::File(_) | Value::Summary => None,
+    }
 }
 
 /// Column key of a published record in a step's results table.
@@ -681,7 +724,14 @@ pub fn render(
         }
     };
 
+    // Figures are independent: draw them in parallel, in node order.
+    let mut drawings: Vec<Option<Result<Option<String>, String>>> = (0..record.nodes.len())
+        .into_par_iter()
+        .map(|i| draw_node(i, record, &loaded, &by_key, points))
+        .collect();
+
     let mut fig_names = Names::default();
+    let mut anchors = Anchors::default();
     let mut table_names = Names::default();
     // The engine writes tables/results.csv itself.
     table_names.0.insert("results.csv".to_string());
@@ -699,7 +749,7 @@ pub fn render(
 
     for step in &record.steps {
         let stem = stem(step);
-        let anchor_id = anchor(&[&step.recipe, &step.id]);
+        let anchor_id = anchors.take("s", &[&step.recipe, &step.id]);
         let nodes: Vec<usize> = record
             .nodes
             .iter()
@@ -834,28 +884,10 @@ pub fn render(
             if !item.is_empty() {
                 parts.push(&item);
             }
-            // Figures.
-            let drawn = match &art.value {
-                Value::Spectrum(s) | Value::Fit(stages::FitResult { spectrum: s, .. }) => {
-                    Some(figure::spectrum_svg(s, points, &[]).map(Some))
-                }
-                Value::Peaks(pl) => {
-                    let marks: Vec<(f64, f64)> =
-                        pl.peaks.iter().map(|p| (p.position, p.height)).collect();
-                    Some(figure::spectrum_svg(&pl.spectrum, points, &marks).map(Some))
-                }
-                Value::Image(img) => Some(figure::micrograph_svg(Some(img), None).map(Some)),
-                Value::Labels(l) => {
-                    let img = upstream_image(node, &by_key, record, &loaded);
-                    Some(figure::micrograph_svg(img.as_ref(), Some(l)).map(Some))
-                }
-                Value::Table(t) => Some(figure::table_svg(t, &art.results)),
-                Value::File(_) | Value::Summary => None,
-            };
+            let drawn = drawings[i].take();
             match drawn {
                 Some(Ok(Some(svg))) => {
                     let name = fig_names.take(&parts, "svg");
-                    write(&out.join("figures").join(&name), svg.as_bytes())?;
                     view.figures.push(FigureView {
                         file: format!("figures/{name}"),
                         svg,
@@ -1051,6 +1083,13 @@ pub fn render(
         step_views.push((step.recipe.clone(), view));
     }
 
+    // Write the figure files (in parallel: thousands of small files).
+    step_views
+        .par_iter()
+        .flat_map(|(_, v)| v.figures.par_iter())
+        .map(|f| write(&out.join(&f.file), f.svg.as_bytes()))
+        .collect::<Result<Vec<()>, ReportError>>()?;
+
     // Inline figures up to each step's share of the budget; link the rest.
     let drawing = step_svg.iter().filter(|v| !v.is_empty()).count().max(1);
     let share = INLINE_SVG_BYTES / drawing;
@@ -1107,7 +1146,7 @@ pub fn render(
             .filter(|(rid, _)| rid == &r.id)
             .map(|(_, v)| std::mem::take(v))
             .collect();
-        let anchor_id = anchor(&[&r.id]);
+        let anchor_id = anchors.take("r", &[&r.id]);
         let rnodes: Vec<&NodeRecord> = record.nodes.iter().filter(|n| n.recipe == r.id).collect();
         let rchecks: Vec<_> = record.checks.iter().filter(|c| c.recipe == r.id).collect();
         summaries.push(SummaryView {
@@ -1136,6 +1175,9 @@ pub fn render(
             steps,
         });
     }
+
+    // The methods paragraph on its own, for pasting into a manuscript.
+    write(&out.join("methods.txt"), methods.plain_text().as_bytes())?;
 
     let top = record.recipes.first();
     let view = View {

@@ -2,6 +2,7 @@
 //! fits, optical band gap with a calibration, particle sizing), a failed node with
 //! a skipped dependent, a passing and a failing check and a sample whose name is
 //! markup. Every number here is invented for rendering; none is a reference value.
+//! The citations are written from memory and serve only as text to render.
 
 #![allow(dead_code)]
 
