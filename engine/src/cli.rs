@@ -317,10 +317,6 @@ fn run_plan(a: &RunArgs, plan: &Plan) -> Result<Exit, String> {
         plan, &graph, &outcomes, checks, started, finished, &host, &cache.dir,
     );
     let results = outputs::results_json(plan, &graph, &outcomes);
-    let out = a
-        .out
-        .clone()
-        .unwrap_or_else(|| plan.policy.root.join("out"));
     let tmp = outputs::temp_beside(&out)?;
     outputs::write(tmp.path(), "results.json", &outputs::json_bytes(&results)?)?;
     outputs::write(
@@ -328,11 +324,9 @@ fn run_plan(a: &RunArgs, plan: &Plan) -> Result<Exit, String> {
         "tables/results.csv",
         &outputs::results_csv(&results)?,
     )?;
-    outputs::write(
-        tmp.path(),
-        "provenance.json",
-        &outputs::json_bytes(&provenance::document(plan, &graph, &outcomes, &host))?,
-    )?;
+    let prov = provenance::document(plan, &graph, &outcomes, &host);
+    outputs::write(tmp.path(), "provenance.json", &outputs::json_bytes(&prov)?)?;
+    phases.mark("provenance");
     outputs::write(tmp.path(), "run.json", &outputs::json_bytes(&record)?)?;
     let source = |key: &str| match cache.load(key) {
         crate::cache::Lookup::Found(b) => Some(b.1),
