@@ -505,3 +505,50 @@ fn temporary_folders_left_by_a_killed_run_are_cleaned_up() {
         .collect();
     assert!(left.is_empty(), "{left:?}");
 }
+
+#[test]
+fn files_outside_the_recipe_folder_need_allow_outside_even_through_a_symlink() {
+    let t = fixture("basic");
+    let sub = t.path().join("sub");
+    std::fs::create_dir_all(&sub).unwrap();
+    let recipe = "id: outside\nsamples:\n  s: ../data/*.csv\nsteps:\n  raw: { stage: import.delimited, from: s }\n";
+    std::fs::write(sub.join("up.yaml"), recipe).unwrap();
+    let r = run(&sub, &["check", "up.yaml"]);
+    assert_eq!(r.code, 2);
+    assert!(r
+        .stderr
+        .contains("up.yaml:3:6: error: `../data/*.csv` is outside the recipe's folder"));
+    assert_eq!(run(&sub, &["run", "up.yaml", "--allow-outside"]).code, 0);
+    #[cfg(unix)]
+    {
+        std::os::unix::fs::symlink(t.path().join("data"), sub.join("link")).unwrap();
+        let recipe = "id: link\nsamples:\n  s: link/*.csv\nsteps:\n  raw: { stage: import.delimited, from: s }\n";
+        std::fs::write(sub.join("link.yaml"), recipe).unwrap();
+        let r = run(&sub, &["check", "link.yaml"]);
+        assert_eq!(r.code, 2);
+        assert!(r.stderr.contains("is outside the recipe's folder"));
+        assert_eq!(
+            run(&sub, &["check", "link.yaml", "--allow-outside"]).code,
+            0
+        );
+    }
+}
+
+#[test]
+fn two_runs_at_once_on_one_cache_both_succeed_with_the_same_results() {
+    let t = fixture("basic");
+    let spawn = |out: &str| {
+        std::process::Command::new(binary())
+            .current_dir(t.path())
+            .args(["run", "recipe.yaml", "--quiet", "--out", out])
+            .spawn()
+            .unwrap()
+    };
+    let (mut a, mut b) = (spawn("a"), spawn("b"));
+    assert!(a.wait().unwrap().success());
+    assert!(b.wait().unwrap().success());
+    assert_eq!(results(&t.path().join("a")), results(&t.path().join("b")));
+    assert_eq!(run(t.path(), &["run", "recipe.yaml", "--out", "c"]).code, 0);
+    assert_eq!(counts(&t.path().join("c")), (0, 10, 0, 0));
+    assert_eq!(results(&t.path().join("a")), results(&t.path().join("c")));
+}
