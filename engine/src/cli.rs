@@ -317,10 +317,6 @@ fn run_plan(a: &RunArgs, plan: &Plan) -> Result<Exit, String> {
         plan, &graph, &outcomes, checks, started, finished, &host, &cache.dir,
     );
     let results = outputs::results_json(plan, &graph, &outcomes);
-    let out = a
-        .out
-        .clone()
-        .unwrap_or_else(|| plan.policy.root.join("out"));
     let tmp = outputs::temp_beside(&out)?;
     outputs::write(tmp.path(), "results.json", &outputs::json_bytes(&results)?)?;
     outputs::write(
@@ -328,11 +324,9 @@ fn run_plan(a: &RunArgs, plan: &Plan) -> Result<Exit, String> {
         "tables/results.csv",
         &outputs::results_csv(&results)?,
     )?;
-    outputs::write(
-        tmp.path(),
-        "provenance.json",
-        &outputs::json_bytes(&provenance::document(plan, &graph, &outcomes, &host))?,
-    )?;
+    let prov = provenance::document(plan, &graph, &outcomes, &host);
+    outputs::write(tmp.path(), "provenance.json", &outputs::json_bytes(&prov)?)?;
+    phases.mark("provenance");
     outputs::write(tmp.path(), "run.json", &outputs::json_bytes(&record)?)?;
     let source = |key: &str| match cache.load(key) {
         crate::cache::Lookup::Found(b) => Some(b.1),
@@ -558,36 +552,73 @@ fn report_cmd(outdir: &Path) -> Exit {
     }
 }
 
-/// A short type name from an option's JSON schema.
-fn type_of(schema: &serde_json::Value) -> String {
-    if let Some(t) = schema.get("type") {
-        return match t {
-            serde_json::Value::Array(v) => v
-                .iter()
-                .filter_map(|x| x.as_str())
-                .filter(|s| *s != "null")
-                .collect::<Vec<_>>()
-                .join(" | "),
-            other => other.as_str().unwrap_or("").to_string(),
+/// A short type name from an option's JSON schema (`$ref`s resolved in `root`).
+fn type_of(schema: &serde_json::Value, root: &serde_json::Value) -> String {
+    use serde_json::Value as V;
+    if let Some(r) = schema.get("$ref").and_then(V::as_str) {
+        let name = r.rsplit('/').next().unwrap_or(r);
+        return match root.get("$defs").and_then(|d| d.get(name)) {
+            Some(def) => type_of(def, root),
+            None => name.to_string(),
         };
     }
-    if let Some(r) = schema.get("$ref").and_then(|r| r.as_str()) {
-        return r.rsplit('/').next().unwrap_or(r).to_string();
+    if let Some(v) = schema.get("enum").and_then(V::as_array) {
+        let names: Vec<String> = v
+            .iter()
+            .map(|x| x.as_str().map_or(x.to_string(), str::to_string))
+            .collect();
+        return format!("one of {}", names.join(" | "));
     }
-    for k in ["anyOf", "oneOf"] {
-        if let Some(v) = schema.get(k).and_then(|v| v.as_array()) {
-            return v
+    for k in ["oneOf", "anyOf"] {
+        if let Some(v) = schema.get(k).and_then(V::as_array) {
+            let mut consts: Vec<String> = Vec::new();
+            let mut all_const = true;
+            for x in v {
+                match (x.get("const"), x.get("enum").and_then(V::as_array)) {
+                    (Some(c), _) => consts.push(c.as_str().map_or(c.to_string(), str::to_string)),
+                    (None, Some(e)) => consts.extend(
+                        e.iter()
+                            .map(|c| c.as_str().map_or(c.to_string(), str::to_string)),
+                    ),
+                    _ => all_const = false,
+                }
+            }
+            if all_const {
+                return format!("one of {}", consts.join(" | "));
+            }
+            let parts: Vec<String> = v
                 .iter()
-                .map(type_of)
-                .filter(|s| s != "null" && !s.is_empty())
-                .collect::<Vec<_>>()
-                .join(" | ");
+                .map(|x| type_of(x, root))
+                .filter(|t| t != "null" && !t.is_empty())
+                .collect();
+            return parts.join(" or ");
         }
     }
-    if schema.get("enum").is_some() {
-        return "choice".into();
+    match schema.get("type") {
+        Some(V::Array(v)) => {
+            let named: Vec<&str> = v
+                .iter()
+                .filter_map(V::as_str)
+                .filter(|s| *s != "null")
+                .collect();
+            if named == ["array"] {
+                let mut one = schema.clone();
+                one["type"] = V::String("array".into());
+                type_of(&one, root)
+            } else {
+                named.join(" or ")
+            }
+        }
+        Some(V::String(t)) if t == "array" => match schema.get("items") {
+            Some(items) => match (schema.get("minItems"), schema.get("maxItems")) {
+                (Some(a), Some(b)) if a == b => format!("{a} {}s", type_of(items, root)),
+                _ => format!("list of {}", type_of(items, root)),
+            },
+            None => "list".into(),
+        },
+        Some(V::String(t)) => t.clone(),
+        _ => String::new(),
     }
-    String::new()
 }
 
 fn stage_json(s: &dyn Stage) -> serde_json::Value {
@@ -599,7 +630,7 @@ fn stage_json(s: &dyn Stage) -> serde_json::Value {
         for (name, p) in props {
             options.push(serde_json::json!({
                 "name": name,
-                "type": type_of(p),
+                "type": type_of(p, &schema),
                 "default": p.get("default").cloned().or_else(|| defaults.as_ref().and_then(|d| d.get(name).cloned())),
                 "unit": p.get("x-unit"),
                 "description": p.get("description"),
@@ -658,7 +689,7 @@ fn stages_cmd(name: Option<&str>, json: bool, catalog: &[&'static dyn Stage]) ->
     }
     for d in &docs {
         let s = |v: &serde_json::Value| match v {
-            serde_json::Value::Null => String::new(),
+            serde_json::Value::Null => "none".to_string(),
             serde_json::Value::String(t) => t.clone(),
             other => other.to_string(),
         };
@@ -685,7 +716,7 @@ fn stages_cmd(name: Option<&str>, json: bool, catalog: &[&'static dyn Stage]) ->
         }
         println!("gives: {}\n\noptions:", s(&d["output"]));
         for o in d["options"].as_array().into_iter().flatten() {
-            let unit = s(&o["unit"]);
+            let unit = o["unit"].as_str().unwrap_or("").to_string();
             println!(
                 "  {:<14} {:<18} default {}{}\n      {}",
                 s(&o["name"]),

@@ -176,7 +176,7 @@ pub enum Problem {
     UnusedSampleSet {
         set: String,
     },
-    /// Warning: a step that reads no items and publishes nothing downstream.
+    /// Warning: a recipe (with its includes) that declares no steps.
     NoSteps,
 }
 

@@ -38,7 +38,16 @@ pub fn results_json(plan: &Plan, graph: &Graph, outcomes: &[Outcome]) -> Value {
             _ => {}
         }
     }
-    json!({ "schema_version": RESULTS_SCHEMA_VERSION, "recipe": plan.recipes.first().map(|r| r.id.clone()), "results": results, "failures": failures })
+    // Built by moving the lists in (json! would copy them through serialization).
+    let mut doc = serde_json::Map::new();
+    doc.insert("schema_version".into(), json!(RESULTS_SCHEMA_VERSION));
+    doc.insert(
+        "recipe".into(),
+        json!(plan.recipes.first().map(|r| r.id.clone())),
+    );
+    doc.insert("results".into(), Value::Array(results));
+    doc.insert("failures".into(), Value::Array(failures));
+    Value::Object(doc)
 }
 
 pub fn results_csv(results: &Value) -> Result<Vec<u8>, String> {

@@ -1305,7 +1305,7 @@ impl<'a> Resolver<'a> {
             }
         };
         let gpos = self.val_pos(r, &gpath);
-        if !self.policy.written_ok(&pattern) {
+        if !self.policy.written_ok(&l.dir, &pattern) {
             self.err(r, Problem::OutsideTree { path: pattern }, gpos);
             return None;
         }

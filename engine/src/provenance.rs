@@ -97,19 +97,26 @@ pub fn document(plan: &Plan, graph: &Graph, outcomes: &[Outcome], host: &str) ->
             );
         }
     }
-    json!({
-        "prefix": { "retort": "urn:retort:", "xsd": "http://www.w3.org/2001/XMLSchema#" },
-        "agent": { "retort:engine": {
+    // The maps are moved in (json! would copy them through serialization).
+    let mut doc = Map::new();
+    doc.insert(
+        "prefix".into(),
+        json!({ "retort": "urn:retort:", "xsd": "http://www.w3.org/2001/XMLSchema#" }),
+    );
+    doc.insert(
+        "agent".into(),
+        json!({ "retort:engine": {
             "prov:type": "prov:SoftwareAgent",
             "prov:label": "retort",
             "retort:version": crate::VERSION,
             "retort:host": host,
             "retort:schema_version": PROVENANCE_SCHEMA_VERSION,
-        } },
-        "entity": entity,
-        "activity": activity,
-        "used": used,
-        "wasGeneratedBy": generated,
-        "wasAssociatedWith": associated,
-    })
+        } }),
+    );
+    doc.insert("entity".into(), Value::Object(entity));
+    doc.insert("activity".into(), Value::Object(activity));
+    doc.insert("used".into(), Value::Object(used));
+    doc.insert("wasGeneratedBy".into(), Value::Object(generated));
+    doc.insert("wasAssociatedWith".into(), Value::Object(associated));
+    Value::Object(doc)
 }

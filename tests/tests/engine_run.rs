@@ -328,7 +328,7 @@ fn sigkill_mid_run_then_rerun_gives_the_results_of_a_clean_run() {
     // Enough work that the run is still going when it is killed.
     for i in 0..400 {
         let mut s = String::from("energy_eV,absorbance\n");
-        for j in 0..400 {
+        for j in 0..2000 {
             s.push_str(&format!(
                 "{},{}\n",
                 1.0 + j as f64 * 0.01,
@@ -347,7 +347,7 @@ fn sigkill_mid_run_then_rerun_gives_the_results_of_a_clean_run() {
     let segments = t.path().join(".retort/segments");
     let count = || std::fs::read_dir(&segments).map_or(0, |d| d.count());
     let t0 = std::time::Instant::now();
-    while count() < 2 && t0.elapsed() < Duration::from_secs(60) {
+    while count() < 1 && t0.elapsed() < Duration::from_secs(60) {
         std::thread::sleep(Duration::from_millis(5));
     }
     child.kill().unwrap(); // SIGKILL on Unix
@@ -504,4 +504,51 @@ fn temporary_folders_left_by_a_killed_run_are_cleaned_up() {
         .filter(|n| n.starts_with(".out."))
         .collect();
     assert!(left.is_empty(), "{left:?}");
+}
+
+#[test]
+fn files_outside_the_recipe_folder_need_allow_outside_even_through_a_symlink() {
+    let t = fixture("basic");
+    let sub = t.path().join("sub");
+    std::fs::create_dir_all(&sub).unwrap();
+    let recipe = "id: outside\nsamples:\n  s: ../data/*.csv\nsteps:\n  raw: { stage: import.delimited, from: s }\n";
+    std::fs::write(sub.join("up.yaml"), recipe).unwrap();
+    let r = run(&sub, &["check", "up.yaml"]);
+    assert_eq!(r.code, 2);
+    assert!(r
+        .stderr
+        .contains("up.yaml:3:6: error: `../data/*.csv` is outside the recipe's folder"));
+    assert_eq!(run(&sub, &["run", "up.yaml", "--allow-outside"]).code, 0);
+    #[cfg(unix)]
+    {
+        std::os::unix::fs::symlink(t.path().join("data"), sub.join("link")).unwrap();
+        let recipe = "id: link\nsamples:\n  s: link/*.csv\nsteps:\n  raw: { stage: import.delimited, from: s }\n";
+        std::fs::write(sub.join("link.yaml"), recipe).unwrap();
+        let r = run(&sub, &["check", "link.yaml"]);
+        assert_eq!(r.code, 2);
+        assert!(r.stderr.contains("is outside the recipe's folder"));
+        assert_eq!(
+            run(&sub, &["check", "link.yaml", "--allow-outside"]).code,
+            0
+        );
+    }
+}
+
+#[test]
+fn two_runs_at_once_on_one_cache_both_succeed_with_the_same_results() {
+    let t = fixture("basic");
+    let spawn = |out: &str| {
+        std::process::Command::new(binary())
+            .current_dir(t.path())
+            .args(["run", "recipe.yaml", "--quiet", "--out", out])
+            .spawn()
+            .unwrap()
+    };
+    let (mut a, mut b) = (spawn("a"), spawn("b"));
+    assert!(a.wait().unwrap().success());
+    assert!(b.wait().unwrap().success());
+    assert_eq!(results(&t.path().join("a")), results(&t.path().join("b")));
+    assert_eq!(run(t.path(), &["run", "recipe.yaml", "--out", "c"]).code, 0);
+    assert_eq!(counts(&t.path().join("c")), (0, 10, 0, 0));
+    assert_eq!(results(&t.path().join("a")), results(&t.path().join("c")));
 }

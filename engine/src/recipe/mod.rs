@@ -46,12 +46,25 @@ impl PathPolicy {
     pub fn permits(&self, canonical: &Path) -> bool {
         self.allow_outside || canonical.starts_with(&self.root)
     }
-    /// Whether a path written in a recipe is relative and does not climb with `..`.
-    pub fn written_ok(&self, written: &str) -> bool {
-        let p = Path::new(written);
-        self.allow_outside
-            || p.components()
-                .all(|c| matches!(c, Component::Normal(_) | Component::CurDir))
+    /// Whether a path (or glob) written in a recipe in folder `base` stays inside the
+    /// root, judged on its literal part (up to the first wildcard) with `..` resolved
+    /// lexically. Matched files are checked again after resolving symlinks.
+    pub fn written_ok(&self, base: &Path, written: &str) -> bool {
+        if self.allow_outside {
+            return true;
+        }
+        let mut p = PathBuf::new();
+        for c in base.join(written).components() {
+            match c {
+                Component::ParentDir => {
+                    p.pop();
+                }
+                Component::CurDir => {}
+                Component::Normal(n) if n.to_string_lossy().contains(['*', '?', '[', '{']) => break,
+                other => p.push(other.as_os_str()),
+            }
+        }
+        p.starts_with(&self.root)
     }
     /// A path as shown to people: relative to the root when inside it.
     pub fn shown(&self, canonical: &Path) -> String {
@@ -207,7 +220,7 @@ fn load_one(
                 continue;
             }
         };
-        if !policy.written_ok(&path) {
+        if !policy.written_ok(&dir, &path) {
             diags.push(Diagnostic::error(
                 Problem::OutsideTree { path },
                 Some(&shown),

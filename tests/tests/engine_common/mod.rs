@@ -40,8 +40,15 @@ pub fn binary() -> PathBuf {
     BUILT
         .get_or_init(|| {
             let cargo = std::env::var("CARGO").unwrap_or_else(|_| "cargo".into());
+            // Build with the profile these tests were built with.
+            let release = std::env::current_exe()
+                .is_ok_and(|p| p.components().any(|c| c.as_os_str() == "release"));
+            let mut args = vec!["build", "--quiet", "-p", "engine", "--bin", "retort"];
+            if release {
+                args.push("--release");
+            }
             let status = std::process::Command::new(cargo)
-                .args(["build", "--quiet", "-p", "engine", "--bin", "retort"])
+                .args(&args)
                 .current_dir(env!("CARGO_MANIFEST_DIR"))
                 .status()
                 .expect("cargo runs");
