@@ -324,10 +324,15 @@ fn run_plan(a: &RunArgs, plan: &Plan) -> Result<Exit, String> {
         "tables/results.csv",
         &outputs::results_csv(&results)?,
     )?;
-    let prov = provenance::document(plan, &graph, &outcomes, &host);
-    outputs::write(tmp.path(), "provenance.json", &outputs::json_bytes(&prov)?)?;
+    let prov = provenance::Document {
+        plan,
+        graph: &graph,
+        outcomes: &outcomes,
+        host: &host,
+    };
+    outputs::write_json(tmp.path(), "provenance.json", &prov)?;
     phases.mark("provenance");
-    outputs::write(tmp.path(), "run.json", &outputs::json_bytes(&record)?)?;
+    outputs::write_json(tmp.path(), "run.json", &record)?;
     let source = |key: &str| match cache.load(key) {
         crate::cache::Lookup::Found(b) => Some(b.1),
         _ => None,
