@@ -18,6 +18,8 @@ pub mod recipe;
 pub mod record;
 pub mod report;
 pub mod scheduler;
+#[cfg(test)]
+mod testing;
 pub mod timefmt;
 
 /// The engine version, recorded in provenance and run.json.
