@@ -266,7 +266,9 @@ pub fn expand(plan: &Plan, index: &mut StatIndex) -> Result<Graph, String> {
                                 let name = match s {
                                     Src::Set(x) => plan.sets[*x].name.clone(),
                                     Src::Step(j) => {
-                                        let ns = &plan.recipes[plan.steps[*j].recipe].namespace;
+                                        // Named as the consuming step's recipe writes it:
+                                        // `c1s_area` inside xps, `xps/c1s_area` from a chapter.
+                                        let ns = &plan.recipes[step.recipe].namespace;
                                         plan.steps[*j]
                                             .id
                                             .strip_prefix(ns.as_str())
