@@ -352,6 +352,12 @@ impl Scanner<'_> {
                     let key_pos = pos(cur.0, start, end - start);
                     let p = self.note_key(path, &key, key_pos);
                     cur.1 = end;
+                    if end == start && self.peek(*cur) != Some(':') {
+                        // A stray closer or separator where a key belongs (`{ ] }`):
+                        // step over it, or this loop would never end.
+                        cur.1 += 1;
+                        continue;
+                    }
                     if self.peek(*cur) == Some(':') {
                         cur.1 += 1;
                         self.skip_ws(cur);
@@ -572,6 +578,13 @@ mod tests {
         fn never_panics_on_yaml_like_noise(text in "[a-c:{}\\[\\], \n#|>'\"-]{0,80}") {
             let _ = Spans::scan(&text);
         }
+    }
+
+    #[test]
+    fn a_stray_closer_in_a_flow_map_does_not_hang() {
+        // Found by the property test below: a `]` where a key belongs looped forever.
+        let _ = Spans::scan("{'\n}}}:}--\"|\"{]\">->c: {]>,\"'c]#a}a}{");
+        let _ = Spans::scan("steps: { a: { ] } }\n");
     }
 
     #[test]
