@@ -210,8 +210,9 @@ fn a_failing_item_exits_1_and_its_siblings_results_are_present() {
         "the failure names stage input, file and line"
     );
     let out = t.path().join("out");
-    // 4 raw (1 failed) + 3 smooth + 3 peak ran; film_d's smooth and peak and the table skipped.
-    assert_eq!(counts(&out), (9, 0, 1, 3));
+    // 4 raw (1 failed) + 3 smooth + 3 peak + the table ran; film_d's smooth and peak were
+    // skipped. The gathering table goes on without film_d and says so in a note.
+    assert_eq!(counts(&out), (10, 0, 1, 2));
     let v = read_json(&out.join("results.json"));
     for item in ["film_a", "film_b", "film_c"] {
         assert!(v["results"]
@@ -225,9 +226,20 @@ fn a_failing_item_exits_1_and_its_siblings_results_are_present() {
     assert_eq!(f["item"], "film_d");
     assert_eq!(f["stage"], "import.delimited");
     assert_eq!(f["status"], "failed");
-    assert!(failures
+    assert!(!failures.iter().any(|f| f["step"] == "table"));
+    let run_json = read_json(&out.join("run.json"));
+    let table = run_json["nodes"]
+        .as_array()
+        .unwrap()
         .iter()
-        .any(|f| f["step"] == "table" && f["status"] == "skipped"));
+        .find(|n| n["step"] == "table")
+        .unwrap();
+    assert_eq!(table["status"], "Ran");
+    let md = std::fs::read_to_string(out.join("report.md")).unwrap();
+    assert!(
+        md.contains("gathered without 1 input(s) that did not finish: raw"),
+        "the table's note names the missing item"
+    );
     // --fail-fast stops scheduling after the first failure.
     let r = run(
         t.path(),
