@@ -11,6 +11,7 @@ pub mod cli;
 pub mod diagnostics;
 pub mod exit;
 pub mod graph;
+pub mod lock;
 pub mod outputs;
 pub mod plan;
 pub mod provenance;
@@ -19,6 +20,7 @@ pub mod record;
 pub mod report;
 pub mod scheduler;
 pub mod timefmt;
+pub mod verify;
 
 /// The engine version, recorded in provenance and run.json.
 pub const VERSION: &str = env!("CARGO_PKG_VERSION");
