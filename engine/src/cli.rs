@@ -43,6 +43,23 @@ pub enum Command {
         #[arg(long, value_name = "N")]
         jobs: Option<usize>,
     },
+    /// Pack the recipe, its includes, its data and its latest results into a zip with RO-Crate metadata.
+    Bundle {
+        #[command(flatten)]
+        recipe: RecipeArgs,
+        /// The zip file to write.
+        #[arg(short = 'o', long = "output", value_name = "FILE.zip")]
+        output: PathBuf,
+        /// The run's output folder (default: out/ beside the recipe).
+        #[arg(long, value_name = "DIR")]
+        out: Option<PathBuf>,
+        /// Leave the input data out; record only their paths, sizes and blake3 hashes.
+        #[arg(long)]
+        no_data: bool,
+        /// License of the bundle, as a URL (for example an SPDX license page).
+        #[arg(long, value_name = "URL")]
+        license: Option<String>,
+    },
     /// Pin stage versions, input-file hashes and included recipes in NAME.lock beside the recipe.
     Lock(RecipeArgs),
     /// The stage catalog: options, units, defaults, method sources.
@@ -118,6 +135,20 @@ pub fn main_with(args: Vec<String>, catalog: &[&'static dyn Stage]) -> Exit {
         Command::Plan(a) => plan_cmd(&a, catalog),
         Command::Verify { recipe, jobs } => crate::verify::command(&recipe, jobs, catalog),
         Command::Lock(a) => crate::lock::command(&a, catalog),
+        Command::Bundle {
+            recipe,
+            output,
+            out,
+            no_data,
+            license,
+        } => crate::bundle::command(
+            &recipe,
+            &output,
+            out.as_deref(),
+            no_data,
+            license.as_deref(),
+            catalog,
+        ),
         Command::Stages { name, json } => stages_cmd(name.as_deref(), json, catalog),
         Command::Report { outdir } => report_cmd(&outdir),
     }

@@ -6,6 +6,7 @@
 //! against the content-addressed [`cache`], and writes the outputs ([`outputs`],
 //! [`provenance`], [`report`]). [`cli`] is the only layer that prints.
 
+pub mod bundle;
 pub mod cache;
 pub mod cli;
 pub mod diagnostics;
