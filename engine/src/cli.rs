@@ -69,7 +69,15 @@ pub enum Command {
         /// As JSON.
         #[arg(long)]
         json: bool,
+        /// The whole catalog as Markdown (docs/stages.md).
+        #[arg(long, conflicts_with_all = ["json", "methods"])]
+        markdown: bool,
+        /// Every method with its published sources, as Markdown (docs/methods.md).
+        #[arg(long, conflicts_with = "json")]
+        methods: bool,
     },
+    /// Print the JSON Schema (draft 2020-12) of the recipe format, for editors.
+    Schema,
     /// Re-render the report of a finished run from its run.json and the cache.
     Report {
         /// The output folder of a run.
@@ -149,7 +157,18 @@ pub fn main_with(args: Vec<String>, catalog: &[&'static dyn Stage]) -> Exit {
             license.as_deref(),
             catalog,
         ),
-        Command::Stages { name, json } => stages_cmd(name.as_deref(), json, catalog),
+        Command::Stages {
+            markdown: true, ..
+        } => {
+            print!("{}", crate::catalog_md::stages_markdown(catalog));
+            Exit::Ok
+        }
+        Command::Stages { methods: true, .. } => {
+            print!("{}", crate::catalog_md::methods_markdown(catalog));
+            Exit::Ok
+        }
+        Command::Stages { name, json, .. } => stages_cmd(name.as_deref(), json, catalog),
+        Command::Schema => crate::schema::command(catalog),
         Command::Report { outdir } => report_cmd(&outdir),
     }
 }
@@ -673,7 +692,7 @@ fn type_of(schema: &serde_json::Value, root: &serde_json::Value) -> String {
     }
 }
 
-fn stage_json(s: &dyn Stage) -> serde_json::Value {
+pub(crate) fn stage_json(s: &dyn Stage) -> serde_json::Value {
     let info = s.info();
     let schema = serde_json::to_value(s.options_schema()).unwrap_or_default();
     let defaults = s.resolve_options(&serde_json::Value::Null).ok();

@@ -8,6 +8,7 @@
 
 pub mod bundle;
 pub mod cache;
+pub mod catalog_md;
 pub mod cli;
 pub mod diagnostics;
 pub mod exit;
@@ -20,6 +21,7 @@ pub mod recipe;
 pub mod record;
 pub mod report;
 pub mod scheduler;
+pub mod schema;
 pub mod timefmt;
 pub mod verify;
 
