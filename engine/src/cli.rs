@@ -76,6 +76,17 @@ pub enum Command {
         #[arg(long, conflicts_with = "json")]
         methods: bool,
     },
+    /// Write a commented starter recipe for a technique (list them without TECHNIQUE).
+    New {
+        /// uvvis, xps, nmr, eds, xrd, particles, afm, ediff.
+        technique: Option<String>,
+        /// Write to this file instead of standard output.
+        #[arg(short = 'o', long = "output", value_name = "FILE")]
+        output: Option<PathBuf>,
+        /// Replace the file if it exists.
+        #[arg(long)]
+        force: bool,
+    },
     /// Print the JSON Schema (draft 2020-12) of the recipe format, for editors.
     Schema,
     /// Re-render the report of a finished run from its run.json and the cache.
@@ -169,6 +180,11 @@ pub fn main_with(args: Vec<String>, catalog: &[&'static dyn Stage]) -> Exit {
         }
         Command::Stages { name, json, .. } => stages_cmd(name.as_deref(), json, catalog),
         Command::Schema => crate::schema::command(catalog),
+        Command::New {
+            technique,
+            output,
+            force,
+        } => crate::scaffold::command(technique.as_deref(), output.as_deref(), force),
         Command::Report { outdir } => report_cmd(&outdir),
     }
 }

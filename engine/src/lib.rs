@@ -20,6 +20,7 @@ pub mod provenance;
 pub mod recipe;
 pub mod record;
 pub mod report;
+pub mod scaffold;
 pub mod scheduler;
 pub mod schema;
 pub mod timefmt;
