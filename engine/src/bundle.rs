@@ -184,12 +184,20 @@ fn file_entity(path: &str, bytes: u64, hash: &str, name: Option<&str>) -> Value 
 pub fn metadata(plan: &Plan, c: &Contents, run: &RunRecord, license: Option<&str>) -> Value {
     let top = plan.recipes.first();
     let title = top
-        .map(|r| if r.title.is_empty() { r.id.clone() } else { r.title.clone() })
+        .map(|r| {
+            if r.title.is_empty() {
+                r.id.clone()
+            } else {
+                r.title.clone()
+            }
+        })
         .unwrap_or_default();
     let description = top
         .map(|r| r.description.trim().to_string())
         .filter(|d| !d.is_empty())
-        .unwrap_or_else(|| format!("A retort recipe, its inputs and the results of its run: {title}."));
+        .unwrap_or_else(|| {
+            format!("A retort recipe, its inputs and the results of its run: {title}.")
+        });
     let recipe_id = c.recipes.first().cloned().unwrap_or_default();
     let app_id = format!("#retort-{}", crate::VERSION);
     let lang_id = "#retort-recipe-format";
@@ -197,14 +205,12 @@ pub fn metadata(plan: &Plan, c: &Contents, run: &RunRecord, license: Option<&str
         Some(url) => json!({ "@id": url }),
         None => json!({ "@id": "#license-not-stated" }),
     };
-    let mut graph = vec![
-        json!({
-            "@id": METADATA,
-            "@type": "CreativeWork",
-            "conformsTo": { "@id": SPEC },
-            "about": { "@id": "./" },
-        }),
-    ];
+    let mut graph = vec![json!({
+        "@id": METADATA,
+        "@type": "CreativeWork",
+        "conformsTo": { "@id": SPEC },
+        "about": { "@id": "./" },
+    })];
     let mut parts: Vec<String> = c.files.keys().cloned().collect();
     parts.extend(c.omitted.keys().cloned());
     parts.sort();
@@ -240,13 +246,15 @@ pub fn metadata(plan: &Plan, c: &Contents, run: &RunRecord, license: Option<&str
             e["programmingLanguage"] = json!({ "@id": lang_id });
             e["description"] = json!("A recipe included by the main recipe.");
         } else if c.lock.as_deref() == Some(path.as_str()) {
-            e["description"] = json!("The recipe's lock file: pinned stage versions and input hashes.");
+            e["description"] =
+                json!("The recipe's lock file: pinned stage versions and input hashes.");
         }
         graph.push(e);
     }
     for (path, (hash, bytes)) in &c.omitted {
         let mut e = file_entity(path, *bytes, hash, None);
-        e["description"] = json!("Input file left out of the bundle (--no-data); its size and hash identify it.");
+        e["description"] =
+            json!("Input file left out of the bundle (--no-data); its size and hash identify it.");
         graph.push(e);
     }
     // Stage versions used, as parts of the application.
@@ -291,10 +299,12 @@ pub fn metadata(plan: &Plan, c: &Contents, run: &RunRecord, license: Option<&str
             "description": "The bundle's author gave no license (retort bundle --license URL); ask the authors before reuse.",
         }));
     }
-    let failed = run
-        .nodes
-        .iter()
-        .any(|n| matches!(n.status, NodeStatus::Failed { .. } | NodeStatus::Skipped { .. }));
+    let failed = run.nodes.iter().any(|n| {
+        matches!(
+            n.status,
+            NodeStatus::Failed { .. } | NodeStatus::Skipped { .. }
+        )
+    });
     let checks_failed = run.checks.iter().filter(|c| !c.passed).count();
     graph.push(json!({
         "@id": "#run",
@@ -324,7 +334,8 @@ pub fn write_zip(target: &Path, files: &BTreeMap<String, Vec<u8>>) -> Result<(),
         .parent()
         .filter(|p| !p.as_os_str().is_empty())
         .unwrap_or(Path::new("."));
-    let tmp = tempfile::NamedTempFile::new_in(parent).map_err(|e| format!("{}: {e}", parent.display()))?;
+    let tmp = tempfile::NamedTempFile::new_in(parent)
+        .map_err(|e| format!("{}: {e}", parent.display()))?;
     let mut w = zip::ZipWriter::new(tmp.reopen().map_err(|e| e.to_string())?);
     let opts = SimpleFileOptions::default()
         .compression_method(zip::CompressionMethod::Deflated)
@@ -333,7 +344,8 @@ pub fn write_zip(target: &Path, files: &BTreeMap<String, Vec<u8>>) -> Result<(),
     let zerr = |e: zip::result::ZipError| format!("{}: {e}", target.display());
     for (name, bytes) in files {
         w.start_file(name.as_str(), opts).map_err(zerr)?;
-        w.write_all(bytes).map_err(|e| format!("{}: {e}", target.display()))?;
+        w.write_all(bytes)
+            .map_err(|e| format!("{}: {e}", target.display()))?;
     }
     w.finish().map_err(zerr)?;
     tmp.persist(target)

@@ -38,7 +38,9 @@ pub fn stages_markdown(catalog: &[&'static dyn Stage]) -> String {
     let docs: Vec<Value> = catalog.iter().map(|s| crate::cli::stage_json(*s)).collect();
     let mut out = String::new();
     out.push_str("# Stage catalog\n\n");
-    out.push_str("Generated from the stage registry by `retort stages --markdown > docs/stages.md`;\n");
+    out.push_str(
+        "Generated from the stage registry by `retort stages --markdown > docs/stages.md`;\n",
+    );
     out.push_str("do not edit by hand (a test fails when this file is stale).\n\n");
     out.push_str("| stage | version | what it does |\n| --- | --- | --- |\n");
     for d in &docs {
@@ -63,7 +65,11 @@ pub fn stages_markdown(catalog: &[&'static dyn Stage]) -> String {
             let taken = format!(
                 "{}{}",
                 text(&p["arity"]),
-                if p["optional"] == true { ", optional" } else { "" }
+                if p["optional"] == true {
+                    ", optional"
+                } else {
+                    ""
+                }
             );
             out.push_str(&format!(
                 "| `{}` | {} | {taken} | {} |\n",
@@ -98,7 +104,11 @@ pub fn stages_markdown(catalog: &[&'static dyn Stage]) -> String {
         if !refs.is_empty() {
             out.push_str("\n**References**\n\n");
             for r in refs {
-                out.push_str(&format!("- [{}] {}\n", text(&r["key"]), text(&r["citation"])));
+                out.push_str(&format!(
+                    "- [{}] {}\n",
+                    text(&r["key"]),
+                    text(&r["citation"])
+                ));
             }
         }
     }
@@ -109,9 +119,13 @@ pub fn stages_markdown(catalog: &[&'static dyn Stage]) -> String {
 pub fn methods_markdown(catalog: &[&'static dyn Stage]) -> String {
     let mut out = String::new();
     out.push_str("# Methods and their published sources\n\n");
-    out.push_str("Generated from the stage registry by `retort stages --methods > docs/methods.md`;\n");
+    out.push_str(
+        "Generated from the stage registry by `retort stages --methods > docs/methods.md`;\n",
+    );
     out.push_str("do not edit by hand (a test fails when this file is stale). Each stage's own\n");
-    out.push_str("methods sentence, with every setting of a run, is written into that run's report.\n\n");
+    out.push_str(
+        "methods sentence, with every setting of a run, is written into that run's report.\n\n",
+    );
     out.push_str("| stage | method | sources |\n| --- | --- | --- |\n");
     let mut sources: BTreeMap<&str, (&str, Vec<&str>)> = BTreeMap::new();
     for s in catalog {

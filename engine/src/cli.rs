@@ -168,9 +168,7 @@ pub fn main_with(args: Vec<String>, catalog: &[&'static dyn Stage]) -> Exit {
             license.as_deref(),
             catalog,
         ),
-        Command::Stages {
-            markdown: true, ..
-        } => {
+        Command::Stages { markdown: true, .. } => {
             print!("{}", crate::catalog_md::stages_markdown(catalog));
             Exit::Ok
         }

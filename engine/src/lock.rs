@@ -246,7 +246,11 @@ mod tests {
         assert!(d[3].contains("d/y.csv: new"));
         assert!(d[4].contains("inc.yaml: new"));
         let gone = differences(&new, &old);
-        assert!(gone.iter().any(|l| l.contains("d/y.csv: in the lock, missing now")));
-        assert!(gone.iter().any(|l| l.contains("c.d: in the lock, no longer used")));
+        assert!(gone
+            .iter()
+            .any(|l| l.contains("d/y.csv: in the lock, missing now")));
+        assert!(gone
+            .iter()
+            .any(|l| l.contains("c.d: in the lock, no longer used")));
     }
 }

@@ -7,14 +7,46 @@ use std::path::Path;
 
 /// (technique, what it covers, the recipe).
 pub const SCAFFOLDS: &[(&str, &str, &str)] = &[
-    ("uvvis", "UV-vis absorbance: Tauc band gap and band maximum", include_str!("scaffolds/uvvis.yaml")),
-    ("xps", "XPS core level: charge reference, Shirley background, chemical-state fit", include_str!("scaffolds/xps.yaml")),
-    ("nmr", "quantitative NMR: integrals and purity against an internal standard", include_str!("scaffolds/nmr.yaml")),
-    ("eds", "EDS point spectra: net intensities and Cliff-Lorimer ratios", include_str!("scaffolds/eds.yaml")),
-    ("xrd", "powder diffraction: peaks and Bragg d-spacings", include_str!("scaffolds/xrd.yaml")),
-    ("particles", "SEM/TEM micrographs: particle size distribution", include_str!("scaffolds/particles.yaml")),
-    ("afm", "AFM/STM height maps: levelling and roughness", include_str!("scaffolds/afm.yaml")),
-    ("ediff", "electron diffraction rings: radial profile and d-spacings", include_str!("scaffolds/ediff.yaml")),
+    (
+        "uvvis",
+        "UV-vis absorbance: Tauc band gap and band maximum",
+        include_str!("scaffolds/uvvis.yaml"),
+    ),
+    (
+        "xps",
+        "XPS core level: charge reference, Shirley background, chemical-state fit",
+        include_str!("scaffolds/xps.yaml"),
+    ),
+    (
+        "nmr",
+        "quantitative NMR: integrals and purity against an internal standard",
+        include_str!("scaffolds/nmr.yaml"),
+    ),
+    (
+        "eds",
+        "EDS point spectra: net intensities and Cliff-Lorimer ratios",
+        include_str!("scaffolds/eds.yaml"),
+    ),
+    (
+        "xrd",
+        "powder diffraction: peaks and Bragg d-spacings",
+        include_str!("scaffolds/xrd.yaml"),
+    ),
+    (
+        "particles",
+        "SEM/TEM micrographs: particle size distribution",
+        include_str!("scaffolds/particles.yaml"),
+    ),
+    (
+        "afm",
+        "AFM/STM height maps: levelling and roughness",
+        include_str!("scaffolds/afm.yaml"),
+    ),
+    (
+        "ediff",
+        "electron diffraction rings: radial profile and d-spacings",
+        include_str!("scaffolds/ediff.yaml"),
+    ),
 ];
 
 /// `retort new TECHNIQUE [-o FILE]`.
@@ -31,7 +63,8 @@ pub fn command(technique: Option<&str>, output: Option<&Path>, force: bool) -> E
         let names: Vec<&str> = SCAFFOLDS.iter().map(|(n, _, _)| *n).collect();
         eprintln!(
             "error: no starter recipe for `{t}`{}; there are: {}",
-            hint.map(|h| format!(" (did you mean `{h}`?)")).unwrap_or_default(),
+            hint.map(|h| format!(" (did you mean `{h}`?)"))
+                .unwrap_or_default(),
             names.join(", ")
         );
         return Exit::Usage;
@@ -48,7 +81,11 @@ pub fn command(technique: Option<&str>, output: Option<&Path>, force: bool) -> E
             }
             match std::fs::write(p, text) {
                 Ok(()) => {
-                    eprintln!("wrote {}; put data where its `samples:` point, then `retort check {}`", p.display(), p.display());
+                    eprintln!(
+                        "wrote {}; put data where its `samples:` point, then `retort check {}`",
+                        p.display(),
+                        p.display()
+                    );
                     Exit::Ok
                 }
                 Err(e) => {

@@ -7,7 +7,7 @@
 //! Nothing is written to an output folder.
 
 use crate::exit::Exit;
-use crate::graph::{Graph, NodeInput, Node, Ref};
+use crate::graph::{Graph, Node, NodeInput, Ref};
 use crate::plan::Plan;
 use crate::record::{CheckRecord, NodeStatus};
 use std::collections::BTreeSet;
@@ -116,8 +116,7 @@ pub fn summary(checks: &[CheckRecord], failed_nodes: usize) -> (Vec<String>, Exi
             None => "none".to_string(),
         };
         let verdict = if c.passed { "pass" } else { "FAIL" };
-        let mut line =
-            format!("{verdict}  {what}: expected {}, found {found}", c.expected);
+        let mut line = format!("{verdict}  {what}: expected {}, found {found}", c.expected);
         if !c.passed && c.found.is_none() && !c.message.is_empty() {
             line.push_str(&format!(" ({})", c.message));
         }
@@ -140,13 +139,20 @@ pub fn is_failure(s: &NodeStatus) -> bool {
 }
 
 /// `retort verify`: the checks' nodes only, through the ordinary cache.
-pub fn command(a: &crate::cli::RecipeArgs, jobs: Option<usize>, catalog: &[&'static dyn stages::stage::Stage]) -> Exit {
+pub fn command(
+    a: &crate::cli::RecipeArgs,
+    jobs: Option<usize>,
+    catalog: &[&'static dyn stages::stage::Stage],
+) -> Exit {
     let plan = match crate::cli::phase1(a, catalog) {
         Ok(p) => p,
         Err(e) => return e,
     };
     if plan.checks.is_empty() {
-        println!("{}: the recipe has no checks; nothing to verify", a.recipe.display());
+        println!(
+            "{}: the recipe has no checks; nothing to verify",
+            a.recipe.display()
+        );
         return Exit::Ok;
     }
     let result = (|| -> Result<Exit, String> {
@@ -159,14 +165,20 @@ pub fn command(a: &crate::cli::RecipeArgs, jobs: Option<usize>, catalog: &[&'sta
             fail_fast: false,
             host: crate::cli::host(),
         };
-        let reporter = crate::cli::Reporter { bar: None, plain: false };
+        let reporter = crate::cli::Reporter {
+            bar: None,
+            plain: false,
+        };
         let outcomes = crate::scheduler::run(&plan, &graph, &cache, &opts, &reporter);
         cache.flush()?;
         let outcomes = outcomes?;
         let failed = outcomes.iter().filter(|o| is_failure(&o.status)).count();
         let checks = crate::outputs::checks(&plan, &graph, &outcomes);
         let (lines, exit) = summary(&checks, failed);
-        let ran = outcomes.iter().filter(|o| matches!(o.status, NodeStatus::Ran)).count();
+        let ran = outcomes
+            .iter()
+            .filter(|o| matches!(o.status, NodeStatus::Ran))
+            .count();
         println!(
             "{}: {} checks over {} of {} nodes ({ran} ran, {} cached{})",
             a.recipe.display(),
@@ -174,7 +186,11 @@ pub fn command(a: &crate::cli::RecipeArgs, jobs: Option<usize>, catalog: &[&'sta
             graph.nodes.len(),
             full.nodes.len(),
             graph.nodes.len() - ran - failed,
-            if failed > 0 { format!(", {failed} failed or skipped") } else { String::new() }
+            if failed > 0 {
+                format!(", {failed} failed or skipped")
+            } else {
+                String::new()
+            }
         );
         for l in lines {
             println!("  {l}");

@@ -20,9 +20,16 @@ fn verify_runs_only_the_checked_nodes_and_exits_3_when_a_check_fails() {
     let r = run(t.path(), &["verify", "recipe.yaml"]);
     assert_eq!(r.code, 0);
     // The check is on peak [film_a]: raw, smooth and peak of film_a, out of 10 nodes.
-    assert!(r.stdout.contains("1 checks over 3 of 10 nodes (3 ran, 0 cached)"));
-    assert!(r.stdout.contains("pass  peak.max_position [film_a]: expected between 1.9 and 2.1, found"));
-    assert!(!t.path().join("out").exists(), "verify writes no output folder");
+    assert!(r
+        .stdout
+        .contains("1 checks over 3 of 10 nodes (3 ran, 0 cached)"));
+    assert!(r
+        .stdout
+        .contains("pass  peak.max_position [film_a]: expected between 1.9 and 2.1, found"));
+    assert!(
+        !t.path().join("out").exists(),
+        "verify writes no output folder"
+    );
     // The nodes are in the shared cache: a run reuses them.
     let r = run(t.path(), &["run", "recipe.yaml"]);
     assert_eq!(r.code, 0);
@@ -30,10 +37,16 @@ fn verify_runs_only_the_checked_nodes_and_exits_3_when_a_check_fails() {
     // A check that cannot pass: exit 3, the check shown as failed with what was found.
     let recipe = t.path().join("recipe.yaml");
     let text = std::fs::read_to_string(&recipe).unwrap();
-    std::fs::write(&recipe, text.replace("within: [1.9, 2.1]", "within: [2.5, 2.6]")).unwrap();
+    std::fs::write(
+        &recipe,
+        text.replace("within: [1.9, 2.1]", "within: [2.5, 2.6]"),
+    )
+    .unwrap();
     let r = run(t.path(), &["verify", "recipe.yaml"]);
     assert_eq!(r.code, 3);
-    assert!(r.stdout.contains("FAIL  peak.max_position [film_a]: expected between 2.5 and 2.6, found 2"));
+    assert!(r
+        .stdout
+        .contains("FAIL  peak.max_position [film_a]: expected between 2.5 and 2.6, found 2"));
     // A recipe error: exit 2, nothing run.
     std::fs::write(&recipe, text.replace("measure.maximum", "measure.maximun")).unwrap();
     assert_eq!(run(t.path(), &["verify", "recipe.yaml"]).code, 2);
@@ -42,7 +55,11 @@ fn verify_runs_only_the_checked_nodes_and_exits_3_when_a_check_fails() {
 #[test]
 fn verify_exits_1_when_a_needed_node_fails() {
     let t = fixture("basic");
-    std::fs::write(t.path().join("data/film_a.csv"), "energy_eV,absorbance\n1.0\n").unwrap();
+    std::fs::write(
+        t.path().join("data/film_a.csv"),
+        "energy_eV,absorbance\n1.0\n",
+    )
+    .unwrap();
     let r = run(t.path(), &["verify", "recipe.yaml"]);
     assert_eq!(r.code, 1);
     assert!(r.stdout.contains("FAIL  peak.max_position [film_a]"));
@@ -61,8 +78,13 @@ fn a_lock_pins_inputs_and_stage_versions_and_locked_runs_refuse_changes() {
     assert_eq!(run(dir, &["lock", "recipe.yaml"]).code, 0);
     let lock = read_json(&dir.join("recipe.lock"));
     assert_eq!(lock["schema_version"], 1);
-    assert_eq!(lock["stages"]["import.delimited"], stages::find("import.delimited").unwrap().info().version);
-    let hash = blake3::hash(&std::fs::read(dir.join("data/film_b.csv")).unwrap()).to_hex().to_string();
+    assert_eq!(
+        lock["stages"]["import.delimited"],
+        stages::find("import.delimited").unwrap().info().version
+    );
+    let hash = blake3::hash(&std::fs::read(dir.join("data/film_b.csv")).unwrap())
+        .to_hex()
+        .to_string();
     assert_eq!(lock["files"]["data/film_b.csv"], hash.as_str());
     assert_eq!(run(dir, &["run", "recipe.yaml", "--locked"]).code, 0);
     // Changed input, removed input, new input, changed stage version: all listed.
@@ -70,7 +92,11 @@ fn a_lock_pins_inputs_and_stage_versions_and_locked_runs_refuse_changes() {
     std::fs::copy(dir.join("data/film_a.csv"), dir.join("data/film_d.csv")).unwrap();
     let mut l = lock.clone();
     l["stages"]["smooth.moving_average"] = serde_json::json!(99);
-    std::fs::write(dir.join("recipe.lock"), serde_json::to_vec_pretty(&l).unwrap()).unwrap();
+    std::fs::write(
+        dir.join("recipe.lock"),
+        serde_json::to_vec_pretty(&l).unwrap(),
+    )
+    .unwrap();
     let before = std::fs::read(dir.join("out/results.json")).unwrap();
     let r = run(dir, &["run", "recipe.yaml", "--locked"]);
     assert_eq!(r.code, 2);
@@ -84,11 +110,17 @@ fn a_lock_pins_inputs_and_stage_versions_and_locked_runs_refuse_changes() {
     ] {
         assert!(r.stderr.contains(needle), "missing `{needle}`");
     }
-    assert_eq!(std::fs::read(dir.join("out/results.json")).unwrap(), before, "a refused run writes nothing");
+    assert_eq!(
+        std::fs::read(dir.join("out/results.json")).unwrap(),
+        before,
+        "a refused run writes nothing"
+    );
     // Without --locked the same differences are warnings and the run goes on.
     let r = run(dir, &["run", "recipe.yaml"]);
     assert_eq!(r.code, 0);
-    assert!(r.stderr.contains("warning: the run differs from recipe.lock in 4 ways"));
+    assert!(r
+        .stderr
+        .contains("warning: the run differs from recipe.lock in 4 ways"));
     // Re-locking accepts them.
     assert_eq!(run(dir, &["lock", "recipe.yaml"]).code, 0);
     let r = run(dir, &["run", "recipe.yaml", "--locked"]);
@@ -107,10 +139,17 @@ fn chapter() -> tempfile::TempDir {
 fn unzip(zip_path: &Path, to: &Path) -> Vec<String> {
     let f = std::fs::File::open(zip_path).unwrap();
     let mut z = zip::ZipArchive::new(f).unwrap();
-    let names: Vec<String> = (0..z.len()).map(|i| z.by_index(i).unwrap().name().unwrap().to_string()).collect();
+    let names: Vec<String> = (0..z.len())
+        .map(|i| z.by_index(i).unwrap().name().unwrap().to_string())
+        .collect();
     for i in 0..z.len() {
         let e = z.by_index(i).unwrap();
-        assert_eq!(e.compression(), zip::CompressionMethod::Deflated, "{:?}", e.name());
+        assert_eq!(
+            e.compression(),
+            zip::CompressionMethod::Deflated,
+            "{:?}",
+            e.name()
+        );
     }
     z.extract(to).unwrap();
     names
@@ -123,36 +162,73 @@ fn a_bundle_rerun_elsewhere_gives_byte_identical_results() {
     let zip1 = t.path().join("../chapter-bundle-1.zip");
     let zip_path = tempfile::tempdir().unwrap();
     let zip1 = zip_path.path().join(zip1.file_name().unwrap());
-    let r = run(t.path(), &["bundle", "chapter.yaml", "-o", zip1.to_str().unwrap()]);
+    let r = run(
+        t.path(),
+        &["bundle", "chapter.yaml", "-o", zip1.to_str().unwrap()],
+    );
     assert_eq!(r.code, 0);
     // Deterministic: the same run bundled again gives the same bytes.
     let zip2 = zip_path.path().join("again.zip");
-    assert_eq!(run(t.path(), &["bundle", "chapter.yaml", "-o", zip2.to_str().unwrap()]).code, 0);
+    assert_eq!(
+        run(
+            t.path(),
+            &["bundle", "chapter.yaml", "-o", zip2.to_str().unwrap()]
+        )
+        .code,
+        0
+    );
     assert_eq!(std::fs::read(&zip1).unwrap(), std::fs::read(&zip2).unwrap());
     let elsewhere = tempfile::tempdir().unwrap();
     let names = unzip(&zip1, elsewhere.path());
     let mut sorted = names.clone();
     sorted.sort();
     assert_eq!(names, sorted, "entries are sorted");
-    for n in ["chapter.yaml", "bands/recipe.yaml", "bands/data/film_a.csv", "results/results.json", "results/report.html", "results/provenance.json", "results/run.json", "ro-crate-metadata.json"] {
+    for n in [
+        "chapter.yaml",
+        "bands/recipe.yaml",
+        "bands/data/film_a.csv",
+        "results/results.json",
+        "results/report.html",
+        "results/provenance.json",
+        "results/run.json",
+        "ro-crate-metadata.json",
+    ] {
         assert!(names.iter().any(|x| x == n), "{n} not in the bundle");
     }
-    assert!(!names.iter().any(|n| n.starts_with(".retort") || n.starts_with("out/")));
+    assert!(!names
+        .iter()
+        .any(|n| n.starts_with(".retort") || n.starts_with("out/")));
     // The unpacked bundle runs as is, with no cache, and gives the same results.json.
     let r = run(elsewhere.path(), &["run", "chapter.yaml"]);
     assert_eq!(r.code, 0);
     let again = std::fs::read(elsewhere.path().join("out/results.json")).unwrap();
-    assert_eq!(again, std::fs::read(t.path().join("out/results.json")).unwrap());
-    assert_eq!(again, std::fs::read(elsewhere.path().join("results/results.json")).unwrap());
-    assert_eq!(counts(&elsewhere.path().join("out")).1, 0, "nothing came from a cache");
+    assert_eq!(
+        again,
+        std::fs::read(t.path().join("out/results.json")).unwrap()
+    );
+    assert_eq!(
+        again,
+        std::fs::read(elsewhere.path().join("results/results.json")).unwrap()
+    );
+    assert_eq!(
+        counts(&elsewhere.path().join("out")).1,
+        0,
+        "nothing came from a cache"
+    );
 }
 
 fn entity<'a>(graph: &'a [Value], id: &str) -> &'a Value {
-    graph.iter().find(|e| e["@id"] == id).unwrap_or_else(|| panic!("no entity {id}"))
+    graph
+        .iter()
+        .find(|e| e["@id"] == id)
+        .unwrap_or_else(|| panic!("no entity {id}"))
 }
 
 fn has_type(e: &Value, t: &str) -> bool {
-    e["@type"] == t || e["@type"].as_array().is_some_and(|a| a.iter().any(|x| x == t))
+    e["@type"] == t
+        || e["@type"]
+            .as_array()
+            .is_some_and(|a| a.iter().any(|x| x == t))
 }
 
 #[test]
@@ -161,7 +237,17 @@ fn the_bundle_metadata_follows_ro_crate_1_1() {
     assert_eq!(run(t.path(), &["run", "chapter.yaml"]).code, 0);
     let z = tempfile::tempdir().unwrap();
     let zip_file = z.path().join("b.zip");
-    let r = run(t.path(), &["bundle", "chapter.yaml", "-o", zip_file.to_str().unwrap(), "--license", "https://spdx.org/licenses/CC-BY-4.0"]);
+    let r = run(
+        t.path(),
+        &[
+            "bundle",
+            "chapter.yaml",
+            "-o",
+            zip_file.to_str().unwrap(),
+            "--license",
+            "https://spdx.org/licenses/CC-BY-4.0",
+        ],
+    );
     assert_eq!(r.code, 0);
     let names = unzip(&zip_file, &z.path().join("u"));
     let meta = read_json(&z.path().join("u/ro-crate-metadata.json"));
@@ -177,24 +263,46 @@ fn the_bundle_metadata_follows_ro_crate_1_1() {
     let root = entity(g, "./");
     assert_eq!(root["@type"], "Dataset");
     assert_eq!(root["name"], "One chapter over the same films, three times");
-    assert!(root["description"].as_str().unwrap().contains("Includes the band recipe"));
+    assert!(root["description"]
+        .as_str()
+        .unwrap()
+        .contains("Includes the band recipe"));
     let run_json = read_json(&t.path().join("out/run.json"));
     assert_eq!(root["datePublished"], run_json["finished"]);
-    assert_eq!(root["license"]["@id"], "https://spdx.org/licenses/CC-BY-4.0");
+    assert_eq!(
+        root["license"]["@id"],
+        "https://spdx.org/licenses/CC-BY-4.0"
+    );
     // Every file in the zip (but the descriptor) is a part of the root and a File
     // entity whose size and blake3 identifier match its bytes.
-    let parts: Vec<&str> = root["hasPart"].as_array().unwrap().iter().map(|p| p["@id"].as_str().unwrap()).collect();
+    let parts: Vec<&str> = root["hasPart"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|p| p["@id"].as_str().unwrap())
+        .collect();
     for n in names.iter().filter(|n| *n != "ro-crate-metadata.json") {
         assert!(parts.contains(&n.as_str()), "{n} not in hasPart");
         let e = entity(g, n);
         assert!(has_type(e, "File"), "{n}");
         let bytes = std::fs::read(z.path().join("u").join(n)).unwrap();
         assert_eq!(e["contentSize"], bytes.len().to_string());
-        assert_eq!(e["identifier"], format!("blake3:{}", blake3::hash(&bytes).to_hex()));
-        assert!(e["encodingFormat"].as_str().is_some_and(|f| f.contains('/')));
+        assert_eq!(
+            e["identifier"],
+            format!("blake3:{}", blake3::hash(&bytes).to_hex())
+        );
+        assert!(e["encodingFormat"]
+            .as_str()
+            .is_some_and(|f| f.contains('/')));
     }
-    assert_eq!(entity(g, "bands/data/film_a.csv")["encodingFormat"], "text/csv");
-    assert_eq!(entity(g, "results/report.html")["encodingFormat"], "text/html");
+    assert_eq!(
+        entity(g, "bands/data/film_a.csv")["encodingFormat"],
+        "text/csv"
+    );
+    assert_eq!(
+        entity(g, "results/report.html")["encodingFormat"],
+        "text/html"
+    );
     // The recipe is the main entity, a ComputationalWorkflow with its language; the
     // run is a CreateAction with the recipe as instrument, inputs and results.
     assert_eq!(root["mainEntity"]["@id"], "chapter.yaml");
@@ -202,14 +310,33 @@ fn the_bundle_metadata_follows_ro_crate_1_1() {
     assert!(has_type(wf, "ComputationalWorkflow") && has_type(wf, "SoftwareSourceCode"));
     let lang = entity(g, wf["programmingLanguage"]["@id"].as_str().unwrap());
     assert_eq!(lang["@type"], "ComputerLanguage");
-    let app = g.iter().find(|e| e["@type"] == "SoftwareApplication" && e["name"] == "retort").unwrap();
+    let app = g
+        .iter()
+        .find(|e| e["@type"] == "SoftwareApplication" && e["name"] == "retort")
+        .unwrap();
     assert_eq!(app["version"], env!("CARGO_PKG_VERSION"));
     let action = g.iter().find(|e| e["@type"] == "CreateAction").unwrap();
     assert_eq!(action["instrument"]["@id"], "chapter.yaml");
     assert_eq!(action["startTime"], run_json["started"]);
-    let objects: Vec<&str> = action["object"].as_array().unwrap().iter().map(|o| o["@id"].as_str().unwrap()).collect();
-    assert_eq!(objects, ["bands/data/film_a.csv", "bands/data/film_b.csv", "bands/data/film_c.csv"]);
-    assert!(action["result"].as_array().unwrap().iter().any(|r| r["@id"] == "results/results.json"));
+    let objects: Vec<&str> = action["object"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|o| o["@id"].as_str().unwrap())
+        .collect();
+    assert_eq!(
+        objects,
+        [
+            "bands/data/film_a.csv",
+            "bands/data/film_b.csv",
+            "bands/data/film_c.csv"
+        ]
+    );
+    assert!(action["result"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .any(|r| r["@id"] == "results/results.json"));
     // Every reference in the graph resolves to an entity or is an absolute URL.
     fn ids(v: &Value, out: &mut Vec<String>) {
         match v {
@@ -228,7 +355,10 @@ fn the_bundle_metadata_follows_ro_crate_1_1() {
     let mut refs = Vec::new();
     ids(&meta["@graph"], &mut refs);
     for r in refs {
-        assert!(r.starts_with("http") || g.iter().any(|e| e["@id"] == r.as_str()), "dangling {r}");
+        assert!(
+            r.starts_with("http") || g.iter().any(|e| e["@id"] == r.as_str()),
+            "dangling {r}"
+        );
     }
 }
 
@@ -238,18 +368,37 @@ fn a_bundle_without_data_records_paths_and_hashes_only() {
     let z = tempfile::tempdir().unwrap();
     let zip_file = z.path().join("b.zip");
     // No run yet: refused with a hint.
-    let r = run(t.path(), &["bundle", "recipe.yaml", "-o", zip_file.to_str().unwrap()]);
+    let r = run(
+        t.path(),
+        &["bundle", "recipe.yaml", "-o", zip_file.to_str().unwrap()],
+    );
     assert_eq!(r.code, 2);
     assert!(r.stderr.contains("run `retort run recipe.yaml` first"));
     assert_eq!(run(t.path(), &["run", "recipe.yaml"]).code, 0);
-    assert_eq!(run(t.path(), &["bundle", "recipe.yaml", "-o", zip_file.to_str().unwrap(), "--no-data"]).code, 0);
+    assert_eq!(
+        run(
+            t.path(),
+            &[
+                "bundle",
+                "recipe.yaml",
+                "-o",
+                zip_file.to_str().unwrap(),
+                "--no-data"
+            ]
+        )
+        .code,
+        0
+    );
     let names = unzip(&zip_file, &z.path().join("u"));
     assert!(!names.iter().any(|n| n.starts_with("data/")), "{names:?}");
     let meta = read_json(&z.path().join("u/ro-crate-metadata.json"));
     let g = meta["@graph"].as_array().unwrap();
     let bytes = std::fs::read(t.path().join("data/film_a.csv")).unwrap();
     let e = entity(g, "data/film_a.csv");
-    assert_eq!(e["identifier"], format!("blake3:{}", blake3::hash(&bytes).to_hex()));
+    assert_eq!(
+        e["identifier"],
+        format!("blake3:{}", blake3::hash(&bytes).to_hex())
+    );
     assert_eq!(e["contentSize"], bytes.len().to_string());
     assert_eq!(entity(g, "./")["license"]["@id"], "#license-not-stated");
     // The unpacked bundle says plainly what is missing.
@@ -307,11 +456,14 @@ fn schema() -> Value {
 }
 
 fn yaml_files(dir: &Path, out: &mut Vec<PathBuf>) {
-    let Ok(entries) = std::fs::read_dir(dir) else { return };
+    let Ok(entries) = std::fs::read_dir(dir) else {
+        return;
+    };
     for e in entries.flatten() {
         let p = e.path();
         let name = e.file_name().to_string_lossy().to_string();
-        if p.is_dir() && !name.starts_with('.') && name != "out" && name != "bad" && name != "data" {
+        if p.is_dir() && !name.starts_with('.') && name != "out" && name != "bad" && name != "data"
+        {
             yaml_files(&p, out);
         } else if name.ends_with(".yaml") || name.ends_with(".yml") {
             out.push(p);
@@ -320,7 +472,10 @@ fn yaml_files(dir: &Path, out: &mut Vec<PathBuf>) {
 }
 
 fn errors(validator: &jsonschema::Validator, doc: &Value) -> Vec<String> {
-    validator.iter_errors(doc).map(|e| format!("{} at {}", e, e.instance_path())).collect()
+    validator
+        .iter_errors(doc)
+        .map(|e| format!("{} at {}", e, e.instance_path()))
+        .collect()
 }
 
 #[test]
@@ -349,7 +504,11 @@ fn every_fixture_demo_and_starter_recipe_validates_against_the_schema() {
 fn the_schema_refuses_what_check_refuses() {
     let validator = jsonschema::validator_for(&schema()).unwrap();
     let ok: Value = serde_yaml::from_str("id: r\nparameters:\n  w: { value: 5 }\nsamples:\n  s: data/*.csv\nsteps:\n  raw: { stage: import.delimited, from: s }\n  smooth: { stage: smooth.moving_average, from: raw, options: { window: '{{ w }}' } }\nchecks:\n  - { result: smooth.x, item: a, expect: 1, tolerance: 0.1 }\n").unwrap();
-    assert!(errors(&validator, &ok).is_empty(), "{:?}", errors(&validator, &ok));
+    assert!(
+        errors(&validator, &ok).is_empty(),
+        "{:?}",
+        errors(&validator, &ok)
+    );
     let bad = |from: &str, to: &str| {
         let text = serde_json::to_string(&ok).unwrap().replace(from, to);
         let doc: Value = serde_json::from_str(&text).unwrap();
@@ -368,7 +527,10 @@ fn the_schema_refuses_what_check_refuses() {
 
 #[test]
 fn the_committed_stage_catalog_and_methods_list_are_current() {
-    for (file, flag) in [("docs/stages.md", "--markdown"), ("docs/methods.md", "--methods")] {
+    for (file, flag) in [
+        ("docs/stages.md", "--markdown"),
+        ("docs/methods.md", "--methods"),
+    ] {
         let r = run(Path::new("."), &["stages", flag]);
         assert_eq!(r.code, 0);
         let committed = std::fs::read_to_string(repo().join(file)).unwrap_or_default();
@@ -382,7 +544,11 @@ fn the_committed_stage_catalog_and_methods_list_are_current() {
     let methods_md = std::fs::read_to_string(repo().join("docs/methods.md")).unwrap();
     for s in stages::CATALOG {
         let info = s.info();
-        assert!(stages_md.contains(&format!("\n## {}\n", info.name)), "{}", info.name);
+        assert!(
+            stages_md.contains(&format!("\n## {}\n", info.name)),
+            "{}",
+            info.name
+        );
         for r in info.references {
             assert!(methods_md.contains(&format!("### {}", r.key)), "{}", r.key);
         }
