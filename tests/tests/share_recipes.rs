@@ -128,6 +128,25 @@ fn a_lock_pins_inputs_and_stage_versions_and_locked_runs_refuse_changes() {
     assert!(!r.stderr.contains("differs"));
 }
 
+#[test]
+fn a_lock_pins_included_recipes() {
+    let t = chapter();
+    assert_eq!(run(t.path(), &["lock", "chapter.yaml"]).code, 0);
+    let lock = read_json(&t.path().join("chapter.lock"));
+    let inc = t.path().join("bands/recipe.yaml");
+    let text = std::fs::read_to_string(&inc).unwrap();
+    assert_eq!(
+        lock["includes"]["bands/recipe.yaml"],
+        blake3::hash(text.as_bytes()).to_hex().as_str()
+    );
+    std::fs::write(&inc, text.replace("value: 5", "value: 3")).unwrap();
+    let r = run(t.path(), &["run", "chapter.yaml", "--locked"]);
+    assert_eq!(r.code, 2);
+    assert!(r
+        .stderr
+        .contains("included recipe bands/recipe.yaml: changed"));
+}
+
 // ---------------------------------------------------------------- bundle
 
 fn chapter() -> tempfile::TempDir {
@@ -158,7 +177,8 @@ fn unzip(zip_path: &Path, to: &Path) -> Vec<String> {
 #[test]
 fn a_bundle_rerun_elsewhere_gives_byte_identical_results() {
     let t = chapter();
-    assert_eq!(run(t.path(), &["run", "chapter.yaml"]).code, 0);
+    assert_eq!(run(t.path(), &["lock", "chapter.yaml"]).code, 0);
+    assert_eq!(run(t.path(), &["run", "chapter.yaml", "--locked"]).code, 0);
     let zip1 = t.path().join("../chapter-bundle-1.zip");
     let zip_path = tempfile::tempdir().unwrap();
     let zip1 = zip_path.path().join(zip1.file_name().unwrap());
@@ -198,8 +218,10 @@ fn a_bundle_rerun_elsewhere_gives_byte_identical_results() {
     assert!(!names
         .iter()
         .any(|n| n.starts_with(".retort") || n.starts_with("out/")));
-    // The unpacked bundle runs as is, with no cache, and gives the same results.json.
-    let r = run(elsewhere.path(), &["run", "chapter.yaml"]);
+    // The unpacked bundle runs as is, with no cache, held to its lock, and gives the
+    // same results.json.
+    assert!(names.iter().any(|n| n == "chapter.lock"));
+    let r = run(elsewhere.path(), &["run", "chapter.yaml", "--locked"]);
     assert_eq!(r.code, 0);
     let again = std::fs::read(elsewhere.path().join("out/results.json")).unwrap();
     assert_eq!(
