@@ -41,6 +41,12 @@ fn is_value_schema(o: &Map<String, Value>) -> bool {
 
 /// Lets every value in `v` be a `{{ parameter }}` template as well.
 fn templatable(v: Value) -> Value {
+    templatable_node(v, true)
+}
+
+/// As [`templatable`]; `wrap` false leaves the node itself as it is (its values
+/// still take templates).
+fn templatable_node(v: Value, wrap: bool) -> Value {
     let Value::Object(mut o) = v else { return v };
     for key in ["properties", "$defs", "patternProperties"] {
         if let Some(Value::Object(props)) = o.remove(key) {
@@ -88,7 +94,7 @@ fn templatable(v: Value) -> Value {
         }
     }
     let is_string_only = o.get("type") == Some(&json!("string")) && !o.contains_key("enum");
-    if is_value_schema(&o) && !is_string_only {
+    if wrap && is_value_schema(&o) && !is_string_only {
         // Annotations stay outside so editors still show them.
         let mut outer = Map::new();
         for k in ["description", "default", "title", "x-unit"] {
@@ -126,10 +132,13 @@ pub fn recipe_schema(catalog: &[&'static dyn Stage]) -> Value {
             }
         }
         let options_def = format!("{name}.options");
-        defs.insert(options_def.clone(), templatable(schema));
+        defs.insert(options_def.clone(), templatable_node(schema, false));
+        // `options:` left empty is null: no options given.
         conditions.push(json!({
             "if": { "properties": { "stage": { "const": name } }, "required": ["stage"] },
-            "then": { "properties": { "options": { "$ref": format!("#/$defs/{options_def}") } } }
+            "then": { "properties": { "options": {
+                "anyOf": [{ "type": "null" }, { "$ref": format!("#/$defs/{options_def}") }]
+            } } }
         }));
     }
     let stage_choices: Vec<Value> = catalog

@@ -533,11 +533,18 @@ fn the_schema_refuses_what_check_refuses() {
     );
     let bad = |from: &str, to: &str| {
         let text = serde_json::to_string(&ok).unwrap().replace(from, to);
+        assert_ne!(
+            text,
+            serde_json::to_string(&ok).unwrap(),
+            "`{from}` not in the recipe"
+        );
         let doc: Value = serde_json::from_str(&text).unwrap();
         errors(&validator, &doc)
     };
     // A misspelt stage, an unknown option, an option of the wrong type, an unknown
     // top-level key, a check with both forms.
+    // `options:` left empty (null) is no options, as for `check`.
+    assert!(bad("{\"window\":\"{{ w }}\"}", "null").is_empty());
     assert!(!bad("smooth.moving_average", "smooth.moving_avg").is_empty());
     assert!(!bad("\"window\"", "\"windw\"").is_empty());
     assert!(!bad("{{ w }}", "five").is_empty());
