@@ -161,6 +161,17 @@ pub fn gather(
     })?;
     let record: RunRecord =
         serde_json::from_str(&text).map_err(|e| format!("{}: {e}", run_json.display()))?;
+    let prefix = format!("{RESULTS_DIR}/");
+    if let Some(clash) = c
+        .files
+        .keys()
+        .chain(c.omitted.keys())
+        .find(|k| k.starts_with(&prefix))
+    {
+        return Err(format!(
+            "{clash} is inside a `{RESULTS_DIR}/` folder beside the recipe, where a bundle keeps the run's outputs; move it"
+        ));
+    }
     for (rel, abs) in walk(out)? {
         let inside = format!("{RESULTS_DIR}/{rel}");
         c.files.insert(inside.clone(), read(&abs)?);
