@@ -35,6 +35,33 @@ pub enum Command {
     Check(RecipeArgs),
     /// Show every node of the recipe's graph: cached or to run, and why.
     Plan(RecipeArgs),
+    /// Run only what the recipe's checks need and judge the checks (exit 3 on a failed check).
+    Verify {
+        #[command(flatten)]
+        recipe: RecipeArgs,
+        /// Steps run at once (default: all cores).
+        #[arg(long, value_name = "N")]
+        jobs: Option<usize>,
+    },
+    /// Pack the recipe, its includes, its data and its latest results into a zip with RO-Crate metadata.
+    Bundle {
+        #[command(flatten)]
+        recipe: RecipeArgs,
+        /// The zip file to write.
+        #[arg(short = 'o', long = "output", value_name = "FILE.zip")]
+        output: PathBuf,
+        /// The run's output folder (default: out/ beside the recipe).
+        #[arg(long, value_name = "DIR")]
+        out: Option<PathBuf>,
+        /// Leave the input data out; record only their paths, sizes and blake3 hashes.
+        #[arg(long)]
+        no_data: bool,
+        /// License of the bundle, as a URL (for example an SPDX license page).
+        #[arg(long, value_name = "URL")]
+        license: Option<String>,
+    },
+    /// Pin stage versions, input-file hashes and included recipes in NAME.lock beside the recipe.
+    Lock(RecipeArgs),
     /// The stage catalog: options, units, defaults, method sources.
     Stages {
         /// One stage in detail.
@@ -42,7 +69,26 @@ pub enum Command {
         /// As JSON.
         #[arg(long)]
         json: bool,
+        /// The whole catalog as Markdown (docs/stages.md).
+        #[arg(long, conflicts_with_all = ["json", "methods"])]
+        markdown: bool,
+        /// Every method with its published sources, as Markdown (docs/methods.md).
+        #[arg(long, conflicts_with = "json")]
+        methods: bool,
     },
+    /// Write a commented starter recipe for a technique (list them without TECHNIQUE).
+    New {
+        /// uvvis, xps, nmr, eds, xrd, particles, afm, ediff.
+        technique: Option<String>,
+        /// Write to this file instead of standard output.
+        #[arg(short = 'o', long = "output", value_name = "FILE")]
+        output: Option<PathBuf>,
+        /// Replace the file if it exists.
+        #[arg(long)]
+        force: bool,
+    },
+    /// Print the JSON Schema (draft 2020-12) of the recipe format, for editors.
+    Schema,
     /// Re-render the report of a finished run from its run.json and the cache.
     Report {
         /// The output folder of a run.
@@ -84,6 +130,9 @@ pub struct RunArgs {
     /// Print only errors.
     #[arg(long)]
     pub quiet: bool,
+    /// Refuse to run (exit 2) when the recipe's lock file disagrees or is missing.
+    #[arg(long)]
+    pub locked: bool,
 }
 
 /// Parses `args` and runs the command with `catalog`; returns the exit code.
@@ -103,12 +152,42 @@ pub fn main_with(args: Vec<String>, catalog: &[&'static dyn Stage]) -> Exit {
         Command::Run(a) => run(&a, catalog),
         Command::Check(a) => check(&a, catalog),
         Command::Plan(a) => plan_cmd(&a, catalog),
-        Command::Stages { name, json } => stages_cmd(name.as_deref(), json, catalog),
+        Command::Verify { recipe, jobs } => crate::verify::command(&recipe, jobs, catalog),
+        Command::Lock(a) => crate::lock::command(&a, catalog),
+        Command::Bundle {
+            recipe,
+            output,
+            out,
+            no_data,
+            license,
+        } => crate::bundle::command(
+            &recipe,
+            &output,
+            out.as_deref(),
+            no_data,
+            license.as_deref(),
+            catalog,
+        ),
+        Command::Stages { markdown: true, .. } => {
+            print!("{}", crate::catalog_md::stages_markdown(catalog));
+            Exit::Ok
+        }
+        Command::Stages { methods: true, .. } => {
+            print!("{}", crate::catalog_md::methods_markdown(catalog));
+            Exit::Ok
+        }
+        Command::Stages { name, json, .. } => stages_cmd(name.as_deref(), json, catalog),
+        Command::Schema => crate::schema::command(catalog),
+        Command::New {
+            technique,
+            output,
+            force,
+        } => crate::scaffold::command(technique.as_deref(), output.as_deref(), force),
         Command::Report { outdir } => report_cmd(&outdir),
     }
 }
 
-fn phase1(a: &RecipeArgs, catalog: &[&'static dyn Stage]) -> Result<Plan, Exit> {
+pub(crate) fn phase1(a: &RecipeArgs, catalog: &[&'static dyn Stage]) -> Result<Plan, Exit> {
     let p1 = plan::build(&a.recipe, &a.set, a.allow_outside, catalog);
     let text = p1.render_diagnostics();
     if !text.is_empty() {
@@ -117,7 +196,7 @@ fn phase1(a: &RecipeArgs, catalog: &[&'static dyn Stage]) -> Result<Plan, Exit> 
     p1.plan.ok_or(Exit::Usage)
 }
 
-fn cache_dir(a: &RecipeArgs, plan: &Plan) -> PathBuf {
+pub(crate) fn cache_dir(a: &RecipeArgs, plan: &Plan) -> PathBuf {
     a.cache
         .clone()
         .or_else(|| {
@@ -128,7 +207,7 @@ fn cache_dir(a: &RecipeArgs, plan: &Plan) -> PathBuf {
         .unwrap_or_else(|| plan.policy.root.join(".retort"))
 }
 
-fn host() -> String {
+pub(crate) fn host() -> String {
     hostname::get()
         .map(|h| h.to_string_lossy().to_string())
         .unwrap_or_else(|_| "unknown".into())
@@ -180,7 +259,7 @@ fn last_node(plan: &Plan, graph: &Graph, n: usize) -> LastNode {
     }
 }
 
-fn expand(plan: &Plan, cache: &Cache) -> Result<Graph, String> {
+pub(crate) fn expand(plan: &Plan, cache: &Cache) -> Result<Graph, String> {
     let mut idx = cache.stat_index();
     let g = graph::expand(plan, &mut idx)?;
     if g.hashed > 0 {
@@ -189,9 +268,9 @@ fn expand(plan: &Plan, cache: &Cache) -> Result<Graph, String> {
     Ok(g)
 }
 
-struct Reporter {
-    bar: Option<indicatif::ProgressBar>,
-    plain: bool,
+pub(crate) struct Reporter {
+    pub(crate) bar: Option<indicatif::ProgressBar>,
+    pub(crate) plain: bool,
 }
 
 impl Progress for Reporter {
@@ -225,6 +304,16 @@ fn run(a: &RunArgs, catalog: &[&'static dyn Stage]) -> Exit {
             Exit::StepFailed
         }
     }
+}
+
+/// `--jobs`, else every core.
+pub(crate) fn jobs_or_cores(jobs: Option<usize>) -> usize {
+    jobs.unwrap_or_else(|| {
+        std::thread::available_parallelism()
+            .map(|n| n.get())
+            .unwrap_or(1)
+    })
+    .max(1)
 }
 
 /// Prints how long each phase took when `RETORT_TIMING` is set (for benchmarking).
@@ -273,16 +362,12 @@ fn run_plan(a: &RunArgs, plan: &Plan) -> Result<Exit, String> {
     }
     let cache = Cache::open(&dir, throwaway.is_none())?;
     let graph = expand(plan, &cache)?;
+    if let Some(exit) = crate::lock::enforce(&a.recipe.recipe, plan, &graph, a.locked) {
+        return Ok(exit);
+    }
     phases.mark("graph");
     let host = host();
-    let jobs = a
-        .jobs
-        .unwrap_or_else(|| {
-            std::thread::available_parallelism()
-                .map(|n| n.get())
-                .unwrap_or(1)
-        })
-        .max(1);
+    let jobs = jobs_or_cores(a.jobs);
     let terminal = std::io::stderr().is_terminal();
     let bar = (!a.quiet && terminal).then(|| {
         let b = indicatif::ProgressBar::new(
@@ -626,7 +711,7 @@ fn type_of(schema: &serde_json::Value, root: &serde_json::Value) -> String {
     }
 }
 
-fn stage_json(s: &dyn Stage) -> serde_json::Value {
+pub(crate) fn stage_json(s: &dyn Stage) -> serde_json::Value {
     let info = s.info();
     let schema = serde_json::to_value(s.options_schema()).unwrap_or_default();
     let defaults = s.resolve_options(&serde_json::Value::Null).ok();

@@ -6,21 +6,27 @@
 //! against the content-addressed [`cache`], and writes the outputs ([`outputs`],
 //! [`provenance`], [`report`]). [`cli`] is the only layer that prints.
 
+pub mod bundle;
 pub mod cache;
+pub mod catalog_md;
 pub mod cli;
 pub mod diagnostics;
 pub mod exit;
 pub mod graph;
+pub mod lock;
 pub mod outputs;
 pub mod plan;
 pub mod provenance;
 pub mod recipe;
 pub mod record;
 pub mod report;
+pub mod scaffold;
 pub mod scheduler;
 #[cfg(test)]
 mod testing;
+pub mod schema;
 pub mod timefmt;
+pub mod verify;
 
 /// The engine version, recorded in provenance and run.json.
 pub const VERSION: &str = env!("CARGO_PKG_VERSION");
