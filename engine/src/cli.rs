@@ -43,6 +43,11 @@ pub enum Command {
         #[arg(long)]
         json: bool,
     },
+    /// Write (and with --submit, submit) Slurm batch scripts: a job array of shards
+    /// and a gather-and-report job that waits for it.
+    Slurm(crate::slurm::SlurmArgs),
+    /// Progress of a recipe across shards: nodes done, failed, pending.
+    Status(crate::status::StatusArgs),
     /// Re-render the report of a finished run from its run.json and the cache.
     Report {
         /// The output folder of a run.
@@ -84,6 +89,10 @@ pub struct RunArgs {
     /// Print only errors.
     #[arg(long)]
     pub quiet: bool,
+    /// Run only shard K of N of the fan-out (and what it needs) into the cache; no
+    /// report. A plain run afterwards gathers and reports.
+    #[arg(long, value_name = "K/N")]
+    pub shard: Option<crate::shard::ShardSpec>,
 }
 
 /// Parses `args` and runs the command with `catalog`; returns the exit code.
@@ -104,11 +113,13 @@ pub fn main_with(args: Vec<String>, catalog: &[&'static dyn Stage]) -> Exit {
         Command::Check(a) => check(&a, catalog),
         Command::Plan(a) => plan_cmd(&a, catalog),
         Command::Stages { name, json } => stages_cmd(name.as_deref(), json, catalog),
+        Command::Slurm(a) => crate::slurm::command(&a, catalog),
+        Command::Status(a) => crate::status::command(&a, catalog),
         Command::Report { outdir } => report_cmd(&outdir),
     }
 }
 
-fn phase1(a: &RecipeArgs, catalog: &[&'static dyn Stage]) -> Result<Plan, Exit> {
+pub(crate) fn phase1(a: &RecipeArgs, catalog: &[&'static dyn Stage]) -> Result<Plan, Exit> {
     let p1 = plan::build(&a.recipe, &a.set, a.allow_outside, catalog);
     let text = p1.render_diagnostics();
     if !text.is_empty() {
@@ -117,7 +128,7 @@ fn phase1(a: &RecipeArgs, catalog: &[&'static dyn Stage]) -> Result<Plan, Exit> 
     p1.plan.ok_or(Exit::Usage)
 }
 
-fn cache_dir(a: &RecipeArgs, plan: &Plan) -> PathBuf {
+pub(crate) fn cache_dir(a: &RecipeArgs, plan: &Plan) -> PathBuf {
     a.cache
         .clone()
         .or_else(|| {
@@ -128,7 +139,7 @@ fn cache_dir(a: &RecipeArgs, plan: &Plan) -> PathBuf {
         .unwrap_or_else(|| plan.policy.root.join(".retort"))
 }
 
-fn host() -> String {
+pub(crate) fn host() -> String {
     hostname::get()
         .map(|h| h.to_string_lossy().to_string())
         .unwrap_or_else(|_| "unknown".into())
@@ -180,7 +191,7 @@ fn last_node(plan: &Plan, graph: &Graph, n: usize) -> LastNode {
     }
 }
 
-fn expand(plan: &Plan, cache: &Cache) -> Result<Graph, String> {
+pub(crate) fn expand(plan: &Plan, cache: &Cache) -> Result<Graph, String> {
     let mut idx = cache.stat_index();
     let g = graph::expand(plan, &mut idx)?;
     if g.hashed > 0 {
@@ -267,7 +278,9 @@ fn run_plan(a: &RunArgs, plan: &Plan) -> Result<Exit, String> {
         .out
         .clone()
         .unwrap_or_else(|| plan.policy.root.join("out"));
-    if let Err(e) = outputs::check_target(&out, &plan.policy.root, &dir) {
+    if a.shard.is_some() {
+        // A shard writes only into the cache.
+    } else if let Err(e) = outputs::check_target(&out, &plan.policy.root, &dir) {
         eprintln!("error: {e}");
         return Ok(Exit::Usage);
     }
@@ -304,6 +317,13 @@ fn run_plan(a: &RunArgs, plan: &Plan) -> Result<Exit, String> {
         fail_fast: a.fail_fast,
         host: host.clone(),
     };
+    if let Some(spec) = a.shard {
+        let exit = crate::shard::run_shard(plan, &graph, &cache, &opts, &reporter, spec, a.quiet);
+        if let Some(b) = &reporter.bar {
+            b.finish_and_clear();
+        }
+        return exit;
+    }
     let outcomes = scheduler::run(plan, &graph, &cache, &opts, &reporter);
     cache.flush()?;
     let outcomes = outcomes?;

@@ -18,6 +18,9 @@ pub mod recipe;
 pub mod record;
 pub mod report;
 pub mod scheduler;
+pub mod shard;
+pub mod slurm;
+pub mod status;
 pub mod timefmt;
 
 /// The engine version, recorded in provenance and run.json.
