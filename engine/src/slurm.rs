@@ -167,7 +167,10 @@ fn run_line(spec: &JobSpec, extra: &[String]) -> String {
     words.extend(spec.run_args.iter().map(|a| sh_quote(a)));
     words.extend(extra.iter().cloned());
     words.push("--jobs".into());
-    words.push(format!("\"${{SLURM_CPUS_PER_TASK:-{}}}\"", spec.cpus.max(1)));
+    words.push(format!(
+        "\"${{SLURM_CPUS_PER_TASK:-{}}}\"",
+        spec.cpus.max(1)
+    ));
     words.join(" ")
 }
 

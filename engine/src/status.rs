@@ -195,7 +195,11 @@ fn recipe_status(
                 for f in &l.failed {
                     failed.insert(
                         f.key.clone(),
-                        (f.node.clone(), f.error.clone(), format!("{}/{}", l.shard, l.shards)),
+                        (
+                            f.node.clone(),
+                            f.error.clone(),
+                            format!("{}/{}", l.shard, l.shards),
+                        ),
                     );
                 }
                 if shards.is_none_or(|n| n == l.shards) {
@@ -217,7 +221,6 @@ fn recipe_status(
         if node.same_as.is_some() {
             continue;
         }
-        c.total += 1;
         let slot = assigned
             .as_ref()
             .and_then(|a| a[i])
