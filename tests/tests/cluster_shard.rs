@@ -164,6 +164,16 @@ fn concurrent_shards_then_a_plain_run_match_a_single_process_run_byte_for_byte()
         st.stdout
     );
     assert_eq!(st.stdout.matches("; finished ").count(), 4, "{}", st.stdout);
+    // Every shard published its own segment files (host and pid in the name).
+    let segments: Vec<_> = std::fs::read_dir(cache.join("segments"))
+        .unwrap()
+        .flatten()
+        .map(|e| e.path())
+        .filter(|p| p.extension().is_some_and(|x| x == "seg"))
+        .collect();
+    assert!(segments.len() >= 3, "{segments:?}");
+    let names: std::collections::BTreeSet<_> = segments.iter().map(|p| p.file_name()).collect();
+    assert_eq!(names.len(), segments.len());
     let gathered = run(
         t.path(),
         &[
@@ -219,6 +229,33 @@ fn concurrent_shards_then_a_plain_run_match_a_single_process_run_byte_for_byte()
         assert_eq!(l.state, "finished");
         assert_eq!(l.timings.len(), l.nodes.total);
     }
+    // A damaged entry in the shared cache (as a faulty network filesystem might leave)
+    // is detected by its checksum and recomputed, never trusted.
+    let mut bytes = std::fs::read(&segments[0]).unwrap();
+    let last = bytes.len() - 1;
+    bytes[last] ^= 0x5a;
+    std::fs::write(&segments[0], &bytes).unwrap();
+    let again = run(
+        t.path(),
+        &[
+            "run",
+            "recipe.yaml",
+            "--cache",
+            cache.to_str().unwrap(),
+            "--out",
+            "again",
+        ],
+    );
+    assert_eq!(again.code, 0);
+    assert!(
+        again.stdout.contains("1 corrupt cache entries recomputed"),
+        "{}",
+        again.stdout
+    );
+    assert_eq!(
+        std::fs::read(t.path().join("again/results.json")).unwrap(),
+        std::fs::read(t.path().join("single/results.json")).unwrap()
+    );
 }
 
 #[test]
