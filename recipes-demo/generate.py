@@ -101,13 +101,13 @@ def uvvis():
         lines = ["# Tern Hollow Materials Lab (fictional) - UV-vis, coating on fused silica",
                  "# sample: %s; film thickness 250 nm (invented)" % name,
                  "Wavelength (nm),Absorbance"]
-        for i in range(0, 551):
-            lam = 250.0 + i
+        for i in range(0, 501):
+            lam = 300.0 + i
             e = HC_EV_NM / lam
             # Indirect allowed edge: alpha*hv ~ (hv - Eg)^2, plus an Urbach tail below it.
             alpha = 0.0
             if e > gap:
-                alpha = 2.0e5 * (e - gap) ** 2 / e  # 1/cm
+                alpha = 1.0e6 * (e - gap) ** 2 / e  # 1/cm
             alpha += 1.5e3 * math.exp((e - gap) / 0.06) if e < gap + 0.05 else 0.0
             a = alpha * d_nm * 1e-7 / math.log(10)
             a += 0.020 + 0.012 * (400.0 / lam) ** 4  # scattering baseline
@@ -119,8 +119,8 @@ def uvvis():
     # The deliberately bad file: an export cut short, with a spreadsheet error cell.
     rng = rng_for("uvvis-bad")
     lines = ["# sample: TS-9 (export interrupted)", "Wavelength (nm),Absorbance"]
-    for i in range(0, 120):
-        lines.append("%.1f,%.5f" % (250.0 + i, 1.2 - 0.004 * i + rng.gauss(0, 0.002)))
+    for i in range(0, 70):
+        lines.append("%.1f,%.5f" % (300.0 + i, 1.2 - 0.004 * i + rng.gauss(0, 0.002)))
     lines.append("370.0,#N/A")
     write("uvvis/TS-9.csv", "\n".join(lines) + "\n")
 
@@ -148,8 +148,6 @@ def xps():
     for sample, fractions in XPS_FRACTIONS.items():
         shift = XPS_CHARGING[sample]
         for region, (lo, hi, peaks) in XPS_REGIONS.items():
-            if fractions[region] == 0.0 and region == "Sn3d":
-                continue
             rng = rng_for("xps" + sample + region)
             total = sum(p[3] for p in peaks)
             scale = 1.8e4 * fractions[region] * XPS_RESPONSE[region]
@@ -168,8 +166,8 @@ def xps():
             for s in sig:
                 acc += s
                 cum.append(acc)
-            k = 0.15 * max(sig) / cum[-1]  # total step: 15% of the peak height
-            base = 600.0 + 0.02 * scale
+            k = 0.15 * max(sig) / cum[-1] if cum[-1] > 0 else 0.0  # step: 15% of the peak height
+            base = 600.0 + 0.02 * scale + 900.0 * (region == "Sn3d")
             rows = {}
             for be, s, c in zip(asc, sig, cum):
                 bg = base + k * c + 8.0 * (be - lo)

@@ -344,10 +344,15 @@ fn run_plan(a: &RunArgs, plan: &Plan) -> Result<Exit, String> {
         "tables/results.csv",
         &outputs::results_csv(&results)?,
     )?;
-    let prov = provenance::document(plan, &graph, &outcomes, &host);
-    outputs::write(tmp.path(), "provenance.json", &outputs::json_bytes(&prov)?)?;
+    let prov = provenance::Document {
+        plan,
+        graph: &graph,
+        outcomes: &outcomes,
+        host: &host,
+    };
+    outputs::write_json(tmp.path(), "provenance.json", &prov)?;
     phases.mark("provenance");
-    outputs::write(tmp.path(), "run.json", &outputs::json_bytes(&record)?)?;
+    outputs::write_json(tmp.path(), "run.json", &record)?;
     let source = |key: &str| match cache.load(key) {
         crate::cache::Lookup::Found(b) => Some(b.1),
         _ => None,
@@ -471,52 +476,52 @@ fn reason(plan: &Plan, graph: &Graph, n: usize, last: Option<&LastNode>, cache: 
     "changed inputs".into()
 }
 
+/// The lines `retort plan` prints: a summary, then one line per node.
+pub fn plan_lines(a: &RecipeArgs, plan: &Plan) -> Result<Vec<String>, String> {
+    let cache = Cache::open(&cache_dir(a, plan), true)?;
+    let graph = expand(plan, &cache)?;
+    let index = cache.node_index();
+    let mut lines = Vec::new();
+    let mut to_run = 0;
+    for (i, node) in graph.nodes.iter().enumerate() {
+        let label = scheduler::node_label(plan, &graph, i);
+        let line = if let Some(orig) = node.same_as {
+            let first = scheduler::node_label(plan, &graph, orig);
+            format!("  same     {label}  (same work as {first})")
+        } else if matches!(cache.verify(&node.key), Some(Ok(()))) {
+            format!("  cached   {label}")
+        } else {
+            to_run += 1;
+            let last = index.get(&identity(plan, &graph, i));
+            format!(
+                "  run      {label}  ({})",
+                reason(plan, &graph, i, last, &cache)
+            )
+        };
+        lines.push(line);
+    }
+    let n = graph.nodes.len();
+    let head = format!(
+        "{}: {n} nodes, {to_run} to run, {} cached",
+        a.recipe.display(),
+        n - to_run
+    );
+    lines.insert(0, head);
+    Ok(lines)
+}
+
 fn plan_cmd(a: &RecipeArgs, catalog: &[&'static dyn Stage]) -> Exit {
     let plan = match phase1(a, catalog) {
         Ok(p) => p,
         Err(e) => return e,
     };
-    let result = (|| -> Result<(), String> {
-        let cache = Cache::open(&cache_dir(a, &plan), true)?;
-        let graph = expand(&plan, &cache)?;
-        let index = cache.node_index();
-        let mut lines = Vec::new();
-        let mut to_run = 0;
-        for (i, node) in graph.nodes.iter().enumerate() {
-            let label = scheduler::node_label(&plan, &graph, i);
-            let line = if let Some(orig) = node.same_as {
-                format!(
-                    "  same     {label}  (same work as {})",
-                    scheduler::node_label(&plan, &graph, orig)
-                )
-            } else if matches!(cache.verify(&node.key), Some(Ok(()))) {
-                format!("  cached   {label}")
-            } else {
-                to_run += 1;
-                let why = reason(
-                    &plan,
-                    &graph,
-                    i,
-                    index.get(&identity(&plan, &graph, i)),
-                    &cache,
-                );
-                format!("  run      {label}  ({why})")
-            };
-            lines.push(line);
+    match plan_lines(a, &plan) {
+        Ok(lines) => {
+            for l in lines {
+                println!("{l}");
+            }
+            Exit::Ok
         }
-        println!(
-            "{}: {} nodes, {to_run} to run, {} cached",
-            a.recipe.display(),
-            graph.nodes.len(),
-            graph.nodes.len() - to_run
-        );
-        for l in lines {
-            println!("{l}");
-        }
-        Ok(())
-    })();
-    match result {
-        Ok(()) => Exit::Ok,
         Err(e) => {
             eprintln!("error: {e}");
             Exit::StepFailed
@@ -759,4 +764,58 @@ fn stages_cmd(name: Option<&str>, json: bool, catalog: &[&'static dyn Stage]) ->
         }
     }
     Exit::Ok
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::testing::test_stage;
+    use stages::stage::Port;
+    use stages::Kind;
+
+    test_stage!(
+        ReadV1,
+        "t.read",
+        1,
+        &[Port::each("file", Kind::File, "a file")]
+    );
+    test_stage!(
+        ReadV2,
+        "t.read",
+        2,
+        &[Port::each("file", Kind::File, "a file")]
+    );
+    static V1: &[&dyn Stage] = &[&ReadV1];
+    static V2: &[&dyn Stage] = &[&ReadV2];
+
+    #[test]
+    fn plan_tells_a_new_stage_version_and_a_new_node_apart() {
+        let t = tempfile::tempdir().unwrap();
+        std::fs::write(t.path().join("a.txt"), "a").unwrap();
+        let recipe = t.path().join("r.yaml");
+        std::fs::write(
+            &recipe,
+            "id: v\nsamples:\n  s: '*.txt'\nsteps:\n  read: { stage: t.read, from: s }\n",
+        )
+        .unwrap();
+        let r = recipe.display().to_string();
+        let args = RecipeArgs {
+            recipe: recipe.clone(),
+            set: Vec::new(),
+            allow_outside: false,
+            cache: None,
+        };
+        let plan_with = |catalog: &[&'static dyn Stage]| {
+            let plan = phase1(&args, catalog).unwrap();
+            plan_lines(&args, &plan).unwrap()
+        };
+        assert_eq!(plan_with(V1)[1], "  run      read [a]  (new: never run)");
+        let run = vec!["retort".to_string(), "run".into(), r, "--quiet".into()];
+        assert_eq!(main_with(run, V1), Exit::Ok);
+        assert_eq!(plan_with(V1)[1], "  cached   read [a]");
+        assert_eq!(
+            plan_with(V2)[1],
+            "  run      read [a]  (new stage version (1 -> 2))"
+        );
+    }
 }

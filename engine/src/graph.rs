@@ -266,7 +266,9 @@ pub fn expand(plan: &Plan, index: &mut StatIndex) -> Result<Graph, String> {
                                 let name = match s {
                                     Src::Set(x) => plan.sets[*x].name.clone(),
                                     Src::Step(j) => {
-                                        let ns = &plan.recipes[plan.steps[*j].recipe].namespace;
+                                        // Named as the consuming step's recipe writes it:
+                                        // `c1s_area` inside xps, `xps/c1s_area` from a chapter.
+                                        let ns = &plan.recipes[step.recipe].namespace;
                                         plan.steps[*j]
                                             .id
                                             .strip_prefix(ns.as_str())
@@ -394,41 +396,20 @@ pub fn node_key(
 #[cfg(test)]
 mod tests {
     use super::*;
-    use schemars::JsonSchema;
-    use serde::{Deserialize, Serialize};
-    use stages::stage::{Inputs, Port, Stage, StageError, StageInfo, TypedStage};
-    use stages::{Artifact, Kind, Value};
+    use crate::testing::test_stage;
+    use stages::stage::{Port, Stage};
+    use stages::Kind;
 
-    #[derive(Default, Serialize, Deserialize, JsonSchema)]
-    #[serde(deny_unknown_fields, default)]
-    struct NoOptions {}
-
-    macro_rules! test_stage {
-        ($ty:ident, $name:expr, $ports:expr) => {
-            struct $ty;
-            impl TypedStage for $ty {
-                type Options = NoOptions;
-                const INFO: &'static StageInfo = &StageInfo {
-                    name: $name,
-                    version: 1,
-                    summary: "test",
-                    inputs: $ports,
-                    output: Kind::Summary,
-                    references: &[],
-                };
-                fn methods(&self, _o: &NoOptions) -> String {
-                    "Test.".into()
-                }
-                fn run(&self, _i: &Inputs, _o: &NoOptions) -> Result<Artifact, StageError> {
-                    Ok(Artifact::new(Value::Summary))
-                }
-            }
-        };
-    }
-    test_stage!(Read, "t.read", &[Port::each("file", Kind::File, "a file")]);
+    test_stage!(
+        Read,
+        "t.read",
+        1,
+        &[Port::each("file", Kind::File, "a file")]
+    );
     test_stage!(
         Both,
         "t.both",
+        1,
         &[
             Port::each("sample", Kind::Any, "per item"),
             Port::each("blank", Kind::Any, "broadcast")
@@ -437,11 +418,13 @@ mod tests {
     test_stage!(
         Many,
         "t.several",
+        1,
         &[Port::several("parts", Kind::Any, "several steps")]
     );
     test_stage!(
         All,
         "t.gather",
+        1,
         &[Port::gather("items", Kind::Any, "all items")]
     );
     static CATALOG: &[&dyn Stage] = &[&Read, &Both, &Many, &All];

@@ -21,6 +21,8 @@ pub mod scheduler;
 pub mod shard;
 pub mod slurm;
 pub mod status;
+#[cfg(test)]
+mod testing;
 pub mod timefmt;
 
 /// The engine version, recorded in provenance and run.json.

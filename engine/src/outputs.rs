@@ -326,6 +326,18 @@ pub fn write(dir: &Path, rel: &str, bytes: &[u8]) -> Result<(), String> {
     std::fs::write(&path, bytes).map_err(|e| format!("{}: {e}", path.display()))
 }
 
+/// Writes `v` as pretty JSON (and a final newline) to `dir/rel`, streaming.
+pub fn write_json<T: serde::Serialize>(dir: &Path, rel: &str, v: &T) -> Result<(), String> {
+    use std::io::Write as _;
+    let path = dir.join(rel);
+    let err = |e: &dyn std::fmt::Display| format!("{}: {e}", path.display());
+    let file = std::fs::File::create(&path).map_err(|e| err(&e))?;
+    let mut w = std::io::BufWriter::new(file);
+    serde_json::to_writer_pretty(&mut w, v).map_err(|e| err(&e))?;
+    w.write_all(b"\n").map_err(|e| err(&e))?;
+    w.flush().map_err(|e| err(&e))
+}
+
 pub fn json_bytes<T: serde::Serialize>(v: &T) -> Result<Vec<u8>, String> {
     let mut b = serde_json::to_vec_pretty(v).map_err(|e| e.to_string())?;
     b.push(b'\n');

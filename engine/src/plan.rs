@@ -1574,3 +1574,22 @@ fn option_path(p: &str) -> Vec<Seg> {
     }
     out
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    proptest::proptest! {
+        #![proptest_config(proptest::prelude::ProptestConfig::with_cases(64))]
+        /// Phase one never panics, whatever the text: it gives a plan or diagnostics.
+        #[test]
+        fn phase_one_never_panics(body in "(steps|samples|from|stage|options|id|x|\\{\\{ p \\}\\}|[:{}\\[\\], \n-]){0,60}") {
+            let t = tempfile::tempdir().unwrap();
+            let path = t.path().join("r.yaml");
+            std::fs::write(&path, format!("id: r\n{body}")).unwrap();
+            let p1 = build(&path, &["p=1".to_string()], false, stages::CATALOG);
+            let text = p1.render_diagnostics();
+            proptest::prop_assert!(p1.plan.is_some() || text.contains("error"));
+        }
+    }
+}

@@ -103,6 +103,8 @@ pub fn run(
     let mut refcount: Vec<usize> = dependents.iter().map(Vec::len).collect();
     let mut outcomes: Vec<Outcome> = (0..n).map(|_| Outcome::pending()).collect();
     let mut memory: HashMap<usize, Arc<Artifact>> = HashMap::new();
+    // Gathering nodes' inputs that failed or were skipped: (upstream, its label).
+    let mut lost: HashMap<usize, Vec<(usize, String)>> = HashMap::new();
     // Ready nodes, later steps first, then by index.
     let mut ready: BTreeSet<(std::cmp::Reverse<usize>, usize)> = canonical
         .iter()
@@ -127,14 +129,17 @@ pub fn run(
                 ready.remove(&first);
                 let i = first.1;
                 let mut inputs: HashMap<usize, Option<Arc<Artifact>>> = HashMap::new();
+                let gone = lost.get(&i).cloned().unwrap_or_default();
                 for &u in &graph.nodes[i].upstream {
-                    inputs.insert(u, memory.get(&u).cloned());
+                    if !gone.iter().any(|(g, _)| *g == u) {
+                        inputs.insert(u, memory.get(&u).cloned());
+                    }
                 }
                 let tx = tx.clone();
                 in_flight += 1;
                 scope.spawn(move |_| {
                     let t0 = Instant::now();
-                    let done = work(plan, graph, cache, opts, i, inputs);
+                    let done = work(plan, graph, cache, opts, i, inputs, &gone);
                     let ms = t0.elapsed().as_secs_f64() * 1000.0;
                     let _ = tx.send((i, done, ms));
                 });
@@ -170,16 +175,36 @@ pub fn run(
                     let status = NodeStatus::Failed { error: error.clone() };
                     progress.finished(&label, &status, ms);
                     outcomes[i] = Outcome { status, corrupt, ..Outcome::pending() };
-                    // Everything downstream is skipped.
-                    let mut stack = dependents[i].clone();
-                    while let Some(d) = stack.pop() {
-                        if matches!(outcomes[d].status, NodeStatus::Skipped { ref because } if because == "not reached") {
-                            outcomes[d].status = NodeStatus::Skipped { because: format!("{label} failed") };
-                            progress.finished(&node_label(plan, graph, d), &outcomes[d].status, 0.0);
-                            remaining -= 1;
-                            ready.retain(|(_, x)| *x != d);
-                            stack.extend(dependents[d].iter().copied());
+                    // Everything downstream is skipped, except that a gathering node
+                    // goes on without the lost items (and says which in a note).
+                    let mut stack: Vec<(usize, usize)> =
+                        dependents[i].iter().map(|&d| (d, i)).collect();
+                    while let Some((d, from)) = stack.pop() {
+                        if !matches!(outcomes[d].status, NodeStatus::Skipped { ref because } if because == "not reached") {
+                            continue;
                         }
+                        if !opts.fail_fast && gathers_from(plan, graph, d, from) {
+                            lost.entry(d).or_default().push((from, label.clone()));
+                            waiting[d] -= 1;
+                            if waiting[d] == 0 {
+                                if gathers_something(plan, graph, d, &lost[&d]) {
+                                    ready.insert((std::cmp::Reverse(graph.nodes[d].step), d));
+                                } else {
+                                    outcomes[d].status = NodeStatus::Skipped {
+                                        because: "every gathered item failed".into(),
+                                    };
+                                    progress.finished(&node_label(plan, graph, d), &outcomes[d].status, 0.0);
+                                    remaining -= 1;
+                                    stack.extend(dependents[d].iter().map(|&x| (x, d)));
+                                }
+                            }
+                            continue;
+                        }
+                        outcomes[d].status = NodeStatus::Skipped { because: format!("{label} failed") };
+                        progress.finished(&node_label(plan, graph, d), &outcomes[d].status, 0.0);
+                        remaining -= 1;
+                        ready.retain(|(_, x)| *x != d);
+                        stack.extend(dependents[d].iter().map(|&x| (x, d)));
                     }
                     if opts.fail_fast {
                         stopped = true;
@@ -212,6 +237,35 @@ pub fn run(
     Ok(outcomes)
 }
 
+/// Whether node `d` takes upstream node `u` through a gathering port (so it can go on
+/// without it).
+fn gathers_from(plan: &Plan, graph: &Graph, d: usize, u: usize) -> bool {
+    let node = &graph.nodes[d];
+    let ports = plan.steps[node.step].stage.info().inputs;
+    node.inputs.iter().enumerate().any(|(p, inp)| {
+        matches!(ports.get(p).map(|x| x.arity), Some(stages::stage::Arity::Gather))
+            && matches!(inp, NodeInput::Many(v) if v.iter().any(|(_, r)| matches!(r, Ref::Node(n) if *n == u)))
+    })
+}
+
+/// Whether a gathering node still has at least one input on every gathering port.
+fn gathers_something(plan: &Plan, graph: &Graph, d: usize, lost: &[(usize, String)]) -> bool {
+    let node = &graph.nodes[d];
+    let ports = plan.steps[node.step].stage.info().inputs;
+    node.inputs.iter().enumerate().all(|(p, inp)| match inp {
+        NodeInput::Many(v)
+            if matches!(
+                ports.get(p).map(|x| x.arity),
+                Some(stages::stage::Arity::Gather)
+            ) =>
+        {
+            v.iter()
+                .any(|(_, r)| !matches!(r, Ref::Node(n) if lost.iter().any(|(g, _)| g == n)))
+        }
+        _ => true,
+    })
+}
+
 /// Loads or runs one node on a worker thread.
 fn work(
     plan: &Plan,
@@ -220,6 +274,7 @@ fn work(
     opts: &RunOptions,
     i: usize,
     mut held: HashMap<usize, Option<Arc<Artifact>>>,
+    lost: &[(usize, String)],
 ) -> Done {
     let node = &graph.nodes[i];
     let step = &plan.steps[node.step];
@@ -299,6 +354,11 @@ fn work(
             NodeInput::Many(v) => {
                 let mut many = Vec::new();
                 for (name, r) in v {
+                    if let Ref::Node(n) = r {
+                        if lost.iter().any(|(g, _)| *g == *n) {
+                            continue;
+                        }
+                    }
                     match get(*r) {
                         Some(a) => many.push((name.as_str(), a)),
                         None => return fail("an input is missing".into(), corrupt),
@@ -318,7 +378,7 @@ fn work(
         step.stage.run(&inputs, &step.options)
     }));
     let duration_ms = t0.elapsed().as_secs_f64() * 1000.0;
-    let artifact = match result {
+    let mut artifact = match result {
         Ok(Ok(a)) => a,
         Ok(Err(e)) => return fail(e.to_string(), corrupt),
         Err(p) => {
@@ -341,6 +401,14 @@ fn work(
             ),
             corrupt,
         );
+    }
+    if !lost.is_empty() {
+        let names: Vec<&str> = lost.iter().map(|(_, l)| l.as_str()).collect();
+        artifact.warn(format!(
+            "gathered without {} input(s) that did not finish: {}",
+            lost.len(),
+            names.join(", ")
+        ));
     }
     let meta = Meta {
         stage: info.name.to_string(),

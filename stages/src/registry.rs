@@ -69,6 +69,7 @@ pub static CATALOG: &[&dyn Stage] = &[
     &crate::elements::per_particle::ElementsOverlay,
     // gather
     &crate::gather::table::GatherTable,
+    &crate::gather::combine::GatherCombine,
     // spectral core: import
     &crate::import::jcamp::ImportJcamp,
     // spectral core: convert
@@ -76,6 +77,7 @@ pub static CATALOG: &[&dyn Stage] = &[
     &crate::convert::absorbance::ConvertAbsorbance,
     // spectral core: calibrate
     &crate::calibrate::shift::CalibrateShift,
+    &crate::calibrate::apply_shift::ApplyShift,
     &crate::calibrate::polynomial::CalibratePolynomial,
     &crate::calibrate::binding_energy::CalibrateBindingEnergy,
     // spectral core: transform

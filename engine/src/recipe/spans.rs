@@ -344,7 +344,9 @@ impl Scanner<'_> {
             Some('{') => {
                 cur.1 += 1;
                 while self.next_entry(cur, '}') {
-                    let line = &self.lines[cur.0];
+                    let Some(line) = self.lines.get(cur.0) else {
+                        return;
+                    };
                     let start = cur.1;
                     let (key, end) = flow_key(line, start);
                     let key_pos = pos(cur.0, start, end - start);
@@ -353,7 +355,9 @@ impl Scanner<'_> {
                     if self.peek(*cur) == Some(':') {
                         cur.1 += 1;
                         self.skip_ws(cur);
-                        let line = &self.lines[cur.0];
+                        let Some(line) = self.lines.get(cur.0) else {
+                            return;
+                        };
                         let vpos = pos(cur.0, cur.1, scalar_len(line, cur.1, true));
                         self.record(p.clone(), key_pos, Some(vpos));
                         self.flow(&p, cur);
@@ -366,7 +370,9 @@ impl Scanner<'_> {
                 cur.1 += 1;
                 let mut idx = 0;
                 while self.next_entry(cur, ']') {
-                    let line = &self.lines[cur.0];
+                    let Some(line) = self.lines.get(cur.0) else {
+                        return;
+                    };
                     let ipos = pos(cur.0, cur.1, scalar_len(line, cur.1, true));
                     let mut p = path.to_vec();
                     p.push(Seg::Index(idx));
@@ -376,7 +382,9 @@ impl Scanner<'_> {
                 }
             }
             Some(_) => {
-                let line = &self.lines[cur.0];
+                let Some(line) = self.lines.get(cur.0) else {
+                    return;
+                };
                 cur.1 += scalar_len(line, cur.1, true).max(1);
             }
             None => {}
@@ -533,6 +541,37 @@ mod tests {
         // Unknown paths fall back to the nearest ancestor.
         assert_eq!(s.key(&k(&["steps", "smooth", "options", "nope"])).line, 7);
         assert!(s.duplicates.is_empty());
+    }
+
+    #[test]
+    fn never_panics_on_truncated_or_odd_text() {
+        let odd = [
+            "a: {b:",
+            "a: [",
+            "- - - x",
+            "a: {b: [1, {c: ",
+            "'q: 1",
+            "a:\n  - b: {",
+            "\t- x: y",
+            "a: \"unterminated",
+            ": x",
+            "{}: [",
+            "a: |",
+            "- {a: 1}\n- [b",
+        ];
+        for text in odd {
+            let _ = Spans::scan(text);
+        }
+        for end in 0..DOC.len() {
+            let _ = Spans::scan(&DOC[..end]);
+        }
+    }
+
+    proptest::proptest! {
+        #[test]
+        fn never_panics_on_yaml_like_noise(text in "[a-c:{}\\[\\], \n#|>'\"-]{0,80}") {
+            let _ = Spans::scan(&text);
+        }
     }
 
     #[test]

@@ -1,5 +1,6 @@
 //! Calibration of the x axis: `calibrate.shift`, `calibrate.polynomial`,
 //! `calibrate.binding_energy`.
+pub mod apply_shift;
 pub mod binding_energy;
 pub mod polynomial;
 pub mod shift;
