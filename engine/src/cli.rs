@@ -279,7 +279,11 @@ fn run_plan(a: &RunArgs, plan: &Plan) -> Result<Exit, String> {
         .clone()
         .unwrap_or_else(|| plan.policy.root.join("out"));
     if a.shard.is_some() {
-        // A shard writes only into the cache.
+        // A shard writes only into the cache, for a later run to gather.
+        if a.no_cache {
+            eprintln!("error: --shard leaves its work in the cache for a final run; it cannot be combined with --no-cache");
+            return Ok(Exit::Usage);
+        }
     } else if let Err(e) = outputs::check_target(&out, &plan.policy.root, &dir) {
         eprintln!("error: {e}");
         return Ok(Exit::Usage);

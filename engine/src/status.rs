@@ -180,7 +180,15 @@ fn recipe_status(
     catalog: &[&'static dyn Stage],
 ) -> Result<Counts, String> {
     let plan = crate::cli::phase1(a, catalog).map_err(|_| String::new())?;
-    let cache = Cache::open(&crate::cli::cache_dir(a, &plan), true)?;
+    let dir = crate::cli::cache_dir(a, &plan);
+    // Looking must not create a cache: a missing one is read as an empty one.
+    let empty = if dir.is_dir() {
+        None
+    } else {
+        println!("(no cache at {} yet: nothing has run)", dir.display());
+        Some(tempfile::tempdir().map_err(|e| e.to_string())?)
+    };
+    let cache = Cache::open(empty.as_ref().map_or(dir.as_path(), |t| t.path()), true)?;
     let graph = crate::cli::expand(&plan, &cache)?;
     let current = shard::plan_id(&graph);
     let logs = shard::read_logs(&shard::log_dir(&cache.dir, &plan));
@@ -217,6 +225,7 @@ fn recipe_status(
     let mut c = Counts::default();
     let mut per_shard: Vec<Counts> = (0..n).map(|_| Counts::default()).collect();
     let mut failures = Vec::new();
+    let mut gathering = 0;
     for (i, node) in graph.nodes.iter().enumerate() {
         if node.same_as.is_some() {
             continue;
@@ -236,6 +245,9 @@ fn recipe_status(
             failures.push(format!("{label}: {error} (shard {shard})"));
         } else {
             one.pending = 1;
+            if node.item.is_none() {
+                gathering += 1;
+            }
         }
         for t in [Some(&mut c), slot].into_iter().flatten() {
             t.total += one.total;
@@ -245,11 +257,19 @@ fn recipe_status(
         }
     }
     println!("recipe: {}", shard::recipe_path(&plan).display());
-    println!("cache:  {}", cache.dir.display());
+    println!(
+        "cache:  {}",
+        if empty.is_some() { &dir } else { &cache.dir }.display()
+    );
     println!(
         "{} nodes: {} done (in the cache), {} failed, {} pending",
         c.total, c.done, c.failed, c.pending
     );
+    if gathering > 0 {
+        println!(
+            "  ({gathering} of the pending nodes gather or run once: the final run does them)"
+        );
+    }
     if n > 0 {
         println!("shards ({n}; fan-out nodes done/failed/pending):");
         for (s, pc) in per_shard.iter().enumerate() {
