@@ -1,4 +1,4 @@
-//! The command line: `run`, `check`, `plan`, `stages`, `report`.
+//! The command line: `run`, `check`, `plan`, `stages`, `report`, `slurm`, `status`.
 //!
 //! The outermost layer: it parses arguments, calls phase one, the graph, the
 //! scheduler and the writers, prints to the terminal and picks the exit code.
