@@ -152,6 +152,26 @@ fn read_segment_table(path: &Path) -> Option<Vec<(String, u64, u32)>> {
     Some(out)
 }
 
+/// This machine's name, reduced to characters safe in a file name.
+fn host_tag() -> &'static str {
+    static TAG: std::sync::OnceLock<String> = std::sync::OnceLock::new();
+    TAG.get_or_init(|| {
+        let h = hostname::get()
+            .map(|h| h.to_string_lossy().to_string())
+            .unwrap_or_default();
+        let t: String = h
+            .chars()
+            .filter(|c| c.is_ascii_alphanumeric() || *c == '.' || *c == '_')
+            .take(40)
+            .collect();
+        if t.is_empty() {
+            "host".into()
+        } else {
+            t
+        }
+    })
+}
+
 fn key_bytes(key: &str) -> Option<[u8; 32]> {
     let mut out = [0u8; 32];
     if key.len() != 64 {
@@ -386,7 +406,12 @@ impl Cache {
             .map(|d| d.as_nanos())
             .unwrap_or(0);
         let n = COUNTER.fetch_add(1, Ordering::Relaxed);
-        let name = format!("{nanos:020}-{}-{n:06}.seg", std::process::id());
+        // Host and pid make the name unique among writers on a shared filesystem.
+        let name = format!(
+            "{nanos:020}-{}-{}-{n:06}.seg",
+            host_tag(),
+            std::process::id()
+        );
         let path = self.dir.join("segments").join(name);
         self.publish(&path, &out)?;
         if let Ok(mut segs) = self.segments.write() {

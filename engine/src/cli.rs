@@ -1,4 +1,4 @@
-//! The command line: `run`, `check`, `plan`, `stages`, `report`.
+//! The command line: `run`, `check`, `plan`, `stages`, `report`, `slurm`, `status`.
 //!
 //! The outermost layer: it parses arguments, calls phase one, the graph, the
 //! scheduler and the writers, prints to the terminal and picks the exit code.
@@ -89,6 +89,11 @@ pub enum Command {
     },
     /// Print the JSON Schema (draft 2020-12) of the recipe format, for editors.
     Schema,
+    /// Write (and with --submit, submit) Slurm batch scripts: a job array of shards
+    /// and a gather-and-report job that waits for it.
+    Slurm(crate::slurm::SlurmArgs),
+    /// Progress of a recipe across shards: nodes done, failed, pending.
+    Status(crate::status::StatusArgs),
     /// Re-render the report of a finished run from its run.json and the cache.
     Report {
         /// The output folder of a run.
@@ -133,6 +138,10 @@ pub struct RunArgs {
     /// Refuse to run (exit 2) when the recipe's lock file disagrees or is missing.
     #[arg(long)]
     pub locked: bool,
+    /// Run only shard K of N of the fan-out (and what it needs) into the cache; no
+    /// report. A plain run afterwards gathers and reports.
+    #[arg(long, value_name = "K/N")]
+    pub shard: Option<crate::shard::ShardSpec>,
 }
 
 /// Parses `args` and runs the command with `catalog`; returns the exit code.
@@ -183,6 +192,8 @@ pub fn main_with(args: Vec<String>, catalog: &[&'static dyn Stage]) -> Exit {
             output,
             force,
         } => crate::scaffold::command(technique.as_deref(), output.as_deref(), force),
+        Command::Slurm(a) => crate::slurm::command(&a, catalog),
+        Command::Status(a) => crate::status::command(&a, catalog),
         Command::Report { outdir } => report_cmd(&outdir),
     }
 }
@@ -356,7 +367,13 @@ fn run_plan(a: &RunArgs, plan: &Plan) -> Result<Exit, String> {
         .out
         .clone()
         .unwrap_or_else(|| plan.policy.root.join("out"));
-    if let Err(e) = outputs::check_target(&out, &plan.policy.root, &dir) {
+    if a.shard.is_some() {
+        // A shard writes only into the cache, for a later run to gather.
+        if a.no_cache {
+            eprintln!("error: --shard leaves its work in the cache for a final run; it cannot be combined with --no-cache");
+            return Ok(Exit::Usage);
+        }
+    } else if let Err(e) = outputs::check_target(&out, &plan.policy.root, &dir) {
         eprintln!("error: {e}");
         return Ok(Exit::Usage);
     }
@@ -389,6 +406,13 @@ fn run_plan(a: &RunArgs, plan: &Plan) -> Result<Exit, String> {
         fail_fast: a.fail_fast,
         host: host.clone(),
     };
+    if let Some(spec) = a.shard {
+        let exit = crate::shard::run_shard(plan, &graph, &cache, &opts, &reporter, spec, a.quiet);
+        if let Some(b) = &reporter.bar {
+            b.finish_and_clear();
+        }
+        return exit;
+    }
     let outcomes = scheduler::run(plan, &graph, &cache, &opts, &reporter);
     cache.flush()?;
     let outcomes = outcomes?;

@@ -22,6 +22,9 @@ pub mod record;
 pub mod report;
 pub mod scaffold;
 pub mod scheduler;
+pub mod shard;
+pub mod slurm;
+pub mod status;
 #[cfg(test)]
 mod testing;
 pub mod schema;
