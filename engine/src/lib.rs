@@ -22,12 +22,12 @@ pub mod record;
 pub mod report;
 pub mod scaffold;
 pub mod scheduler;
+pub mod schema;
 pub mod shard;
 pub mod slurm;
 pub mod status;
 #[cfg(test)]
 mod testing;
-pub mod schema;
 pub mod timefmt;
 pub mod verify;
 
