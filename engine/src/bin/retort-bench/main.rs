@@ -11,7 +11,8 @@
 //! `particles` (4096×4096 16-bit), `cold` (the whole recipe over 2,000 spectra,
 //! `--no-cache`, `--jobs 1` and `--jobs 2`, the real binary), `incremental` (1,000
 //! files: report rendering, no-op rerun, one file changed, that chain alone),
-//! `memory` (peak RSS of the 10,000-spectrum run), `engine` (re-plan and per-node
+//! `memory` (peak RSS of the 10,000-spectrum run, `--memory-counts` for others;
+//! a run is skipped, and says so, when the disk lacks room for its throwaway cache), `engine` (re-plan and per-node
 //! overhead). `--smoke` runs every workload at a tiny size in seconds.
 //!
 //! Side-by-side helpers for `bench/side_by_side.py`:
@@ -66,6 +67,7 @@ struct Args {
     write_data: Option<PathBuf>,
     side: Option<PathBuf>,
     count: Option<usize>,
+    memory_counts: Vec<usize>,
 }
 
 fn args() -> Args {
@@ -77,6 +79,7 @@ fn args() -> Args {
         write_data: None,
         side: None,
         count: None,
+        memory_counts: vec![10_000],
     };
     let mut it = std::env::args().skip(1);
     while let Some(s) = it.next() {
@@ -100,6 +103,15 @@ fn args() -> Args {
                         .unwrap_or_else(|_| usage("--count takes a whole number")),
                 )
             }
+            "--memory-counts" => {
+                a.memory_counts = value("--memory-counts")
+                    .split(',')
+                    .map(|v| {
+                        v.parse()
+                            .unwrap_or_else(|_| usage("--memory-counts takes whole numbers"))
+                    })
+                    .collect()
+            }
             "-h" | "--help" => usage(""),
             other => usage(&format!("unknown argument {other}")),
         }
@@ -111,7 +123,7 @@ fn usage(msg: &str) -> ! {
     if !msg.is_empty() {
         eprintln!("error: {msg}");
     }
-    eprintln!("usage: retort-bench [--smoke] [--json FILE] [--only import,filters,fit,particles,cold,incremental,memory,engine] [--work DIR]\n       retort-bench --write-data DIR --count N\n       retort-bench --side DIR --count N");
+    eprintln!("usage: retort-bench [--smoke] [--json FILE] [--only import,filters,fit,particles,cold,incremental,memory,engine] [--work DIR] [--memory-counts 10000]\n       retort-bench --write-data DIR --count N\n       retort-bench --side DIR --count N");
     std::process::exit(if msg.is_empty() { 0 } else { 2 })
 }
 
@@ -223,12 +235,11 @@ fn main() {
         runs::incremental(&mut t, &work, if s { 8 } else { 1000 });
     }
     if want("memory") {
-        runs::memory(
-            &mut t,
-            &work,
-            if s { 16 } else { 10_000 },
-            Some(("<", 500.0)),
-        );
+        let counts = if s { vec![16] } else { a.memory_counts.clone() };
+        for n in counts {
+            let goal = (n >= 10_000 || s).then_some(("<", 500.0));
+            runs::memory(&mut t, &work, n, goal);
+        }
     }
     if want("engine") {
         if s {

@@ -152,6 +152,34 @@ pub fn run(recipe: &Path, args: &[&str]) -> RunFigures {
     }
 }
 
+/// Free space (MB) of the file system holding `dir`, from `df -Pk`.
+pub fn free_mb(dir: &Path) -> Option<f64> {
+    let out = Command::new("df").arg("-Pk").arg(dir).output().ok()?;
+    let text = String::from_utf8_lossy(&out.stdout);
+    let kb: f64 = text.lines().nth(1)?.split_whitespace().nth(3)?.parse().ok()?;
+    Some(kb / 1024.0)
+}
+
+/// Disk a run over `count` spectra needs for its inputs and (throwaway) cache: about
+/// 0.3 MB a spectrum for this recipe (the fit artifact holds six 2,000-point curves).
+fn disk_ok(t: &mut Table, work: &Path, workload: &str, metric: &str, count: usize) -> bool {
+    let need = 0.3 * count as f64 + 200.0;
+    match free_mb(work) {
+        Some(free) if free < need => {
+            t.row(
+                workload,
+                metric,
+                f64::NAN,
+                "",
+                None,
+                &format!("skipped: needs about {need:.0} MB of disk, {free:.0} MB free"),
+            );
+            false
+        }
+        _ => true,
+    }
+}
+
 fn mb(r: &RunFigures) -> String {
     r.peak_mb
         .map(|m| format!("{m:.0} MB peak RSS"))
@@ -160,6 +188,9 @@ fn mb(r: &RunFigures) -> String {
 
 /// Cold runs at 1 and 2 threads (each `repeats` times, interleaved; best kept).
 pub fn cold(t: &mut Table, work: &Path, count: usize, repeats: usize) {
+    if !disk_ok(t, work, "recipe.cold", &format!("{count} spectra"), count) {
+        return;
+    }
     let dir = work.join(format!("cold{count}"));
     let recipe = dataset(&dir, count, 1);
     let mut best = [f64::INFINITY; 2];
@@ -204,10 +235,15 @@ pub fn cold(t: &mut Table, work: &Path, count: usize, repeats: usize) {
         None,
         "--jobs 2, --no-cache",
     );
+    let _ = std::fs::remove_dir_all(&dir);
 }
 
 /// Peak memory of one cold run over `count` spectra.
 pub fn memory(t: &mut Table, work: &Path, count: usize, goal: Option<(&str, f64)>) {
+    let metric = format!("peak RSS, {count}-spectrum cold run");
+    if !disk_ok(t, work, "memory", &metric, count) {
+        return;
+    }
     let dir = work.join(format!("mem{count}"));
     let recipe = dataset(&dir, count, 1);
     let r = run(&recipe, &["--no-cache", "--jobs", "2"]);
@@ -216,9 +252,10 @@ pub fn memory(t: &mut Table, work: &Path, count: usize, goal: Option<(&str, f64)
         .iter()
         .map(|(n, ms)| format!("{n} {:.1} s", ms / 1e3))
         .collect();
+    let _ = std::fs::remove_dir_all(&dir);
     t.row(
         "memory",
-        &format!("peak RSS, {count}-spectrum cold run"),
+        &metric,
         r.peak_mb.unwrap_or(f64::NAN),
         "MB",
         goal,
@@ -233,6 +270,9 @@ pub fn memory(t: &mut Table, work: &Path, count: usize, goal: Option<(&str, f64)
 
 /// No-op rerun, one changed file, that file's chain alone; report rendering.
 pub fn incremental(t: &mut Table, work: &Path, count: usize) {
+    if !disk_ok(t, work, "recipe.noop", &format!("{count} files"), count) {
+        return;
+    }
     let dir = work.join(format!("inc{count}"));
     let recipe = dataset(&dir, count, 1);
     let first = run(&recipe, &["--jobs", "2"]);
@@ -310,6 +350,8 @@ pub fn incremental(t: &mut Table, work: &Path, count: usize) {
         None,
         "best of 3, whole process",
     );
+    let _ = std::fs::remove_dir_all(&dir);
+    let _ = std::fs::remove_dir_all(&solo_dir);
     t.row(
         "recipe.one_changed",
         "ratio changed-rerun / chain alone",
