@@ -817,9 +817,21 @@ mod fuzz {
             let got = parse_number(&s, false).unwrap();
             assert_eq!(got.to_bits(), want.to_bits(), "{s}");
             let comma = s.replace('.', ",");
-            assert_eq!(parse_number(&comma, true).unwrap().to_bits(), want.to_bits(), "{comma}");
+            assert_eq!(
+                parse_number(&comma, true).unwrap().to_bits(),
+                want.to_bits(),
+                "{comma}"
+            );
         }
-        for s in ["1e5", "-2.5E-3", "inf", "NaN", ".5", "5.", "0.000000000000000000001"] {
+        for s in [
+            "1e5",
+            "-2.5E-3",
+            "inf",
+            "NaN",
+            ".5",
+            "5.",
+            "0.000000000000000000001",
+        ] {
             assert_eq!(
                 parse_number(s, false).map(f64::to_bits),
                 s.parse::<f64>().ok().map(f64::to_bits),
@@ -830,5 +842,4 @@ mod fuzz {
             assert!(parse_number(s, false).is_none(), "{s}");
         }
     }
-
 }

@@ -80,7 +80,8 @@ fn write_files(dir: &Path, n: usize) {
     }
 }
 
-pub fn replan(files: usize) {
+/// Returns the best no-op re-plan time in seconds.
+pub fn replan(files: usize) -> f64 {
     let t = tempfile::tempdir().unwrap_or_else(|e| panic!("{e}"));
     write_files(t.path(), files);
     let recipe = t.path().join("r.yaml");
@@ -118,6 +119,7 @@ pub fn replan(files: usize) {
         first.as_secs_f64()
     );
     println!("  no-op re-plan      {:>8.1} ms   (recipe + plan {:.1} ms, graph + stat index {:.1} ms, cache lookups {:.1} ms; goal < 200 ms)", ms(best), ms(parts.0), ms(parts.1), ms(parts.2));
+    best.as_secs_f64()
 }
 
 fn ms(d: Duration) -> f64 {

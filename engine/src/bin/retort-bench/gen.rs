@@ -88,7 +88,12 @@ pub fn spectrum(seed: u64) -> Generated {
         .map(|&v| {
             let peaks: f64 = (0..3)
                 .map(|k| {
-                    let p = [truth.center[k], truth.area[k], truth.sigma[k], truth.gamma[k]];
+                    let p = [
+                        truth.center[k],
+                        truth.area[k],
+                        truth.sigma[k],
+                        truth.gamma[k],
+                    ];
                     Shape::Voigt.eval(&p, v, &mut d)
                 })
                 .sum();

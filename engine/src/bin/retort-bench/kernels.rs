@@ -180,14 +180,7 @@ pub fn filters(spectra: &[Generated], min_seconds: f64) -> Vec<(&'static str, f6
 
 pub fn filter_rows(t: &mut Table, spectra: &[Generated], min_seconds: f64) {
     for (name, us, note) in filters(spectra, min_seconds) {
-        t.row(
-            name,
-            "time per 2,000-point spectrum",
-            us,
-            "us",
-            None,
-            &note,
-        );
+        t.row(name, "time per 2,000-point spectrum", us, "us", None, &note);
     }
 }
 

@@ -31,7 +31,11 @@ pub fn dataset(dir: &Path, count: usize, first_seed: u64) -> PathBuf {
     std::fs::create_dir_all(&data).unwrap_or_else(|e| panic!("{}: {e}", data.display()));
     let old = SystemTime::now() - Duration::from_secs(3600);
     for i in 0..count {
-        write_spectrum(&data.join(format!("s{i:05}.csv")), first_seed + i as u64, Some(old));
+        write_spectrum(
+            &data.join(format!("s{i:05}.csv")),
+            first_seed + i as u64,
+            Some(old),
+        );
     }
     let recipe = dir.join("recipe.yaml");
     std::fs::write(&recipe, recipe_text()).unwrap_or_else(|e| panic!("{e}"));
@@ -96,7 +100,9 @@ pub fn run(recipe: &Path, args: &[&str]) -> RunFigures {
         .stdout(Stdio::null())
         .stderr(Stdio::piped());
     let t0 = Instant::now();
-    let mut child = cmd.spawn().unwrap_or_else(|e| panic!("cannot start retort: {e}"));
+    let mut child = cmd
+        .spawn()
+        .unwrap_or_else(|e| panic!("cannot start retort: {e}"));
     // Fallback: poll VmHWM of the child (the last reading before it exits).
     let mut hwm_kb: Option<f64> = None;
     let stderr = child.stderr.take();
@@ -156,7 +162,13 @@ pub fn run(recipe: &Path, args: &[&str]) -> RunFigures {
 pub fn free_mb(dir: &Path) -> Option<f64> {
     let out = Command::new("df").arg("-Pk").arg(dir).output().ok()?;
     let text = String::from_utf8_lossy(&out.stdout);
-    let kb: f64 = text.lines().nth(1)?.split_whitespace().nth(3)?.parse().ok()?;
+    let kb: f64 = text
+        .lines()
+        .nth(1)?
+        .split_whitespace()
+        .nth(3)?
+        .parse()
+        .ok()?;
     Some(kb / 1024.0)
 }
 

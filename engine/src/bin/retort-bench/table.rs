@@ -50,7 +50,10 @@ impl Table {
     }
 
     pub fn print(&self) {
-        println!("\n{:<22} {:<42} {:>12} {:<15} {:<10} note", "workload", "metric", "value", "unit", "goal");
+        println!(
+            "\n{:<22} {:<42} {:>12} {:<15} {:<10} note",
+            "workload", "metric", "value", "unit", "goal"
+        );
         for r in &self.rows {
             println!("{}", line(r));
         }
