@@ -71,6 +71,8 @@ const MAX_CURVE_POINTS: usize = 1000;
 /// Markdown links every figure), so a run over thousands of spectra stays a page
 /// a browser opens. Smaller runs inline everything.
 const INLINE_SVG_BYTES: usize = 12_000_000;
+/// Nodes whose figures are drawn together (their full artifacts in memory at once).
+const FIGURE_CHUNK: usize = 256;
 
 /// The cautions printed in every report footer (see the product brief).
 pub const CAUTIONS: [&str; 3] = [
@@ -463,6 +465,28 @@ fn input_files<'a>(
     files
 }
 
+/// The artifact with its per-point arrays emptied (spectrum x, y, σ and curves,
+/// image samples, label map): what the tables and captions read is kept.
+fn without_arrays(mut a: Artifact) -> Artifact {
+    fn strip(s: &mut stages::Spectrum) {
+        s.x = Vec::new();
+        s.y = Vec::new();
+        s.sigma = None;
+        for c in &mut s.curves {
+            c.y = Vec::new();
+        }
+    }
+    match &mut a.value {
+        Value::Spectrum(s) => strip(s),
+        Value::Fit(f) => strip(&mut f.spectrum),
+        Value::Peaks(p) => strip(&mut p.spectrum),
+        Value::Image(img) => img.data = Vec::new(),
+        Value::Labels(l) => l.labels = Vec::new(),
+        _ => {}
+    }
+    a
+}
+
 /// The figure of one node, if its value is drawable: None when nothing is drawn,
 /// `Ok(None)` for a table that has no plottable shape, `Err` when drawing failed.
 fn draw_node(
@@ -687,12 +711,22 @@ pub fn render(
         })?;
     }
     let mut summary = RenderSummary::default();
+    // Every artifact is read once here for its records and notes (all the tables
+    // need) and its curve count; its arrays are dropped at once and the figures
+    // re-read them chunk by chunk, so a big run's arrays are never all in memory.
+    let load = |n: &NodeRecord| match n.status {
+        NodeStatus::Ran | NodeStatus::Cached => artifacts.load(&n.key),
+        _ => None,
+    };
+    let mut curves = 0usize;
     let loaded: Vec<Option<Artifact>> = record
         .nodes
         .iter()
-        .map(|n| match n.status {
-            NodeStatus::Ran | NodeStatus::Cached => artifacts.load(&n.key),
-            _ => None,
+        .map(|n| {
+            load(n).map(|a| {
+                curves += a.spectrum().map_or(0, |s| 1 + s.curves.len());
+                without_arrays(a)
+            })
         })
         .collect();
     let by_key: HashMap<&str, usize> = record
@@ -703,12 +737,6 @@ pub fn render(
         .collect();
 
     // Share of points for each spectrum curve.
-    let curves: usize = loaded
-        .iter()
-        .flatten()
-        .filter_map(|a| a.spectrum())
-        .map(|s| 1 + s.curves.len())
-        .sum();
     let points = (POINT_BUDGET / curves.max(1)).clamp(MIN_CURVE_POINTS, MAX_CURVE_POINTS);
 
     // Step file-name stems: the step id, or recipe__step where ids repeat.
@@ -724,11 +752,57 @@ pub fn render(
         }
     };
 
-    // Figures are independent: draw them in parallel, in node order.
-    let mut drawings: Vec<Option<Result<Option<String>, String>>> = (0..record.nodes.len())
-        .into_par_iter()
-        .map(|i| draw_node(i, record, &loaded, &by_key, points))
-        .collect();
+    // Figures are independent: draw them in parallel, in node order, a chunk of
+    // nodes at a time with their full artifacts (and, for labels, the nodes up to
+    // four levels upstream, where their image is found).
+    let n_nodes = record.nodes.len();
+    let mut drawings: Vec<Option<Result<Option<String>, String>>> = Vec::with_capacity(n_nodes);
+    let mut full: Vec<Option<Artifact>> = (0..n_nodes).map(|_| None).collect();
+    for start in (0..n_nodes).step_by(FIGURE_CHUNK) {
+        let end = (start + FIGURE_CHUNK).min(n_nodes);
+        let mut held = Vec::new();
+        for i in start..end {
+            if loaded[i].is_none() {
+                continue;
+            }
+            full[i] = load(&record.nodes[i]);
+            held.push(i);
+            if matches!(
+                full[i],
+                Some(Artifact {
+                    value: Value::Labels(_),
+                    ..
+                })
+            ) {
+                let mut frontier: Vec<&str> = record.nodes[i]
+                    .upstream
+                    .iter()
+                    .map(String::as_str)
+                    .collect();
+                for _ in 0..4 {
+                    let mut next = Vec::new();
+                    for k in frontier {
+                        let Some(&u) = by_key.get(k) else { continue };
+                        if full[u].is_none() {
+                            full[u] = load(&record.nodes[u]);
+                            held.push(u);
+                        }
+                        next.extend(record.nodes[u].upstream.iter().map(String::as_str));
+                    }
+                    frontier = next;
+                }
+            }
+        }
+        drawings.par_extend(
+            (start..end)
+                .into_par_iter()
+                .map(|i| draw_node(i, record, &full, &by_key, points)),
+        );
+        for i in held {
+            full[i] = None;
+        }
+    }
+    drop(full);
 
     let mut fig_names = Names::default();
     let mut anchors = Anchors::default();

@@ -1,5 +1,4 @@
-//! Engine benchmarks (not timed tests): `cargo run --release -p engine --bin retort-bench`
-//! (add `-- --smoke` for a seconds-long run in CI).
+//! Engine overhead benchmarks (part of `retort-bench`):
 //!
 //! 1. No-op re-plan of a recipe over 1,000 small input files after a run: phase one,
 //!    graph expansion with the stat index fast path, and the cache lookup of every
@@ -81,7 +80,8 @@ fn write_files(dir: &Path, n: usize) {
     }
 }
 
-fn replan(files: usize) {
+/// Returns the best no-op re-plan time in seconds.
+pub fn replan(files: usize) -> f64 {
     let t = tempfile::tempdir().unwrap_or_else(|e| panic!("{e}"));
     write_files(t.path(), files);
     let recipe = t.path().join("r.yaml");
@@ -119,13 +119,14 @@ fn replan(files: usize) {
         first.as_secs_f64()
     );
     println!("  no-op re-plan      {:>8.1} ms   (recipe + plan {:.1} ms, graph + stat index {:.1} ms, cache lookups {:.1} ms; goal < 200 ms)", ms(best), ms(parts.0), ms(parts.1), ms(parts.2));
+    best.as_secs_f64()
 }
 
 fn ms(d: Duration) -> f64 {
     d.as_secs_f64() * 1000.0
 }
 
-fn overhead(items: usize, steps: usize) {
+pub fn overhead(items: usize, steps: usize) {
     let t = tempfile::tempdir().unwrap_or_else(|e| panic!("{e}"));
     write_files(t.path(), items);
     let mut y = String::from(
@@ -200,25 +201,5 @@ fn overhead(items: usize, steps: usize) {
         let in_stage: f64 = rec.nodes.iter().map(|n| n.duration_ms).sum::<f64>() / 1000.0;
         let per = (wall.as_secs_f64() - in_stage) / nodes as f64 * 1e6;
         println!("  {label:<34} wall {:>7.2} s, in stages {:>6.3} s, overhead {per:>7.1} us/node (exit {:?})", wall.as_secs_f64(), in_stage, code);
-    }
-}
-
-fn main() {
-    let smoke = std::env::args().any(|a| a == "--smoke");
-    let cores = std::thread::available_parallelism()
-        .map(|n| n.get())
-        .unwrap_or(1);
-    println!(
-        "retort-bench {} ({} cores{})",
-        engine::VERSION,
-        cores,
-        if smoke { ", smoke mode" } else { "" }
-    );
-    if smoke {
-        replan(20);
-        overhead(10, 5);
-    } else {
-        replan(1000);
-        overhead(100, 100);
     }
 }
