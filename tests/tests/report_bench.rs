@@ -1,16 +1,13 @@
-//! Benchmark, not a timed test: renders the report of a run over 1,000 spectra
-//! (import, background and a three-component fit each, 2,000 points per spectrum)
-//! and prints the time and the size of report.html. The size limit (20 MB) is
-//! asserted; the time (target under 5 s in a release build) is only printed.
-//!
-//! `cargo test --release -p tests --test report_bench -- --ignored --nocapture`
+//! Report size on a many-spectra run: 120 spectra (import, background and a
+//! three-component fit each, 2,000 points per spectrum). The size limit of report.html
+//! (20 MB, issue goal) is asserted; time is only printed — the 1,000-spectrum timing is
+//! measured by the benchmark harness (`retort-bench --only incremental`, its report phase), not by a test.
 
 mod report_fixture;
 
 #[test]
-#[ignore = "benchmark: run with --ignored"]
-fn thousand_spectra() {
-    let f = report_fixture::many(1000);
+fn many_spectra_report_stays_small() {
+    let f = report_fixture::many(120);
     let dir = tempfile::tempdir().unwrap();
     let src = f.source();
     let t = std::time::Instant::now();
@@ -23,7 +20,7 @@ fn thousand_spectra() {
         .unwrap()
         .len();
     println!(
-        "1000 spectra: {} figures ({} inlined), {} tables in {:.2} s; report.html {:.1} MB, report.md {:.1} MB",
+        "120 spectra: {} figures ({} inlined), {} tables in {:.2} s; report.html {:.1} MB, report.md {:.1} MB",
         s.figures,
         s.inlined,
         s.tables,
