@@ -176,14 +176,8 @@ struct Grid {
 }
 
 fn read_grid(name: &str, bytes: &[u8], o: &Options) -> Result<Grid, StageError> {
-    let text = std::str::from_utf8(bytes).map_err(|e| {
-        let line = bytes[..e.valid_up_to()]
-            .iter()
-            .filter(|&&b| b == b'\n')
-            .count()
-            + 1;
-        StageError::data(name, Some(line), "not valid UTF-8 text")
-    })?;
+    let decoded = crate::import::encoding::decode_text(name, bytes)?;
+    let text = decoded.as_str();
     let text = text.strip_prefix('\u{feff}').unwrap_or(text);
     let lines: Vec<(usize, &str)> = text
         .lines()
@@ -324,14 +318,22 @@ impl Grid {
                 StageError::data(
                     name,
                     Some(*line_no),
-                    format!("{what} value '{cell}' (field {}) is not a number", i + 1),
+                    format!(
+                        "{what} value '{}' (field {}) is not a number",
+                        crate::import::encoding::clip(cell),
+                        i + 1
+                    ),
                 )
             })?;
             if !v.is_finite() {
                 return Err(StageError::data(
                     name,
                     Some(*line_no),
-                    format!("{what} value '{cell}' (field {}) is not finite", i + 1),
+                    format!(
+                        "{what} value '{}' (field {}) is not finite",
+                        crate::import::encoding::clip(cell),
+                        i + 1
+                    ),
                 ));
             }
             out.push(v);
