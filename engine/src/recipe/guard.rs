@@ -14,7 +14,7 @@ pub const MAX_BYTES: usize = 1 << 20;
 /// flow brackets).
 pub const MAX_DEPTH: usize = 64;
 /// Most aliases (`*name`) in one recipe file.
-pub const MAX_ALIASES: usize = 100;
+pub const MAX_ALIASES: usize = 64;
 
 /// Decodes a recipe file: UTF-8 (a byte-order mark is dropped) or UTF-16 with a
 /// byte-order mark; anything else is refused with the place of the first bad byte.
@@ -190,10 +190,10 @@ mod tests {
         }
         assert!(check(&block).unwrap_err().0.contains("deeper than 64"));
         let mut bomb = String::from("a: &a [x]\n");
-        for i in 0..120 {
+        for i in 0..80 {
             bomb.push_str(&format!("b{i}: *a\n"));
         }
-        assert_eq!(check(&bomb).unwrap_err().1.line, 102);
+        assert_eq!(check(&bomb).unwrap_err().1.line, 66);
     }
 
     #[test]
