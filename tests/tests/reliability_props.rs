@@ -4,9 +4,9 @@
 //! - moving average: a convex combination, so every output lies within [min y, max y];
 //! - AsLS (Eilers & Boelens 2005): a finite background on any finite data (no
 //!   range promise: on random noise a smooth curve may undershoot the data);
-//! - Shirley (Shirley 1972): a finite background on a non-negative signal (the
-//!   stage averages points at each end, so the end levels are not single points and
-//!   no between-the-ends promise is checked here);
+//! - Shirley (Shirley 1972): with single-point end levels and the signal at or
+//!   above the upper level, the background stays between the two end levels (it is
+//!   a running integral of a non-negative signal between them);
 //! - maximum: its position is one of (or between) the x values.
 
 use proptest::prelude::*;
@@ -25,7 +25,11 @@ fn run(stage: &str, s: &Spectrum, options: serde_json::Value) -> Result<Artifact
         .unwrap_or_else(|_| panic!("{stage} panicked on {s:?}"));
     let out = out.map_err(|e| e.to_string())?;
     for r in &out.results {
-        assert!(r.as_number().is_none_or(f64::is_finite), "{stage}: {}", r.name);
+        assert!(
+            r.as_number().is_none_or(f64::is_finite),
+            "{stage}: {}",
+            r.name
+        );
     }
     Ok(out)
 }
@@ -42,7 +46,12 @@ fn spectrum() -> impl Strategy<Value = Spectrum> {
         })
         .prop_map(|(n, x0, dx, y)| {
             let x = (0..n).map(|i| x0 + dx * i as f64).collect();
-            Spectrum::new(x, y, Axis::new("energy", "eV"), Axis::new("intensity", "counts"))
+            Spectrum::new(
+                x,
+                y,
+                Axis::new("energy", "eV"),
+                Axis::new("intensity", "counts"),
+            )
         })
 }
 
@@ -54,7 +63,10 @@ fn out_spectrum(a: &Artifact) -> &Spectrum {
 }
 
 fn range(y: &[f64]) -> (f64, f64) {
-    y.iter().fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), &v| (a.min(v), b.max(v)))
+    y.iter()
+        .fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), &v| {
+            (a.min(v), b.max(v))
+        })
 }
 
 proptest! {
@@ -62,7 +74,9 @@ proptest! {
 
     #[test]
     fn moving_average_stays_within_the_data(s in spectrum()) {
-        if let Ok(a) = run("smooth.moving_average", &s, serde_json::json!({ "window": 3 })) {
+        let r = run("smooth.moving_average", &s, serde_json::json!({ "window": 3 }));
+        prop_assert!(r.is_ok(), "valid data refused: {r:?}");
+        if let Ok(a) = r {
             let (lo, hi) = range(&s.y);
             for v in &out_spectrum(&a).y {
                 prop_assert!(v.is_finite() && *v >= lo - 1e-9 * lo.abs().max(1.0) && *v <= hi + 1e-9 * hi.abs().max(1.0));
@@ -79,19 +93,26 @@ proptest! {
     }
 
     #[test]
-    fn shirley_background_lies_between_its_end_levels(s in spectrum()) {
-        // A signal at or above both end levels: shift y so its minimum is at the ends.
+    fn shirley_background_lies_between_its_end_levels(s in spectrum(), step in 1.0f64..1e4) {
+        // A step from 0 to `step` with the signal at or above the upper level inside:
+        // the background is a running integral of a non-negative signal between the
+        // two end levels, so it stays within [0, step].
         let mut s = s;
-        let lo = range(&s.y).0;
         let n = s.y.len();
         for v in s.y.iter_mut() {
-            *v = (*v - lo).abs();
+            *v = step + v.abs();
         }
         s.y[0] = 0.0;
-        s.y[n - 1] = 0.0;
-        if let Ok(a) = run("background.shirley", &s, serde_json::json!({})) {
+        s.y[n - 1] = step;
+        let options = serde_json::json!({ "end_points": 1 });
+        let r = run("background.shirley", &s, options);
+        prop_assert!(r.is_ok(), "valid data refused: {r:?}");
+        if let Ok(a) = r {
             let bg = out_spectrum(&a).curve(CurveRole::Background).expect("a background curve");
-            prop_assert!(bg.y.iter().all(|v| v.is_nan() || v.is_finite()));
+            for v in bg.y.iter().filter(|v| !v.is_nan()) {
+                prop_assert!(v.is_finite());
+                prop_assert!(*v >= -1e-6 * step && *v <= step * (1.0 + 1e-6), "{v} outside [0, {step}]");
+            }
         }
     }
 
@@ -116,7 +137,14 @@ fn all_zero_and_constant_spectra_end_in_a_value_or_a_typed_error() {
             Axis::new("energy", "eV"),
             Axis::new("intensity", "counts"),
         );
-        for st in ["background.asls", "background.shirley", "measure.maximum", "integrate.area", "peaks.find", "transform.normalize"] {
+        for st in [
+            "background.asls",
+            "background.shirley",
+            "measure.maximum",
+            "integrate.area",
+            "peaks.find",
+            "transform.normalize",
+        ] {
             let _ = run(st, &s, serde_json::json!({}));
         }
     }
