@@ -30,7 +30,7 @@ pub fn decode(bytes: &[u8]) -> Result<String, (String, Option<Pos>)> {
     }
     let utf16 = |le: bool| -> Result<String, (String, Option<Pos>)> {
         let body = &bytes[2..];
-        if body.len() % 2 != 0 {
+        if !body.len().is_multiple_of(2) {
             return Err((
                 "the recipe is UTF-16 with an odd number of bytes".into(),
                 None,

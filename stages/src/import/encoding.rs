@@ -9,7 +9,7 @@ use crate::stage::StageError;
 /// The text of `bytes`, or a data error naming the file, line and byte.
 pub fn decode_text(name: &str, bytes: &[u8]) -> Result<String, StageError> {
     let utf16 = |body: &[u8], le: bool| -> Result<String, StageError> {
-        if body.len() % 2 != 0 {
+        if !body.len().is_multiple_of(2) {
             return Err(StageError::data(
                 name,
                 None,
