@@ -13,12 +13,13 @@ fi
 cargo afl build --release --quiet
 export AFL_SKIP_CPUFREQ=1 AFL_NO_UI=1 AFL_I_DONT_CARE_ABOUT_MISSING_CRASHES=1 AFL_QUIET=1
 failed=0
+mkdir -p out
 for t in recipe delimited jcamp image_png image_tiff image_text; do
   rm -rf "out/$t"
   cargo afl fuzz -V "$SECONDS_EACH" -i "seeds/$t" -o "out/$t" "target/release/$t" >/dev/null 2>&1 || true
   stats="out/$t/default/fuzzer_stats"
   execs=$(awk -F: '/^execs_done/ {gsub(/ /,"",$2); print $2}' "$stats" 2>/dev/null || echo "?")
-  crashes=$(find "out/$t/default/crashes" -type f -name 'id:*' 2>/dev/null | wc -l)
+  crashes=$( (find "out/$t/default/crashes" -type f -name 'id:*' 2>/dev/null || true) | wc -l)
   echo "fuzz $t: $execs executions, $crashes crashes"
   if [ "$crashes" -gt 0 ]; then
     failed=1
