@@ -366,6 +366,8 @@ impl Diagnostic {
         let _ = writeln!(out, "{origin}: {level}: {}", self.problem.message());
         if let (Some(src), Some(p)) = (source, self.pos) {
             if let Some(text) = src.lines().nth(p.line.saturating_sub(1)) {
+                // A very long line is shown only around the column.
+                let text = &clip(text, p.col)[..];
                 let num = p.line.to_string();
                 let pad = " ".repeat(num.len());
                 let _ = writeln!(out, "{pad} |");
@@ -383,6 +385,11 @@ impl Diagnostic {
         }
         out
     }
+}
+
+/// A source line cut 60 characters past the column, so a huge line stays readable.
+fn clip(text: &str, col: usize) -> String {
+    text.chars().take(col.max(1) + 60).collect()
 }
 
 /// The closest candidate to `word` by edit distance, when close enough to be a typo.

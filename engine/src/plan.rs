@@ -772,11 +772,16 @@ impl<'a> Resolver<'a> {
                 Ok(j) => Some(j),
                 Err(message) => {
                     let pos = self.val_pos(r, path);
+                    // A literal value (not a parameter): name the key it sits under.
+                    let message = match path.last() {
+                        Some(Seg::Key(k)) => format!("`{k}`: {message}"),
+                        _ => message,
+                    };
                     self.err(
                         r,
-                        Problem::BadParameter {
-                            name: String::new(),
+                        Problem::Yaml {
                             message,
+                            suggestion: None,
                         },
                         pos,
                     );

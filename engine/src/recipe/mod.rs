@@ -4,6 +4,7 @@
 //! located ([`spans`]) and parsed into the raw model ([`raw`]) with paths checked to
 //! stay inside the top recipe's folder. Nothing is resolved here.
 
+pub mod guard;
 pub mod raw;
 pub mod spans;
 
@@ -143,8 +144,21 @@ fn load_one(
     let policy = ctx.policy;
     let shown = policy.shown(abs);
     let diags = &mut *ctx.diags;
-    let text = match std::fs::read_to_string(abs) {
-        Ok(t) => t,
+    let text = match std::fs::read(abs) {
+        Ok(bytes) => match guard::decode(&bytes) {
+            Ok(t) => t,
+            Err((message, pos)) => {
+                diags.push(Diagnostic::error(
+                    Problem::Yaml {
+                        message,
+                        suggestion: None,
+                    },
+                    Some(&shown),
+                    pos,
+                ));
+                return None;
+            }
+        },
         Err(e) => {
             diags.push(Diagnostic::error(
                 Problem::ReadRecipe {
@@ -157,6 +171,17 @@ fn load_one(
         }
     };
     ctx.sources.push((shown.clone(), text.clone()));
+    if let Err((message, pos)) = guard::check(&text) {
+        diags.push(Diagnostic::error(
+            Problem::Yaml {
+                message,
+                suggestion: None,
+            },
+            Some(&shown),
+            Some(pos),
+        ));
+        return None;
+    }
     let spans = Spans::scan(&text);
     for d in &spans.duplicates {
         let key = match d.path.last() {

@@ -468,8 +468,18 @@ fn to_grey(
 }
 
 fn decode_png(name: &str, bytes: &[u8], o: &Options) -> Result<Decoded, StageError> {
-    let err =
-        |e: png::DecodingError| StageError::data(name, None, format!("not a readable PNG: {e}"));
+    let err = |e: png::DecodingError| {
+        let e = e.to_string();
+        // The decoder's CRC message prints internal chunk structures; say it plainly.
+        let e = match e.split_once(" while decoding ChunkType { type: ") {
+            Some((head, rest)) => {
+                let chunk = rest.split(',').next().unwrap_or("?");
+                format!("{head} in the {chunk} chunk (the file is corrupted)")
+            }
+            None => e,
+        };
+        StageError::data(name, None, format!("not a readable PNG: {e}"))
+    };
     let mut dec = png::Decoder::new_with_limits(Cursor::new(bytes), png::Limits { bytes: 1 << 31 });
     // Palette and low-bit grey are expanded to 8 bits; 16-bit samples are kept.
     dec.set_transformations(png::Transformations::EXPAND);
@@ -636,6 +646,13 @@ fn decode_text(
         }
     }
     let h = rows.len();
+    if h == 0 {
+        return Err(StageError::data(
+            name,
+            None,
+            "no rows of numbers: neither PNG, TIFF nor a text matrix",
+        ));
+    }
     check_size(name, width, h, o)?;
     Ok((width, h, rows.into_iter().flatten().collect(), 32))
 }

@@ -214,15 +214,8 @@ impl<'a> Fields<'a> {
     }
 }
 
-fn read_grid<'a>(name: &str, bytes: &'a [u8], o: &Options) -> Result<Grid<'a>, StageError> {
-    let text = std::str::from_utf8(bytes).map_err(|e| {
-        let line = bytes[..e.valid_up_to()]
-            .iter()
-            .filter(|&&b| b == b'\n')
-            .count()
-            + 1;
-        StageError::data(name, Some(line), "not valid UTF-8 text")
-    })?;
+/// Splits decoded text into header, preamble and rows (the rows borrow `text`).
+fn read_grid<'a>(name: &str, text: &'a str, o: &Options) -> Result<Grid<'a>, StageError> {
     let text = text.strip_prefix('\u{feff}').unwrap_or(text);
     let lines: Vec<(usize, &str)> = text
         .lines()
@@ -409,14 +402,22 @@ impl Grid<'_> {
                 StageError::data(
                     name,
                     Some(*line_no),
-                    format!("{what} value '{cell}' (field {}) is not a number", i + 1),
+                    format!(
+                        "{what} value '{}' (field {}) is not a number",
+                        crate::import::encoding::clip(cell),
+                        i + 1
+                    ),
                 )
             })?;
             if !v.is_finite() {
                 return Err(StageError::data(
                     name,
                     Some(*line_no),
-                    format!("{what} value '{cell}' (field {}) is not finite", i + 1),
+                    format!(
+                        "{what} value '{}' (field {}) is not finite",
+                        crate::import::encoding::clip(cell),
+                        i + 1
+                    ),
                 ));
             }
             out.push(v);
@@ -453,7 +454,8 @@ pub fn poisson_sigma(y: &[f64]) -> Vec<f64> {
 /// Parses delimited text into a spectrum (the y column the options name).
 /// `name` is used in error messages only.
 pub fn parse(name: &str, bytes: &[u8], o: &Options) -> Result<Spectrum, StageError> {
-    let g = read_grid(name, bytes, o)?;
+    let text = crate::import::encoding::decode_text(name, bytes)?;
+    let g = read_grid(name, &text, o)?;
     let yi = g.resolve(name, &o.y, "y")?;
     build(name, &g, o, yi)
 }
@@ -461,7 +463,8 @@ pub fn parse(name: &str, bytes: &[u8], o: &Options) -> Result<Spectrum, StageErr
 /// Parses delimited text into one spectrum per y column: every column except x and
 /// sigma, in file order.
 pub fn parse_all(name: &str, bytes: &[u8], o: &Options) -> Result<Vec<Spectrum>, StageError> {
-    let g = read_grid(name, bytes, o)?;
+    let text = crate::import::encoding::decode_text(name, bytes)?;
+    let g = read_grid(name, &text, o)?;
     let xi = g.resolve(name, &o.x, "x")?;
     let si = match &o.sigma {
         Some(c) => Some(g.resolve(name, c, "sigma")?),

@@ -190,6 +190,7 @@ pub fn parse(name: &str, bytes: &[u8], o: &Options) -> Result<(Spectrum, Vec<Str
         .unwrap_or_else(|_| bytes.iter().map(|&b| b as char).collect());
     let mut recs = records(name, &text)?;
     let mut warnings = Vec::new();
+    let has_end = recs.iter().any(|r| r.label == "END");
     if let Some(end) = recs.iter().position(|r| r.label == "END") {
         if recs.len() > end + 1 {
             warnings.push(format!(
@@ -404,8 +405,28 @@ pub fn parse(name: &str, bytes: &[u8], o: &Options) -> Result<(Spectrum, Vec<Str
                 "the table holds no points",
             ));
         }
+        if let Some(np) = num("NPOINTS")? {
+            if np != x.len() as f64 {
+                return Err(StageError::data(
+                    name,
+                    Some(table.line),
+                    format!(
+                        "##NPOINTS= says {np} but the table holds {} points (truncated file?)",
+                        x.len()
+                    ),
+                ));
+            }
+        }
         (x, y)
     };
+    // A file cut short loses its closing record; refuse rather than read part of it.
+    if !has_end {
+        return Err(StageError::data(
+            name,
+            Some(text.lines().count()),
+            "the file ends without ##END=: it is truncated or incomplete",
+        ));
+    }
 
     let text_of = |label: &str| get(label).map(|r| r.value.trim().to_string());
     let xunits = text_of("XUNITS").unwrap_or_default();

@@ -1,4 +1,5 @@
 pub mod delimited;
+pub mod encoding;
 pub mod jcamp;
 
 use crate::stage::{Inputs, StageError};

@@ -134,3 +134,56 @@ pub fn find<'a>(
         .find(|e| e[field] == value)
         .unwrap_or_else(|| panic!("no {list} entry with {field} = {value}"))
 }
+
+/// Runs every `<name>.yaml` in `dir` through `check` and `run` (in a temp copy of
+/// `dir`): exit 2, stderr equal to `<name>.expected` (rewritten when `RETORT_BLESS`
+/// is set), and nothing written. Returns the number of cases.
+pub fn check_bad_recipe_corpus(dir: &Path) -> usize {
+    let bless = std::env::var_os("RETORT_BLESS").is_some();
+    let mut names: Vec<String> = std::fs::read_dir(dir)
+        .unwrap()
+        .filter_map(|e| e.ok())
+        .map(|e| e.file_name().to_string_lossy().to_string())
+        .filter_map(|n| n.strip_suffix(".yaml").map(str::to_string))
+        .collect();
+    names.sort();
+    let mut mismatches = Vec::new();
+    for name in &names {
+        let t = tempfile::tempdir().unwrap();
+        copy_dir(dir, t.path());
+        let recipe = format!("{name}.yaml");
+        let r = run(t.path(), &["check", &recipe]);
+        assert_eq!(r.code, 2, "{name}: check must exit 2");
+        assert!(
+            r.stderr.contains(&format!("{recipe}:")) || r.stderr.contains(".yaml:"),
+            "{name}: no file:line:column"
+        );
+        assert!(!r.stderr.contains("panicked"), "{name}: panic");
+        let expected_path = dir.join(format!("{name}.expected"));
+        if bless {
+            std::fs::write(&expected_path, &r.stderr).unwrap();
+        } else {
+            let expected = std::fs::read_to_string(&expected_path).unwrap_or_else(|_| {
+                panic!("{name}: missing {name}.expected (bless with RETORT_BLESS=1)")
+            });
+            if expected != r.stderr {
+                mismatches.push(format!(
+                    "== {name}\n-- expected\n{expected}-- got\n{}",
+                    r.stderr
+                ));
+            }
+        }
+        let r = run(t.path(), &["run", &recipe]);
+        assert_eq!(r.code, 2, "{name}: run must exit 2");
+        assert!(
+            !t.path().join("out").exists(),
+            "{name}: an output folder was written"
+        );
+        assert!(
+            !t.path().join(".retort").exists(),
+            "{name}: a cache was written"
+        );
+    }
+    assert!(mismatches.is_empty(), "{}", mismatches.join("\n"));
+    names.len()
+}

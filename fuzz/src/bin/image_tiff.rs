@@ -1,0 +1,7 @@
+fn main() {
+    afl::fuzz!(|data: &[u8]| retort_fuzz::importer(
+        "image.import",
+        data,
+        serde_json::json!({ "format": "tiff", "max_pixels": 1000000 })
+    ));
+}
