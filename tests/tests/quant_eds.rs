@@ -39,6 +39,8 @@ fn line_energies_spot_checked_against_the_x_ray_data_booklet() {
     // CAUTION: these expected values are written from memory of that table, like the
     // table itself (its source column says so); they were not compared with a printed
     // copy while writing. The check guards the CSV against drift and unit slips.
+    // A later search found no copy of Table 1-2 to check them against (the CSV header
+    // records this); they remain unchecked.
     let expect = [
         ("C Ka1", 277.0),    // C Kα 277
         ("O Ka1", 524.9),    // O Kα 524.9

@@ -146,6 +146,24 @@ mod tests {
     }
 
     #[test]
+    fn atomic_masses_spot_checked() {
+        // Meija et al., Atomic weights of the elements 2013, Pure Appl. Chem. 88 (2016)
+        // 265, abstract, rounded to five significant figures: Al 26.981 5385 -> 26.982,
+        // Co 58.933 194 -> 58.933, Mo 95.95, Cd 112.414 -> 112.41, Au 196.966 569 -> 196.97.
+        for (el, m) in [
+            ("Al", 26.982),
+            ("Co", 58.933),
+            ("Mo", 95.95),
+            ("Cd", 112.41),
+            ("Au", 196.97),
+        ] {
+            let r = atomic_mass(el).unwrap();
+            assert_eq!(r.mass, m, "{el}");
+            assert!(r.source.contains("Meija") && !r.source.contains("unchecked"));
+        }
+    }
+
+    #[test]
     fn line_names_fold() {
         assert_eq!(find_line("Cu Ka1").unwrap().line, "Kα1");
         assert_eq!(find_line("cu_kα1").unwrap().element, "Cu");

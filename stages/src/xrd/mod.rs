@@ -168,6 +168,12 @@ mod tests {
                 .0,
             1.540598
         );
+        // Maskil & Deutsch, Phys. Rev. A 38 (1988) 2947, abstract: λ(Cu Kα2) =
+        // 1.544 425 6 Å (1.2 ppm); the table holds it rounded to six decimals.
+        let ka2 = resolve(&Some(Wavelength::Named("Cu Ka2".into())))
+            .unwrap()
+            .0;
+        assert!((ka2 - 1.544_425_6).abs() < 5e-7, "{ka2}");
     }
 
     #[test]
