@@ -28,6 +28,6 @@ fn many_spectra_report_stays_small() {
         html as f64 / 1e6,
         md as f64 / 1e6
     );
-    assert_eq!(s.figures, 3000);
+    assert_eq!(s.figures, 3 * 120, "three figures per spectrum");
     assert!(html < 20_000_000, "report.html is {html} bytes");
 }

@@ -332,6 +332,10 @@ fn fast_decimal(b: &[u8], mark: u8) -> Option<f64> {
     let mut frac: Option<usize> = None;
     for &c in digits {
         if c.is_ascii_digit() {
+            if count == 15 {
+                // Too many digits for the exact path (and m * 10 could overflow).
+                return None;
+            }
             m = m * 10 + u64::from(c - b'0');
             count += 1;
             if let Some(f) = frac.as_mut() {
@@ -844,5 +848,17 @@ mod fuzz {
         for s in ["", "-", "1.2.3", "1,5", "abc", "--1"] {
             assert!(parse_number(s, false).is_none(), "{s}");
         }
+    }
+
+    #[test]
+    fn enormous_digit_strings_take_the_general_parser() {
+        // Regression: 20+ digits overflowed the fast path's u64 (found by the bad-input corpus).
+        let long = "123456789012345678901234567890.5";
+        assert_eq!(parse_number(long, false), long.parse::<f64>().ok());
+        assert_eq!(fast_decimal(b"1234567890123456", b'.'), None);
+        assert_eq!(
+            fast_decimal(b"123456789012345", b'.'),
+            Some(123456789012345.0)
+        );
     }
 }
