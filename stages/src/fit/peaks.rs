@@ -35,7 +35,7 @@ static REFERENCES: &[Reference] = &[
     },
     Reference {
         key: "more1978",
-        citation: "Moré, J. J. (1978). The Levenberg–Marquardt algorithm: implementation and theory. In G. A. Watson (Ed.), Numerical Analysis, Lecture Notes in Mathematics 630, 105–116. Springer.",
+        citation: "Moré, J. J. (1978). The Levenberg–Marquardt algorithm: implementation and theory. In G. A. Watson (Ed.), Numerical Analysis, Lect. Notes Math. 630, 105–116. Springer.",
     },
     Reference {
         key: "nielsen1999",

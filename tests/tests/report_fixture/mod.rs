@@ -265,7 +265,7 @@ fn c1s_steps() -> Vec<StepRecord> {
     let refs_shirley = [("shirley1972", "D. A. Shirley, High-resolution X-ray photoemission spectrum of the valence bands of gold, Phys. Rev. B 5 (1972) 4709-4714.")];
     let refs_fit = [
         ("wertheim1974", "G. K. Wertheim, M. A. Butler, K. W. West, D. N. E. Buchanan, Determination of the Gaussian and Lorentzian content of experimental line shapes, Rev. Sci. Instrum. 45 (1974) 1369-1371."),
-        ("more1978", "J. J. Moré, The Levenberg-Marquardt algorithm: implementation and theory, in: Numerical Analysis, Lecture Notes in Mathematics 630, Springer, 1978, pp. 105-116."),
+        ("more1978", "J. J. Moré, The Levenberg-Marquardt algorithm: implementation and theory, in: Numerical Analysis, Lect. Notes Math. 630, Springer, 1978, pp. 105-116."),
     ];
     steps.push(step("c1s-fits", "raw", "import.delimited", "spectra were read from comma-separated text files, taking binding energy (eV) from column 1 and intensity (counts) from column 2", &[], &["samples:c1s"], false));
     steps.push(step("c1s-fits", "bg", "background.shirley", "A Shirley background [shirley1972] was computed between 281.0 and 292.0 eV, iterated until the background changed by less than 10⁻⁶ of the step height (at most 50 iterations).", &refs_shirley, &["raw"], false));
