@@ -10,7 +10,10 @@ if ! command -v cargo-afl >/dev/null; then
   echo "fuzz smoke SKIPPED: cargo-afl is not installed (cargo install cargo-afl)"
   exit 0
 fi
-cargo afl build --release --quiet
+if ! cargo afl build --release --quiet; then
+  echo "fuzz smoke: the fuzz targets did not build (exit 3, not a crash)"
+  exit 3
+fi
 export AFL_SKIP_CPUFREQ=1 AFL_NO_UI=1 AFL_I_DONT_CARE_ABOUT_MISSING_CRASHES=1 AFL_QUIET=1
 failed=0
 mkdir -p out
