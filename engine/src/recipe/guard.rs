@@ -29,28 +29,8 @@ pub fn decode(bytes: &[u8]) -> Result<String, (String, Option<Pos>)> {
         ));
     }
     let utf16 = |le: bool| -> Result<String, (String, Option<Pos>)> {
-        let body = &bytes[2..];
-        if !body.len().is_multiple_of(2) {
-            return Err((
-                "the recipe is UTF-16 with an odd number of bytes".into(),
-                None,
-            ));
-        }
-        let units = body.chunks_exact(2).map(|c| {
-            if le {
-                u16::from_le_bytes([c[0], c[1]])
-            } else {
-                u16::from_be_bytes([c[0], c[1]])
-            }
-        });
-        char::decode_utf16(units)
-            .collect::<Result<String, _>>()
-            .map_err(|_| {
-                (
-                    "the recipe is UTF-16 but holds an unpaired surrogate".into(),
-                    None,
-                )
-            })
+        stages::import::encoding::utf16_text(&bytes[2..], le)
+            .map_err(|why| (format!("the recipe is UTF-16 {why}"), None))
     };
     match bytes {
         [0xFF, 0xFE, ..] => utf16(true),
@@ -60,14 +40,7 @@ pub fn decode(bytes: &[u8]) -> Result<String, (String, Option<Pos>)> {
             match std::str::from_utf8(body) {
                 Ok(s) => Ok(s.to_string()),
                 Err(e) => {
-                    let at = e.valid_up_to();
-                    let before = &body[..at];
-                    let line = before.iter().filter(|&&b| b == b'\n').count() + 1;
-                    let start = before
-                        .iter()
-                        .rposition(|&b| b == b'\n')
-                        .map_or(0, |i| i + 1);
-                    let col = String::from_utf8_lossy(&before[start..]).chars().count() + 1;
+                    let (line, col, at) = stages::import::encoding::utf8_error_place(body, &e);
                     Err((
                         format!(
                             "the recipe is not UTF-8 (byte 0x{:02X}); save it as UTF-8",

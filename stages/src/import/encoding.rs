@@ -6,26 +6,43 @@
 
 use crate::stage::StageError;
 
+/// UTF-16 code units (after the byte-order mark) as text; the error says why not
+/// ("with an odd number of bytes", "with an unpaired surrogate"). Shared with the
+/// engine's recipe guard.
+pub fn utf16_text(body: &[u8], little_endian: bool) -> Result<String, &'static str> {
+    if !body.len().is_multiple_of(2) {
+        return Err("with an odd number of bytes (truncated file?)");
+    }
+    let units = body.chunks_exact(2).map(|c| {
+        if little_endian {
+            u16::from_le_bytes([c[0], c[1]])
+        } else {
+            u16::from_be_bytes([c[0], c[1]])
+        }
+    });
+    char::decode_utf16(units)
+        .collect::<Result<String, _>>()
+        .map_err(|_| "with an unpaired surrogate")
+}
+
+/// 1-based line and column (in characters) of the first invalid byte, and its index.
+pub fn utf8_error_place(body: &[u8], e: &std::str::Utf8Error) -> (usize, usize, usize) {
+    let at = e.valid_up_to();
+    let before = &body[..at];
+    let line = before.iter().filter(|&&b| b == b'\n').count() + 1;
+    let start = before
+        .iter()
+        .rposition(|&b| b == b'\n')
+        .map_or(0, |i| i + 1);
+    let col = String::from_utf8_lossy(&before[start..]).chars().count() + 1;
+    (line, col, at)
+}
+
 /// The text of `bytes`, or a data error naming the file, line and byte.
 pub fn decode_text(name: &str, bytes: &[u8]) -> Result<String, StageError> {
     let utf16 = |body: &[u8], le: bool| -> Result<String, StageError> {
-        if !body.len().is_multiple_of(2) {
-            return Err(StageError::data(
-                name,
-                None,
-                "UTF-16 text with an odd number of bytes (truncated file?)",
-            ));
-        }
-        let units = body.chunks_exact(2).map(|c| {
-            if le {
-                u16::from_le_bytes([c[0], c[1]])
-            } else {
-                u16::from_be_bytes([c[0], c[1]])
-            }
-        });
-        char::decode_utf16(units)
-            .collect::<Result<String, _>>()
-            .map_err(|_| StageError::data(name, None, "UTF-16 text with an unpaired surrogate"))
+        utf16_text(body, le)
+            .map_err(|why| StageError::data(name, None, format!("UTF-16 text {why}")))
     };
     match bytes {
         [0xFF, 0xFE, rest @ ..] => return utf16(rest, true),
@@ -44,14 +61,7 @@ pub fn decode_text(name: &str, bytes: &[u8]) -> Result<String, StageError> {
     match std::str::from_utf8(body) {
         Ok(s) => Ok(s.to_string()),
         Err(e) => {
-            let at = e.valid_up_to();
-            let before = &body[..at];
-            let line = before.iter().filter(|&&b| b == b'\n').count() + 1;
-            let start = before
-                .iter()
-                .rposition(|&b| b == b'\n')
-                .map_or(0, |i| i + 1);
-            let col = String::from_utf8_lossy(&before[start..]).chars().count() + 1;
+            let (line, col, at) = utf8_error_place(body, &e);
             Err(StageError::data(
                 name,
                 Some(line),
