@@ -7,8 +7,12 @@
 //! creations; `objects/<2 hex>/<key>` one file per large entry (over 64 KiB); `files.idx` the stat index
 //! (size, mtime, inode -> content hash) that lets re-planning skip hashing unchanged
 //! files; `nodes.idx` the last key of every (recipe, step, item), so `plan` can say
-//! why a node will run. An entry is a header (magic, payload length, blake3 of the
-//! payload) and a postcard payload (run metadata, artifact).
+//! why a node will run. An entry is a header (magic, the lengths and blake3 sums of
+//! its two parts), a head (postcard: run metadata and the artifact without its
+//! per-point arrays — records, notes, axes, fit statistics, tables) and a body (the
+//! arrays as raw little-endian numbers). A cached node whose dependents are cached
+//! too is known by its head alone, so a re-run reads a few hundred bytes per node
+//! instead of every spectrum.
 //!
 //! **Invariant:** every file is published by writing a temporary file in the same
 //! folder, syncing it and renaming it into place, so readers (and concurrent runs)
@@ -18,15 +22,18 @@
 
 use serde::de::DeserializeOwned;
 use serde::{Deserialize, Serialize};
-use stages::Artifact;
+use stages::{Arrays, Artifact};
 use std::collections::{BTreeMap, HashMap};
-use std::io::{Read, Seek, SeekFrom, Write};
+use std::io::{Read, Write};
+#[cfg(not(unix))]
+use std::io::{Seek, SeekFrom};
 use std::path::{Path, PathBuf};
 use std::sync::atomic::{AtomicU64, Ordering};
-use std::sync::{Mutex, RwLock};
+use std::sync::{Arc, Mutex, RwLock};
 
-const MAGIC: &[u8; 8] = b"RTRTENT1";
-const HEADER: usize = 8 + 8 + 32;
+const MAGIC: &[u8; 8] = b"RTRTENT2";
+/// Magic, head length, body length, blake3 of the head, blake3 of the body.
+const HEADER: usize = 8 + 8 + 8 + 32 + 32;
 
 /// How and when an artifact was made (provenance of cached nodes).
 #[derive(Clone, Debug, Serialize, Deserialize, PartialEq)]
@@ -74,11 +81,16 @@ pub struct LastNode {
 pub type StatIndex = BTreeMap<String, FileStat>;
 pub type NodeIndex = BTreeMap<String, LastNode>;
 
+/// Bodies up to this size are read and checked with the head.
+const SMALL_BODY: usize = 16 * 1024;
 /// Entries up to this size go into shared segment files; larger ones get a file each.
-const SMALL: usize = 64 * 1024;
+/// Creating a file costs far more than writing to one on some filesystems (0.7 ms
+/// per new inode was measured on the development machines), so only entries that
+/// would crowd memory while pending (large images) get their own.
+const SMALL: usize = 8 * 1024 * 1024;
 /// A segment is written when this much is pending, or when the oldest pending
 /// entry is this old, and at the end of the run.
-const SEGMENT_BYTES: usize = 4 * 1024 * 1024;
+const SEGMENT_BYTES: usize = 16 * 1024 * 1024;
 pub const SEGMENT_AGE: std::time::Duration = std::time::Duration::from_millis(250);
 const SEGMENT_MAGIC: &[u8; 8] = b"RTRTSEG1";
 
@@ -98,7 +110,7 @@ struct Segments {
 
 #[derive(Default)]
 struct Pending {
-    entries: Vec<(String, Vec<u8>)>,
+    entries: Vec<(String, Arc<Vec<u8>>)>,
     bytes: usize,
     since: Option<std::time::Instant>,
 }
@@ -110,8 +122,8 @@ pub struct Cache {
     segments: RwLock<Segments>,
     /// Small entries written by this process and not yet in a segment.
     pending: Mutex<Pending>,
-    /// Keys of pending entries, for lookups (a copy of the bytes lives in `pending`).
-    pending_keys: RwLock<HashMap<String, Vec<u8>>>,
+    /// Pending entries by key, for lookups (shared with `pending`).
+    pending_keys: RwLock<HashMap<String, Arc<Vec<u8>>>>,
 }
 
 fn io_err(path: &Path, e: impl std::fmt::Display) -> String {
@@ -251,30 +263,35 @@ impl Cache {
             || self.object_path(key).is_file()
     }
 
-    /// The raw bytes of an entry: Ok(None) when absent.
-    fn raw(&self, key: &str) -> Result<Option<Vec<u8>>, String> {
+    /// Reads an entry's bytes into `buf` (replacing its contents). Ok(false) when
+    /// absent.
+    fn raw_into(&self, key: &str, buf: &mut Vec<u8>) -> Result<bool, String> {
+        buf.clear();
         if let Some(b) = self
             .pending_keys
             .read()
             .ok()
             .and_then(|p| p.get(key).cloned())
         {
-            return Ok(Some(b));
+            buf.extend_from_slice(&b);
+            return Ok(true);
         }
-        if let Some((path, loc)) = self.segment_loc(key) {
-            let mut f = std::fs::File::open(&path).map_err(|e| format!("unreadable: {e}"))?;
-            f.seek(SeekFrom::Start(loc.offset))
-                .map_err(|e| format!("unreadable: {e}"))?;
-            let mut b = vec![0u8; loc.len as usize];
-            f.read_exact(&mut b)
-                .map_err(|e| format!("truncated segment: {e}"))?;
-            return Ok(Some(b));
-        }
-        match std::fs::read(self.object_path(key)) {
-            Ok(b) => Ok(Some(b)),
-            Err(e) if e.kind() == std::io::ErrorKind::NotFound => Ok(None),
-            Err(e) => Err(format!("unreadable: {e}")),
-        }
+        let unreadable = |e: std::io::Error| format!("unreadable: {e}");
+        let (path, offset, len) = match self.segment_loc(key) {
+            Some((path, loc)) => (path, loc.offset, u64::from(loc.len)),
+            None => {
+                let path = self.object_path(key);
+                match std::fs::metadata(&path) {
+                    Ok(m) => (path, 0, m.len()),
+                    Err(e) if e.kind() == std::io::ErrorKind::NotFound => return Ok(false),
+                    Err(e) => return Err(unreadable(e)),
+                }
+            }
+        };
+        let f = std::fs::File::open(&path).map_err(unreadable)?;
+        buf.resize(len as usize, 0);
+        read_at(&f, buf, offset).map_err(|e| format!("truncated entry: {e}"))?;
+        Ok(true)
     }
 
     /// Forgets a corrupt entry (its own file is removed; a segment entry is dropped
@@ -288,17 +305,26 @@ impl Cache {
         let _ = std::fs::remove_file(self.object_path(key));
     }
 
-    /// Reads and verifies an entry. Corrupt entries are discarded.
+    /// Reads and verifies a whole entry. Corrupt entries are discarded.
     pub fn load(&self, key: &str) -> Lookup {
-        let bytes = match self.raw(key) {
-            Ok(Some(b)) => b,
+        self.read_entry(key)
+    }
+
+    /// Reads, verifies and decodes only an entry's head: the run metadata and the
+    /// artifact with its per-point arrays empty (see [`Artifact::take_arrays`]).
+    /// The body is not read, so damage to it is found when it is (by [`Cache::load`]).
+    pub fn load_head(&self, key: &str) -> Lookup {
+        let result = match self.raw_head(key) {
             Ok(None) => return Lookup::Missing,
-            Err(reason) => {
-                self.discard(key);
-                return Lookup::Corrupt(reason);
-            }
+            Ok(Some((b, false))) => decode_head(&b),
+            // A small body came along: check it too.
+            Ok(Some((b, true))) => decode_entry(&b).map(|(meta, mut artifact)| {
+                artifact.take_arrays();
+                (meta, artifact)
+            }),
+            Err(reason) => Err(reason),
         };
-        match decode::<(Meta, Artifact)>(&bytes) {
+        match result {
             Ok(v) => Lookup::Found(Box::new(v)),
             Err(reason) => {
                 self.discard(key);
@@ -307,25 +333,104 @@ impl Cache {
         }
     }
 
+    /// An entry's header and head (two reads: the header, then the head it sizes),
+    /// or the whole entry when its body is small (then `true`), so that only large
+    /// arrays are left to be checked when they are read.
+    fn raw_head(&self, key: &str) -> Result<Option<(Vec<u8>, bool)>, String> {
+        if let Some(b) = self
+            .pending_keys
+            .read()
+            .ok()
+            .and_then(|p| p.get(key).cloned())
+        {
+            return Ok(Some((b.to_vec(), true)));
+        }
+        let unreadable = |e: std::io::Error| format!("unreadable: {e}");
+        let (path, offset, len) = match self.segment_loc(key) {
+            Some((path, loc)) => (path, loc.offset, u64::from(loc.len)),
+            None => {
+                let path = self.object_path(key);
+                match std::fs::metadata(&path) {
+                    Ok(m) => (path, 0, m.len()),
+                    Err(e) if e.kind() == std::io::ErrorKind::NotFound => return Ok(None),
+                    Err(e) => return Err(unreadable(e)),
+                }
+            }
+        };
+        if len < HEADER as u64 {
+            return Err(format!("truncated ({len} bytes)"));
+        }
+        let f = std::fs::File::open(&path).map_err(unreadable)?;
+        let mut b = vec![0u8; HEADER];
+        read_at(&f, &mut b, offset).map_err(|e| format!("truncated entry: {e}"))?;
+        let end = head_end(&b).ok_or("bad header")?;
+        if end as u64 > len {
+            return Err(format!("truncated ({len} bytes, head ends at {end})"));
+        }
+        let whole = len - end as u64 <= SMALL_BODY as u64;
+        b.resize(if whole { len as usize } else { end }, 0);
+        read_at(&f, &mut b[HEADER..], offset + HEADER as u64)
+            .map_err(|e| format!("truncated entry: {e}"))?;
+        Ok(Some((b, whole)))
+    }
+
+    /// Reads, checks (both checksums) and decodes a whole entry. A thread's read
+    /// buffer is reused, so reading thousands of entries does not fault in fresh
+    /// pages for each.
+    fn read_entry(&self, key: &str) -> Lookup {
+        thread_local! {
+            static BUF: std::cell::RefCell<Vec<u8>> = const { std::cell::RefCell::new(Vec::new()) };
+        }
+        BUF.with(|buf| {
+            let mut buf = buf.borrow_mut();
+            let found = self.raw_into(key, &mut buf);
+            let result = match found {
+                Ok(false) => return Lookup::Missing,
+                Ok(true) => decode_entry(&buf),
+                Err(reason) => Err(reason),
+            };
+            // A large entry's buffer is not kept for the rest of the run.
+            if buf.capacity() > SMALL {
+                *buf = Vec::new();
+            }
+            match result {
+                Ok(v) => Lookup::Found(Box::new(v)),
+                Err(reason) => {
+                    self.discard(key);
+                    Lookup::Corrupt(reason)
+                }
+            }
+        })
+    }
+
     /// Checks an entry without keeping it: None when absent, Some(Err) when corrupt
     /// (left in place; the run will replace it).
     pub fn verify(&self, key: &str) -> Option<Result<(), String>> {
-        match self.raw(key) {
-            Ok(Some(bytes)) => Some(check_envelope(&bytes).map(|_| ())),
-            Ok(None) => None,
+        let mut bytes = Vec::new();
+        match self.raw_into(key, &mut bytes) {
+            Ok(true) => Some(split_entry(&bytes).map(|_| ())),
+            Ok(false) => None,
             Err(e) => Some(Err(e)),
         }
     }
 
-    pub fn store(&self, key: &str, meta: &Meta, artifact: &Artifact) -> Result<(), String> {
-        let payload = postcard::to_stdvec(&(meta, artifact))
-            .map_err(|e| format!("cannot encode artifact: {e}"))?;
-        let bytes = envelope(&payload);
+    /// Stores an artifact (its arrays are moved out while the head is encoded and
+    /// put back before this returns).
+    pub fn store(&self, key: &str, meta: &Meta, artifact: &mut Artifact) -> Result<(), String> {
+        let arrays = artifact.take_arrays();
+        let head = postcard::to_stdvec(&(meta, &*artifact));
+        let body = encode_arrays(&arrays);
+        artifact
+            .put_arrays(arrays)
+            .map_err(|e| format!("cannot restore artifact arrays: {e}"))?;
+        let head = head.map_err(|e| format!("cannot encode artifact: {e}"))?;
+        let bytes = entry(&head, &body);
         if bytes.len() > SMALL || key_bytes(key).is_none() {
             return self.publish(&self.object_path(key), &bytes);
         }
+        let bytes = Arc::new(bytes);
         if let Ok(mut pk) = self.pending_keys.write() {
-            pk.insert(key.to_string(), bytes.clone());
+            pk.insert(key.to_string(), Arc::clone(&bytes));
         }
         let batch = {
             let mut p = self
@@ -374,7 +479,7 @@ impl Cache {
         self.write_segment(batch.entries)
     }
 
-    fn write_segment(&self, entries: Vec<(String, Vec<u8>)>) -> Result<(), String> {
+    fn write_segment(&self, entries: Vec<(String, Arc<Vec<u8>>)>) -> Result<(), String> {
         static COUNTER: AtomicU64 = AtomicU64::new(0);
         let count = entries.len() as u32;
         let header_len = 12 + entries.len() * 44 + 32;
@@ -455,13 +560,14 @@ impl Cache {
     fn read_index<T: DeserializeOwned + Default>(&self, name: &str) -> T {
         std::fs::read(self.dir.join(name))
             .ok()
-            .and_then(|b| decode(&b).ok())
+            .and_then(|b| split_entry(&b).ok().map(|(h, _)| h.to_vec()))
+            .and_then(|head| postcard::from_bytes(&head).ok())
             .unwrap_or_default()
     }
 
     fn write_index<T: Serialize>(&self, name: &str, value: &T) -> Result<(), String> {
         let payload = postcard::to_stdvec(value).map_err(|e| e.to_string())?;
-        self.publish(&self.dir.join(name), &envelope(&payload))
+        self.publish(&self.dir.join(name), &entry(&payload, &[]))
     }
 
     pub fn stat_index(&self) -> StatIndex {
@@ -481,38 +587,183 @@ impl Cache {
     }
 }
 
-fn envelope(payload: &[u8]) -> Vec<u8> {
-    let mut out = Vec::with_capacity(HEADER + payload.len());
+#[cfg(unix)]
+fn read_at(f: &std::fs::File, buf: &mut [u8], offset: u64) -> std::io::Result<()> {
+    std::os::unix::fs::FileExt::read_exact_at(f, buf, offset)
+}
+
+#[cfg(not(unix))]
+fn read_at(f: &std::fs::File, buf: &mut [u8], offset: u64) -> std::io::Result<()> {
+    let mut f = f;
+    f.seek(SeekFrom::Start(offset))?;
+    f.read_exact(buf)
+}
+
+fn u64_at(b: &[u8], at: usize) -> Option<u64> {
+    let mut x = [0u8; 8];
+    x.copy_from_slice(b.get(at..at + 8)?);
+    Some(u64::from_le_bytes(x))
+}
+
+/// Where the head of an entry whose first bytes are `b` ends.
+fn head_end(b: &[u8]) -> Option<usize> {
+    if b.get(..8)? != MAGIC {
+        return None;
+    }
+    HEADER.checked_add(usize::try_from(u64_at(b, 8)?).ok()?)
+}
+
+/// Decodes the head of an entry given its header and head bytes.
+fn decode_head(b: &[u8]) -> Result<(Meta, Artifact), String> {
+    let end = head_end(b).ok_or("bad header")?;
+    if b.len() != end {
+        return Err("truncated head".into());
+    }
+    let head = &b[HEADER..end];
+    if blake3::hash(head).as_bytes() != &b[24..56] {
+        return Err("checksum mismatch".into());
+    }
+    postcard::from_bytes(head).map_err(|e| format!("cannot decode: {e}"))
+}
+
+/// An entry: header, head, body.
+fn entry(head: &[u8], body: &[u8]) -> Vec<u8> {
+    let mut out = Vec::with_capacity(HEADER + head.len() + body.len());
     out.extend_from_slice(MAGIC);
-    out.extend_from_slice(&(payload.len() as u64).to_le_bytes());
-    out.extend_from_slice(blake3::hash(payload).as_bytes());
-    out.extend_from_slice(payload);
+    out.extend_from_slice(&(head.len() as u64).to_le_bytes());
+    out.extend_from_slice(&(body.len() as u64).to_le_bytes());
+    out.extend_from_slice(blake3::hash(head).as_bytes());
+    out.extend_from_slice(blake3::hash(body).as_bytes());
+    out.extend_from_slice(head);
+    out.extend_from_slice(body);
     out
 }
 
-fn check_envelope(bytes: &[u8]) -> Result<&[u8], String> {
+/// The verified head and body of an entry.
+fn split_entry(bytes: &[u8]) -> Result<(&[u8], &[u8]), String> {
     if bytes.len() < HEADER || &bytes[..8] != MAGIC {
         return Err("bad header".into());
     }
-    let mut len = [0u8; 8];
-    len.copy_from_slice(&bytes[8..16]);
-    let len = u64::from_le_bytes(len) as usize;
-    let payload = &bytes[HEADER..];
-    if payload.len() != len {
+    let len = |at| u64_at(bytes, at).and_then(|v| usize::try_from(v).ok());
+    let (Some(head_len), Some(body_len)) = (len(8), len(16)) else {
+        return Err("bad header".into());
+    };
+    let total = HEADER
+        .checked_add(head_len)
+        .and_then(|v| v.checked_add(body_len))
+        .ok_or("bad header")?;
+    if bytes.len() != total {
         return Err(format!(
-            "truncated ({} of {len} payload bytes)",
-            payload.len()
+            "truncated ({} of {} bytes after the header)",
+            bytes.len() - HEADER,
+            head_len + body_len
         ));
     }
-    if blake3::hash(payload).as_bytes() != &bytes[16..48] {
+    let head = &bytes[HEADER..HEADER + head_len];
+    let body = &bytes[HEADER + head_len..total];
+    if blake3::hash(head).as_bytes() != &bytes[24..56]
+        || blake3::hash(body).as_bytes() != &bytes[56..88]
+    {
         return Err("checksum mismatch".into());
     }
-    Ok(payload)
+    Ok((head, body))
 }
 
-fn decode<T: DeserializeOwned>(bytes: &[u8]) -> Result<T, String> {
-    let payload = check_envelope(bytes)?;
-    postcard::from_bytes(payload).map_err(|e| format!("cannot decode: {e}"))
+fn decode_entry(bytes: &[u8]) -> Result<(Meta, Artifact), String> {
+    let (head, body) = split_entry(bytes)?;
+    let (meta, mut artifact): (Meta, Artifact) =
+        postcard::from_bytes(head).map_err(|e| format!("cannot decode: {e}"))?;
+    let arrays = decode_arrays(body).ok_or("cannot decode the arrays")?;
+    artifact
+        .put_arrays(arrays)
+        .map_err(|e| format!("cannot decode: {e}"))?;
+    Ok((meta, artifact))
+}
+
+/// The body: four counts (f64, f32, u32 and byte arrays), each array's length,
+/// then every array's elements, little-endian.
+fn encode_arrays(a: &Arrays) -> Vec<u8> {
+    let lens: Vec<u64> = (a.f64s.iter().map(Vec::len))
+        .chain(a.f32s.iter().map(Vec::len))
+        .chain(a.u32s.iter().map(Vec::len))
+        .chain(a.bytes.iter().map(Vec::len))
+        .map(|n| n as u64)
+        .collect();
+    let mut out = Vec::with_capacity(16 + lens.len() * 8 + a.byte_len());
+    for n in [a.f64s.len(), a.f32s.len(), a.u32s.len(), a.bytes.len()] {
+        out.extend_from_slice(&(n as u32).to_le_bytes());
+    }
+    for n in &lens {
+        out.extend_from_slice(&n.to_le_bytes());
+    }
+    for v in &a.f64s {
+        out.extend(v.iter().flat_map(|x| x.to_le_bytes()));
+    }
+    for v in &a.f32s {
+        out.extend(v.iter().flat_map(|x| x.to_le_bytes()));
+    }
+    for v in &a.u32s {
+        out.extend(v.iter().flat_map(|x| x.to_le_bytes()));
+    }
+    for v in &a.bytes {
+        out.extend_from_slice(v);
+    }
+    out
+}
+
+/// Numbers of `N` little-endian bytes each (a trailing partial number is ignored;
+/// callers size `raw` exactly).
+fn from_le<T, const N: usize>(raw: &[u8], f: fn([u8; N]) -> T) -> Vec<T> {
+    raw.chunks_exact(N)
+        .map(|c| {
+            let mut x = [0u8; N];
+            x.copy_from_slice(c);
+            f(x)
+        })
+        .collect()
+}
+
+fn decode_arrays(b: &[u8]) -> Option<Arrays> {
+    let mut at = 0usize;
+    let mut take = |n: usize| -> Option<&[u8]> {
+        let s = b.get(at..at.checked_add(n)?)?;
+        at += n;
+        Some(s)
+    };
+    let mut counts = [0usize; 4];
+    for c in &mut counts {
+        let mut x = [0u8; 4];
+        x.copy_from_slice(take(4)?);
+        *c = u32::from_le_bytes(x) as usize;
+    }
+    let total = counts.iter().try_fold(0usize, |a, c| a.checked_add(*c))?;
+    if total > b.len() / 8 {
+        return None;
+    }
+    let mut lens = Vec::with_capacity(total);
+    for _ in 0..total {
+        let mut x = [0u8; 8];
+        x.copy_from_slice(take(8)?);
+        lens.push(usize::try_from(u64::from_le_bytes(x)).ok()?);
+    }
+    let mut lens = lens.into_iter();
+    let mut a = Arrays::default();
+    for _ in 0..counts[0] {
+        let raw = take(lens.next()?.checked_mul(8)?)?;
+        a.f64s.push(from_le(raw, f64::from_le_bytes));
+    }
+    for _ in 0..counts[1] {
+        let raw = take(lens.next()?.checked_mul(4)?)?;
+        a.f32s.push(from_le(raw, f32::from_le_bytes));
+    }
+    for _ in 0..counts[2] {
+        let raw = take(lens.next()?.checked_mul(4)?)?;
+        a.u32s.push(from_le(raw, u32::from_le_bytes));
+    }
+    for _ in 0..counts[3] {
+        a.bytes.push(take(lens.next()?)?.to_vec());
+    }
+    (at == b.len()).then_some(a)
 }
 
 #[cfg(test)]
@@ -541,7 +792,7 @@ mod tests {
             Some(0.1),
             "eV",
         )]);
-        c.store("abcd", &meta(), &a).unwrap();
+        c.store("abcd", &meta(), &mut a.clone()).unwrap();
         match c.load("abcd") {
             Lookup::Found(b) => assert_eq!(b.1, a),
             _ => panic!("not found"),
@@ -588,7 +839,7 @@ mod segment_tests {
                 None,
                 "",
             )]);
-            c.store(&key(i), &meta, &a).unwrap();
+            c.store(&key(i), &meta, &mut a.clone()).unwrap();
         }
         // Pending entries are readable before the flush.
         assert!(matches!(c.load(&key(3)), Lookup::Found(_)));
@@ -611,7 +862,7 @@ mod segment_tests {
         assert!(matches!(c.load(&key(5)), Lookup::Found(_)));
         // Storing it again supersedes the corrupt copy, also after reopening.
         let a = Artifact::new(Value::Summary);
-        c.store(&key(4), &meta, &a).unwrap();
+        c.store(&key(4), &meta, &mut a.clone()).unwrap();
         c.flush().unwrap();
         let c = Cache::open(dir.path(), false).unwrap();
         assert!(matches!(c.load(&key(4)), Lookup::Found(b) if b.1 == a));

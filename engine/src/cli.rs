@@ -13,6 +13,7 @@ use crate::scheduler::{self, Progress, RunOptions};
 use crate::{outputs, provenance, timefmt};
 use clap::{Parser, Subcommand};
 use stages::stage::Stage;
+use std::collections::HashMap;
 use std::io::IsTerminal;
 use std::path::{Path, PathBuf};
 
@@ -142,6 +143,11 @@ pub struct RunArgs {
     /// report. A plain run afterwards gathers and reports.
     #[arg(long, value_name = "K/N")]
     pub shard: Option<crate::shard::ShardSpec>,
+    /// Write the output folder again even when it is up to date (by default a run
+    /// whose every node is cached and whose outputs are already in place, unchanged,
+    /// leaves them as they are).
+    #[arg(long)]
+    pub rewrite: bool,
 }
 
 /// Parses `args` and runs the command with `catalog`; returns the exit code.
@@ -383,6 +389,12 @@ fn run_plan(a: &RunArgs, plan: &Plan) -> Result<Exit, String> {
         return Ok(exit);
     }
     phases.mark("graph");
+    if a.shard.is_none() && !a.no_cache && !a.rewrite {
+        if let Some(exit) = outputs_up_to_date(plan, &graph, &cache, &out, a.quiet) {
+            phases.mark("up to date");
+            return Ok(exit);
+        }
+    }
     let host = host();
     let jobs = jobs_or_cores(a.jobs);
     let terminal = std::io::stderr().is_terminal();
@@ -413,42 +425,93 @@ fn run_plan(a: &RunArgs, plan: &Plan) -> Result<Exit, String> {
         }
         return exit;
     }
-    let outcomes = scheduler::run(plan, &graph, &cache, &opts, &reporter);
-    cache.flush()?;
-    let outcomes = outcomes?;
-    if let Some(b) = &reporter.bar {
-        b.finish_and_clear();
+    // A node whose head was read but whose whole artifact turns out damaged when the
+    // report draws it has been dropped from the cache: run again (once) to
+    // recompute it, and say so.
+    let mut reread: HashMap<String, String> = HashMap::new();
+    let previous = outputs::read_manifest(&out);
+    let (outcomes, record, tmp, rendered) = loop {
+        let outcomes = scheduler::run(plan, &graph, &cache, &opts, &reporter);
+        cache.flush()?;
+        let mut outcomes = outcomes?;
+        if let Some(b) = &reporter.bar {
+            b.finish_and_clear();
+        }
+        for (o, node) in outcomes.iter_mut().zip(&graph.nodes) {
+            if o.corrupt.is_none() && matches!(o.status, NodeStatus::Ran) {
+                o.corrupt = reread.get(&node.key).cloned();
+            }
+        }
+        phases.mark("scheduler");
+        let checks = outputs::checks(plan, &graph, &outcomes);
+        let finished = timefmt::now_rfc3339();
+        let record = outputs::run_record(
+            plan,
+            &graph,
+            &outcomes,
+            checks,
+            started.clone(),
+            finished,
+            &host,
+            &cache.dir,
+        );
+        let results = outputs::results_json(plan, &graph, &outcomes);
+        let tmp = outputs::temp_beside(&out)?;
+        outputs::write(tmp.path(), "results.json", &outputs::json_bytes(&results)?)?;
+        outputs::write(
+            tmp.path(),
+            "tables/results.csv",
+            &outputs::results_csv(&results)?,
+        )?;
+        let prov = provenance::Document {
+            plan,
+            graph: &graph,
+            outcomes: &outcomes,
+            host: &host,
+        };
+        outputs::write_json(tmp.path(), "provenance.json", &prov)?;
+        phases.mark("provenance");
+        outputs::write_json(tmp.path(), "run.json", &record)?;
+        phases.mark("outputs");
+        let source = CacheArtifacts::new(&cache);
+        let rendered = crate::report::render_reusing(
+            &record,
+            &source,
+            tmp.path(),
+            None,
+            previous.as_ref().map(|m| (out.as_path(), &m.figures)),
+        )
+        .map_err(|e| e.to_string())?;
+        phases.mark("report");
+        let damaged = source.damaged();
+        if damaged.is_empty() || !reread.is_empty() {
+            break (outcomes, record, tmp, rendered);
+        }
+        reread = damaged;
+    };
+    let exit = run_exit(&record);
+    let mut messages = Vec::new();
+    for c in record.checks.iter().filter(|c| !c.passed) {
+        messages.push(format!(
+            "check failed: {}{}: {}",
+            c.result,
+            c.item
+                .as_ref()
+                .map(|i| format!(" [{i}]"))
+                .unwrap_or_default(),
+            c.message
+        ));
     }
-    phases.mark("scheduler");
-    let checks = outputs::checks(plan, &graph, &outcomes);
-    let finished = timefmt::now_rfc3339();
-    let record = outputs::run_record(
-        plan, &graph, &outcomes, checks, started, finished, &host, &cache.dir,
-    );
-    let results = outputs::results_json(plan, &graph, &outcomes);
-    let tmp = outputs::temp_beside(&out)?;
-    outputs::write(tmp.path(), "results.json", &outputs::json_bytes(&results)?)?;
-    outputs::write(
-        tmp.path(),
-        "tables/results.csv",
-        &outputs::results_csv(&results)?,
-    )?;
-    let prov = provenance::Document {
-        plan,
-        graph: &graph,
-        outcomes: &outcomes,
-        host: &host,
+    let manifest = outputs::Manifest {
+        schema_version: outputs::MANIFEST_SCHEMA_VERSION,
+        digest: outputs::run_digest(plan, &graph),
+        written: record.finished.clone(),
+        exit: exit.code(),
+        messages: messages.clone(),
+        files: outputs::list_files(tmp.path())?,
+        figures: rendered.figure_files,
     };
-    outputs::write_json(tmp.path(), "provenance.json", &prov)?;
-    phases.mark("provenance");
-    outputs::write_json(tmp.path(), "run.json", &record)?;
-    let source = |key: &str| match cache.load(key) {
-        crate::cache::Lookup::Found(b) => Some(b.1),
-        _ => None,
-    };
-    phases.mark("outputs");
-    crate::report::render(&record, &source, tmp.path(), None).map_err(|e| e.to_string())?;
-    phases.mark("report");
+    outputs::write_json(tmp.path(), "manifest.json", &manifest)?;
     outputs::publish(tmp, &out)?;
     // Remember what each node was, for `plan`'s reasons.
     if throwaway.is_none() {
@@ -478,16 +541,8 @@ fn run_plan(a: &RunArgs, plan: &Plan) -> Result<Exit, String> {
             }
         }
     }
-    for c in record.checks.iter().filter(|c| !c.passed) {
-        eprintln!(
-            "check failed: {}{}: {}",
-            c.result,
-            c.item
-                .as_ref()
-                .map(|i| format!(" [{i}]"))
-                .unwrap_or_default(),
-            c.message
-        );
+    for m in &messages {
+        eprintln!("{m}");
     }
     if !a.quiet {
         println!(
@@ -498,13 +553,96 @@ fn run_plan(a: &RunArgs, plan: &Plan) -> Result<Exit, String> {
             out.display()
         );
     }
-    Ok(if failed + skipped > 0 {
+    Ok(exit)
+}
+
+/// The exit code a finished run ends with.
+fn run_exit(record: &crate::record::RunRecord) -> Exit {
+    if record.nodes.iter().any(|n| {
+        matches!(
+            n.status,
+            NodeStatus::Failed { .. } | NodeStatus::Skipped { .. }
+        )
+    }) {
         Exit::StepFailed
-    } else if checks_failed > 0 {
+    } else if record.checks.iter().any(|c| !c.passed) {
         Exit::CheckFailed
     } else {
         Exit::Ok
+    }
+}
+
+/// When every node is in the cache and `out` already holds what this run would
+/// write (its manifest has the same digest and its files are intact), says so,
+/// repeats what that run printed, and gives its exit code.
+fn outputs_up_to_date(
+    plan: &Plan,
+    graph: &crate::graph::Graph,
+    cache: &Cache,
+    out: &std::path::Path,
+    quiet: bool,
+) -> Option<Exit> {
+    if !graph.nodes.iter().all(|n| cache.contains(&n.key)) {
+        return None;
+    }
+    let m = outputs::up_to_date(out, &outputs::run_digest(plan, graph))?;
+    for line in &m.messages {
+        eprintln!("{line}");
+    }
+    if !quiet {
+        println!(
+            "{} nodes, all cached: the output in {} is up to date (written {}); --rewrite writes it again",
+            graph.nodes.len(),
+            out.display(),
+            m.written
+        );
+    }
+    Some(match m.exit {
+        0 => Exit::Ok,
+        3 => Exit::CheckFailed,
+        _ => Exit::StepFailed,
     })
+}
+
+/// The report's view of the cache: heads for tables, whole artifacts for figures;
+/// it remembers the entries it found damaged (the cache has dropped them).
+pub(crate) struct CacheArtifacts<'a> {
+    cache: &'a Cache,
+    damaged: std::sync::Mutex<HashMap<String, String>>,
+}
+
+impl<'a> CacheArtifacts<'a> {
+    pub(crate) fn new(cache: &'a Cache) -> Self {
+        CacheArtifacts {
+            cache,
+            damaged: Default::default(),
+        }
+    }
+    /// Keys found damaged, with the reason.
+    pub(crate) fn damaged(&self) -> HashMap<String, String> {
+        self.damaged.lock().map(|d| d.clone()).unwrap_or_default()
+    }
+    fn answer(&self, key: &str, found: crate::cache::Lookup) -> Option<stages::Artifact> {
+        match found {
+            crate::cache::Lookup::Found(b) => Some(b.1),
+            crate::cache::Lookup::Corrupt(reason) => {
+                if let Ok(mut d) = self.damaged.lock() {
+                    d.insert(key.to_string(), reason);
+                }
+                None
+            }
+            crate::cache::Lookup::Missing => None,
+        }
+    }
+}
+
+impl crate::record::ArtifactSource for CacheArtifacts<'_> {
+    fn load(&self, key: &str) -> Option<stages::Artifact> {
+        self.answer(key, self.cache.load(key))
+    }
+    fn load_head(&self, key: &str) -> Option<stages::Artifact> {
+        self.answer(key, self.cache.load_head(key))
+    }
 }
 
 fn check(a: &RecipeArgs, catalog: &[&'static dyn Stage]) -> Exit {

@@ -16,6 +16,7 @@ use crate::record::{
 use crate::scheduler::Outcome;
 use serde_json::{json, Value};
 use stages::Scalar;
+use std::collections::BTreeMap;
 use std::path::{Path, PathBuf};
 
 pub const RESULTS_SCHEMA_VERSION: u32 = 1;
@@ -365,4 +366,110 @@ pub fn publish(tmp: tempfile::TempDir, out: &Path) -> Result<(), String> {
         std::fs::rename(&tmp_path, out).map_err(err)?;
     }
     Ok(())
+}
+
+pub const MANIFEST_SCHEMA_VERSION: u32 = 1;
+
+/// `manifest.json`: what an output folder holds and what it was made from. A run
+/// whose [`run_digest`] equals the manifest's, with every node in the cache and
+/// every listed file present at its size, has nothing to change and leaves the
+/// folder as it is; a later render reuses the listed figures whose keys match.
+#[derive(Debug, Clone, serde::Serialize, serde::Deserialize)]
+pub struct Manifest {
+    pub schema_version: u32,
+    /// [`run_digest`] of the run that wrote the folder.
+    pub digest: String,
+    /// RFC 3339 UTC time the folder was written.
+    pub written: String,
+    /// The exit code of that run and what it printed (summary, failed checks), so a
+    /// run that finds the folder up to date answers the same.
+    pub exit: i32,
+    pub messages: Vec<String>,
+    /// Every file of the folder (relative path, `/`-separated) and its size, this
+    /// manifest excepted.
+    pub files: BTreeMap<String, u64>,
+    pub figures: BTreeMap<String, crate::report::FigureFile>,
+}
+
+/// What a run's outputs depend on, as one blake3 hex digest: the engine version and
+/// the run record's structure — recipes (with their text's hash), parameters,
+/// steps with options, methods sentences and references, and every node's key,
+/// inputs and upstream — but not statuses, times or host. Node keys fix every
+/// artifact, so equal digests mean equal results, tables and figures.
+pub fn run_digest(plan: &Plan, graph: &Graph) -> String {
+    let placeholder: Vec<Outcome> = graph
+        .nodes
+        .iter()
+        .map(|_| Outcome {
+            status: NodeStatus::Cached,
+            meta: None,
+            results: Vec::new(),
+            notes: Vec::new(),
+            corrupt: None,
+        })
+        .collect();
+    let skeleton = run_record(
+        plan,
+        graph,
+        &placeholder,
+        Vec::new(),
+        String::new(),
+        String::new(),
+        "",
+        Path::new(""),
+    );
+    let mut h = blake3::Hasher::new();
+    h.update(b"retort-outputs-1\0");
+    h.update(crate::VERSION.as_bytes());
+    h.update(b"\0");
+    let _ = serde_json::to_writer(&mut h, &skeleton);
+    h.finalize().to_hex().to_string()
+}
+
+/// Lists every file under `dir` with its size (paths relative, `/`-separated).
+pub fn list_files(dir: &Path) -> Result<BTreeMap<String, u64>, String> {
+    let mut out = BTreeMap::new();
+    let mut stack = vec![PathBuf::new()];
+    while let Some(rel) = stack.pop() {
+        let here = dir.join(&rel);
+        let entries = std::fs::read_dir(&here).map_err(|e| format!("{}: {e}", here.display()))?;
+        for e in entries {
+            let e = e.map_err(|e| format!("{}: {e}", here.display()))?;
+            let name = rel.join(e.file_name());
+            let meta = e
+                .metadata()
+                .map_err(|err| format!("{}: {err}", name.display()))?;
+            if meta.is_dir() {
+                stack.push(name);
+            } else {
+                let shown = name
+                    .components()
+                    .map(|c| c.as_os_str().to_string_lossy())
+                    .collect::<Vec<_>>()
+                    .join("/");
+                out.insert(shown, meta.len());
+            }
+        }
+    }
+    Ok(out)
+}
+
+/// The manifest of an output folder, if it has a readable one.
+pub fn read_manifest(out: &Path) -> Option<Manifest> {
+    let bytes = std::fs::read(out.join("manifest.json")).ok()?;
+    let m: Manifest = serde_json::from_slice(&bytes).ok()?;
+    (m.schema_version == MANIFEST_SCHEMA_VERSION).then_some(m)
+}
+
+/// Whether `out` already holds exactly what a run with `digest` would write: its
+/// manifest has the digest and every listed file is there at its size.
+pub fn up_to_date(out: &Path, digest: &str) -> Option<Manifest> {
+    let m = read_manifest(out)?;
+    if m.digest != digest {
+        return None;
+    }
+    let intact = m.files.iter().all(|(rel, &bytes)| {
+        std::fs::metadata(out.join(rel)).is_ok_and(|x| x.is_file() && x.len() == bytes)
+    });
+    intact.then_some(m)
 }

@@ -143,12 +143,20 @@ pub struct CheckRecord {
 }
 
 /// Where the report gets the artifact of a node.
-pub trait ArtifactSource {
+pub trait ArtifactSource: Sync {
     /// The artifact stored under this cache key, if it can be read.
     fn load(&self, key: &str) -> Option<Artifact>;
+    /// The same artifact with its per-point arrays empty (what tables, captions and
+    /// figure bookkeeping read); a source that stores heads apart answers cheaply.
+    fn load_head(&self, key: &str) -> Option<Artifact> {
+        self.load(key).map(|mut a| {
+            a.take_arrays();
+            a
+        })
+    }
 }
 
-impl<F: Fn(&str) -> Option<Artifact>> ArtifactSource for F {
+impl<F: Fn(&str) -> Option<Artifact> + Sync> ArtifactSource for F {
     fn load(&self, key: &str) -> Option<Artifact> {
         self(key)
     }

@@ -1,7 +1,9 @@
 //! The scheduler: runs the graph's nodes on a rayon pool, as many at once as
 //! `--jobs` allows, each as soon as its inputs are done.
 //!
-//! A node whose key is in the cache is loaded (and verified) instead of run. A failed
+//! A node whose key is in the cache is verified and known by its head (records,
+//! notes, no per-point arrays) instead of run; a dependent that has to run reads
+//! the whole artifact back from the cache when it needs it. A failed
 //! node marks everything downstream Skipped with the reason; siblings go on unless
 //! `--fail-fast`. Artifacts are held in memory only while a dependent still needs
 //! them, and ready nodes of later steps go first, so a long fan-out streams through
@@ -63,6 +65,7 @@ enum Done {
     Ok {
         artifact: Arc<Artifact>,
         meta: Meta,
+        /// Loaded from the cache: only the head (arrays empty), not kept in memory.
         cached: bool,
         corrupt: Option<String>,
     },
@@ -70,6 +73,9 @@ enum Done {
         error: String,
         corrupt: Option<String>,
     },
+    /// An upstream artifact could not be read back whole (damaged or gone since it
+    /// was found): that node is run again and this one waits for it.
+    Reread { upstream: usize, reason: String },
 }
 
 pub fn node_label(plan: &Plan, graph: &Graph, n: usize) -> String {
@@ -120,6 +126,9 @@ pub fn run(
     // inputs stay a small part of memory.
     let limit = opts.jobs.max(1) * 16;
     let mut in_flight = 0usize;
+    // Nodes run again because a dependent could not read them back, with the
+    // dependents waiting for them.
+    let mut rerun: HashMap<usize, Vec<usize>> = HashMap::new();
     let mut stopped = false;
     let mut remaining = canonical.len();
     pool.in_place_scope(|scope| {
@@ -154,17 +163,42 @@ pub fn run(
                 Err(mpsc::RecvTimeoutError::Disconnected) => break,
             };
             in_flight -= 1;
+            if let Done::Reread { upstream: u, reason } = done {
+                waiting[i] += 1;
+                ready.remove(&(std::cmp::Reverse(graph.nodes[i].step), i));
+                let waiters = rerun.entry(u).or_default();
+                if waiters.is_empty() {
+                    remaining += 1;
+                    outcomes[u] = Outcome {
+                        corrupt: Some(reason),
+                        ..Outcome::pending()
+                    };
+                    ready.insert((std::cmp::Reverse(graph.nodes[u].step), u));
+                }
+                waiters.push(i);
+                continue;
+            }
             remaining -= 1;
             let label = node_label(plan, graph, i);
+            // A node run again notifies only the dependents that waited for it.
+            let notify = rerun.remove(&i).unwrap_or_else(|| dependents[i].clone());
             match done {
+                Done::Reread { .. } => {}
                 Done::Ok { artifact, meta, cached, corrupt } => {
+                    let corrupt = corrupt.or_else(|| outcomes[i].corrupt.take());
                     let status = if cached { NodeStatus::Cached } else { NodeStatus::Ran };
                     progress.finished(&label, &status, ms);
-                    outcomes[i] = Outcome { status, meta: Some(meta), results: artifact.results.clone(), notes: artifact.notes.clone(), corrupt };
-                    if refcount[i] > 0 {
-                        memory.insert(i, artifact);
-                    }
-                    for &d in &dependents[i] {
+                    let (results, notes) = match Arc::try_unwrap(artifact) {
+                        Ok(a) if cached || refcount[i] == 0 => (a.results, a.notes),
+                        Ok(a) => {
+                            let kept = (a.results.clone(), a.notes.clone());
+                            memory.insert(i, Arc::new(a));
+                            kept
+                        }
+                        Err(a) => (a.results.clone(), a.notes.clone()),
+                    };
+                    outcomes[i] = Outcome { status, meta: Some(meta), results, notes, corrupt };
+                    for &d in &notify {
                         waiting[d] -= 1;
                         if waiting[d] == 0 && matches!(outcomes[d].status, NodeStatus::Skipped { ref because } if because == "not reached") {
                             ready.insert((std::cmp::Reverse(graph.nodes[d].step), d));
@@ -172,13 +206,14 @@ pub fn run(
                     }
                 }
                 Done::Failed { error, corrupt } => {
+                    let corrupt = corrupt.or_else(|| outcomes[i].corrupt.take());
                     let status = NodeStatus::Failed { error: error.clone() };
                     progress.finished(&label, &status, ms);
                     outcomes[i] = Outcome { status, corrupt, ..Outcome::pending() };
                     // Everything downstream is skipped, except that a gathering node
                     // goes on without the lost items (and says which in a note).
                     let mut stack: Vec<(usize, usize)> =
-                        dependents[i].iter().map(|&d| (d, i)).collect();
+                        notify.iter().map(|&d| (d, i)).collect();
                     while let Some((d, from)) = stack.pop() {
                         if !matches!(outcomes[d].status, NodeStatus::Skipped { ref because } if because == "not reached") {
                             continue;
@@ -280,7 +315,7 @@ fn work(
     let step = &plan.steps[node.step];
     let info = step.stage.info();
     let mut corrupt = None;
-    match cache.load(&node.key) {
+    match cache.load_head(&node.key) {
         Lookup::Found(b) => {
             let (meta, artifact) = *b;
             return Done::Ok {
@@ -294,19 +329,23 @@ fn work(
         Lookup::Missing => {}
     }
     let fail = |error: String, corrupt: Option<String>| Done::Failed { error, corrupt };
-    // Upstream artifacts not held in memory are read back from the cache.
+    // Upstream artifacts not held in memory are read back from the cache; one that
+    // cannot be is run again first.
     for (u, slot) in held.iter_mut() {
         if slot.is_none() {
             match cache.load(&graph.nodes[*u].key) {
                 Lookup::Found(b) => *slot = Some(Arc::new(b.1)),
-                _ => {
-                    return fail(
-                        format!(
-                            "the artifact of {} is no longer in the cache",
-                            node_label(plan, graph, *u)
-                        ),
-                        corrupt,
-                    )
+                Lookup::Corrupt(reason) => {
+                    return Done::Reread {
+                        upstream: *u,
+                        reason,
+                    }
+                }
+                Lookup::Missing => {
+                    return Done::Reread {
+                        upstream: *u,
+                        reason: "it is no longer in the cache".into(),
+                    }
                 }
             }
         }
@@ -418,7 +457,7 @@ fn work(
         duration_ms,
         host: opts.host.clone(),
     };
-    if let Err(e) = cache.store(&node.key, &meta, &artifact) {
+    if let Err(e) = cache.store(&node.key, &meta, &mut artifact) {
         return fail(format!("cannot write the cache: {e}"), corrupt);
     }
     Done::Ok {

@@ -538,3 +538,157 @@ impl Artifact {
         }
     }
 }
+
+/// The per-point arrays of an artifact (spectrum x, y, σ and curves; image samples;
+/// label maps; file bytes), taken out so that the rest — records, notes, axes, fit
+/// statistics, tables — can be stored and read back on its own, cheaply.
+///
+/// The arrays are listed in a fixed walk order ([`Artifact::take_arrays`]), and
+/// [`Artifact::put_arrays`] walks the same order, so the pair round-trips exactly.
+#[derive(Clone, Debug, Default, PartialEq)]
+pub struct Arrays {
+    pub f64s: Vec<Vec<f64>>,
+    pub f32s: Vec<Vec<f32>>,
+    pub u32s: Vec<Vec<u32>>,
+    pub bytes: Vec<Vec<u8>>,
+}
+
+impl Arrays {
+    /// Bytes the arrays hold (for sizing buffers).
+    pub fn byte_len(&self) -> usize {
+        self.f64s.iter().map(|v| v.len() * 8).sum::<usize>()
+            + self.f32s.iter().map(|v| v.len() * 4).sum::<usize>()
+            + self.u32s.iter().map(|v| v.len() * 4).sum::<usize>()
+            + self.bytes.iter().map(Vec::len).sum::<usize>()
+    }
+}
+
+fn take_spectrum(s: &mut Spectrum, a: &mut Arrays) {
+    a.f64s.push(std::mem::take(&mut s.x));
+    a.f64s.push(std::mem::take(&mut s.y));
+    if let Some(sigma) = &mut s.sigma {
+        a.f64s.push(std::mem::take(sigma));
+    }
+    for c in &mut s.curves {
+        a.f64s.push(std::mem::take(&mut c.y));
+    }
+}
+
+fn put_spectrum(s: &mut Spectrum, f: &mut impl Iterator<Item = Vec<f64>>) -> Result<(), String> {
+    let mut next = || f.next().ok_or_else(|| "too few arrays".to_string());
+    s.x = next()?;
+    s.y = next()?;
+    if s.sigma.is_some() {
+        s.sigma = Some(next()?);
+    }
+    for c in &mut s.curves {
+        c.y = next()?;
+    }
+    Ok(())
+}
+
+impl Artifact {
+    /// Moves every per-point array out of the artifact, leaving them empty.
+    pub fn take_arrays(&mut self) -> Arrays {
+        let mut a = Arrays::default();
+        match &mut self.value {
+            Value::Spectrum(s) => take_spectrum(s, &mut a),
+            Value::Fit(fit) => take_spectrum(&mut fit.spectrum, &mut a),
+            Value::Peaks(p) => take_spectrum(&mut p.spectrum, &mut a),
+            Value::Image(img) => a.f32s.push(std::mem::take(&mut img.data)),
+            Value::Labels(l) => a.u32s.push(std::mem::take(&mut l.labels)),
+            Value::File(file) => a.bytes.push(std::mem::take(&mut file.bytes)),
+            Value::Table(_) | Value::Summary => {}
+        }
+        a
+    }
+
+    /// Puts back arrays taken by [`Artifact::take_arrays`] from an artifact of the
+    /// same shape; an error (never a panic) when they do not fit.
+    pub fn put_arrays(&mut self, a: Arrays) -> Result<(), String> {
+        let mut f64s = a.f64s.into_iter();
+        let mut f32s = a.f32s.into_iter();
+        let mut u32s = a.u32s.into_iter();
+        let mut bytes = a.bytes.into_iter();
+        let missing = || "too few arrays".to_string();
+        match &mut self.value {
+            Value::Spectrum(s) => put_spectrum(s, &mut f64s)?,
+            Value::Fit(fit) => put_spectrum(&mut fit.spectrum, &mut f64s)?,
+            Value::Peaks(p) => put_spectrum(&mut p.spectrum, &mut f64s)?,
+            Value::Image(img) => img.data = f32s.next().ok_or_else(missing)?,
+            Value::Labels(l) => l.labels = u32s.next().ok_or_else(missing)?,
+            Value::File(file) => file.bytes = bytes.next().ok_or_else(missing)?,
+            Value::Table(_) | Value::Summary => {}
+        }
+        if f64s.next().is_some()
+            || f32s.next().is_some()
+            || u32s.next().is_some()
+            || bytes.next().is_some()
+        {
+            return Err("too many arrays".into());
+        }
+        Ok(())
+    }
+}
+
+#[cfg(test)]
+mod array_tests {
+    use super::*;
+
+    #[test]
+    fn arrays_round_trip_for_every_value_with_arrays() {
+        let mut s = Spectrum::new(
+            vec![1.0, 2.0],
+            vec![3.0, 4.0],
+            Axis::new("x", ""),
+            Axis::new("y", ""),
+        );
+        s.sigma = Some(vec![0.5, 0.25]);
+        s.curves.push(Curve {
+            name: "bg".into(),
+            role: CurveRole::Background,
+            y: vec![f64::NAN, 1.0],
+        });
+        let values = vec![
+            Value::Spectrum(s.clone()),
+            Value::Peaks(PeakList {
+                spectrum: s,
+                peaks: Vec::new(),
+            }),
+            Value::Image(Image {
+                width: 2,
+                height: 1,
+                data: vec![1.0, 2.0],
+                pixel_size: None,
+                z_axis: Axis::new("z", ""),
+                source_bits: 16,
+                metadata: BTreeMap::new(),
+            }),
+            Value::Labels(Labels {
+                width: 1,
+                height: 1,
+                labels: vec![7],
+                count: 1,
+                pixel_size: None,
+                metadata: BTreeMap::new(),
+            }),
+            Value::Summary,
+        ];
+        for v in values {
+            let whole = Artifact::new(v);
+            let mut shell = whole.clone();
+            let arrays = shell.take_arrays();
+            shell.put_arrays(arrays.clone()).unwrap();
+            // NaN != NaN, so compare through the debug text.
+            assert_eq!(format!("{shell:?}"), format!("{whole:?}"));
+            let mut short = whole.clone();
+            let mut a = short.take_arrays();
+            if a.byte_len() > 0 {
+                a.f64s.pop();
+                a.f32s.pop();
+                a.u32s.pop();
+                assert!(short.put_arrays(a).is_err());
+            }
+        }
+    }
+}

@@ -75,11 +75,28 @@ fn a_run_writes_every_output_and_a_second_run_is_all_cached_and_identical() {
     assert!(csv.starts_with("step,item,name,value,uncertainty,unit,node\n"));
     assert_eq!(csv.lines().count(), recs.len() + 1);
 
+    // Nothing changed: the output folder is left as it is.
+    let before = std::fs::read(out.join("run.json")).unwrap();
     let r = run(t.path(), &["run", "recipe.yaml"]);
+    assert_eq!(r.code, 0);
+    assert!(
+        r.stdout.contains("10 nodes, all cached: the output in ")
+            && r.stdout.contains(" is up to date"),
+        "{}",
+        r.stdout
+    );
+    assert_eq!(before, std::fs::read(out.join("run.json")).unwrap());
+    // --rewrite writes it again, from the cache.
+    let r = run(t.path(), &["run", "recipe.yaml", "--rewrite"]);
     assert_eq!(r.code, 0);
     assert!(r.stdout.contains("10 nodes: 0 ran, 10 cached"));
     assert_eq!(counts(&out), (0, 10, 0, 0));
     assert_eq!(first, results(&out), "results.json changed between runs");
+    // A damaged output folder is not up to date.
+    std::fs::remove_file(out.join("report.md")).unwrap();
+    let r = run(t.path(), &["run", "recipe.yaml"]);
+    assert!(r.stdout.contains("10 nodes: 0 ran, 10 cached"));
+    assert!(out.join("report.md").is_file());
 }
 
 #[test]
@@ -146,7 +163,10 @@ fn changed_bytes_rerun_that_items_chain_and_a_touch_reruns_nothing() {
     drop(f);
     let p = run(t.path(), &["plan", "recipe.yaml"]);
     assert!(p.stdout.contains("10 nodes, 0 to run, 10 cached"));
-    assert_eq!(run(t.path(), &["run", "recipe.yaml"]).code, 0);
+    let r = run(t.path(), &["run", "recipe.yaml"]);
+    assert_eq!(r.code, 0);
+    assert!(r.stdout.contains(" is up to date"), "{}", r.stdout);
+    assert_eq!(run(t.path(), &["run", "recipe.yaml", "--rewrite"]).code, 0);
     assert_eq!(counts(&t.path().join("out")), (0, 10, 0, 0));
     // New bytes: film_b's raw, smooth, peak and the gathered table rerun.
     let text = std::fs::read_to_string(&file).unwrap();
@@ -313,7 +333,9 @@ fn a_corrupt_cache_entry_is_recomputed() {
     assert!(p
         .stdout
         .contains("  run      smooth [film_a]  (cache entry corrupt (checksum mismatch))\n"));
-    let r = run(t.path(), &["run", "recipe.yaml"]);
+    // A run that reads the entry finds the damage (a run with nothing to do reads
+    // nothing: --rewrite makes it read every head, and small bodies with them).
+    let r = run(t.path(), &["run", "recipe.yaml", "--rewrite"]);
     assert_eq!(r.code, 0);
     assert!(r
         .stderr
@@ -327,7 +349,7 @@ fn a_corrupt_cache_entry_is_recomputed() {
     let mut bytes = std::fs::read(&file2).unwrap();
     bytes.truncate((offset2 + len2) as usize - 5);
     std::fs::write(&file2, &bytes).unwrap();
-    let r = run(t.path(), &["run", "recipe.yaml"]);
+    let r = run(t.path(), &["run", "recipe.yaml", "--rewrite"]);
     assert_eq!(r.code, 0);
     assert!(r.stdout.contains("1 corrupt cache entries recomputed"));
     assert_eq!(counts(&out), (1, 9, 0, 0));
@@ -563,4 +585,69 @@ fn two_runs_at_once_on_one_cache_both_succeed_with_the_same_results() {
     assert_eq!(run(t.path(), &["run", "recipe.yaml", "--out", "c"]).code, 0);
     assert_eq!(counts(&t.path().join("c")), (0, 10, 0, 0));
     assert_eq!(results(&t.path().join("a")), results(&t.path().join("c")));
+}
+
+/// The cache key of a node in an output folder's run.json.
+fn node_key(out: &Path, step: &str, item: &str) -> String {
+    let rec = read_json(&out.join("run.json"));
+    rec["nodes"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .find(|n| n["step"] == step && n["item"] == item)
+        .unwrap()["key"]
+        .as_str()
+        .unwrap()
+        .to_string()
+}
+
+/// Flips a byte `from_end` bytes before the end of a cache entry, wherever it is kept.
+fn damage_entry(root: &Path, key: &str, from_end: u64) {
+    let (file, offset, len) = engine::cache::Cache::open(&root.join(".retort"), true)
+        .unwrap()
+        .locate(key)
+        .unwrap();
+    let mut bytes = std::fs::read(&file).unwrap();
+    bytes[(offset + len - from_end) as usize] ^= 0x5a;
+    std::fs::write(&file, &bytes).unwrap();
+}
+
+#[test]
+fn damaged_large_arrays_are_found_when_read_and_recomputed() {
+    let t = fixture("basic");
+    // 4,000 points: arrays too large to be checked along with the entry's head.
+    let mut text = String::from("energy_eV,absorbance\n");
+    for i in 0..4000 {
+        let x = 1.0 + f64::from(i) * 0.001;
+        text.push_str(&format!("{x:.4},{:.6}\n", (-(x - 3.0).powi(2)).exp()));
+    }
+    std::fs::write(t.path().join("data/film_big.csv"), text).unwrap();
+    assert_eq!(run(t.path(), &["run", "recipe.yaml"]).code, 0);
+    let out = t.path().join("out");
+    let clean = results(&out);
+    let key = node_key(&out, "raw", "film_big");
+    damage_entry(t.path(), &key, 3);
+    // Drawing its figure into a fresh folder reads the arrays: found, recomputed.
+    let r = run(t.path(), &["run", "recipe.yaml", "--out", "fresh"]);
+    assert_eq!(r.code, 0, "{}", r.stderr);
+    assert!(
+        r.stderr
+            .contains("cache entry of raw [film_big] was corrupt (checksum mismatch); recomputed"),
+        "{}",
+        r.stderr
+    );
+    assert!(r.stdout.contains("1 corrupt cache entries recomputed"));
+    assert_eq!(clean, results(&t.path().join("fresh")));
+    // A dependent that has to run reads it too: found, recomputed, then used.
+    damage_entry(t.path(), &key, 3);
+    let r = run(t.path(), &["run", "recipe.yaml", "--set", "window=7"]);
+    assert_eq!(r.code, 0, "{}", r.stderr);
+    assert!(
+        r.stderr
+            .contains("cache entry of raw [film_big] was corrupt (checksum mismatch); recomputed"),
+        "{}",
+        r.stderr
+    );
+    assert_eq!(status(&out, "raw", Some("film_big")), "Ran");
+    assert_eq!(status(&out, "smooth", Some("film_big")), "Ran");
 }

@@ -29,8 +29,8 @@ pub mod number;
 use crate::record::{ArtifactSource, NodeRecord, NodeStatus, RunRecord, StepRecord};
 use rayon::prelude::*;
 use serde::Serialize;
-use stages::{Artifact, ColumnData, Image, NoteLevel, Scalar, Value};
-use std::collections::{BTreeSet, HashMap};
+use stages::{Artifact, ColumnData, NoteLevel, Scalar, Value};
+use std::collections::{BTreeMap, BTreeSet, HashMap};
 use std::path::Path;
 
 #[derive(Debug, thiserror::Error)]
@@ -55,6 +55,49 @@ pub struct RenderSummary {
     pub figure_errors: Vec<String>,
     /// Checks that failed.
     pub failed_checks: usize,
+    /// Every figure file written, with what it was drawn from (see
+    /// [`figure_key`]), for the output manifest: a later render into the same folder
+    /// reuses a file whose key is unchanged instead of drawing it again.
+    pub figure_files: BTreeMap<String, FigureFile>,
+    /// Cache keys of nodes whose head was read but whose whole artifact could not
+    /// be, so their figure is missing (the caller may recompute them and render again).
+    pub unreadable: Vec<String>,
+}
+
+/// A figure file of a rendered report.
+#[derive(Debug, Clone, PartialEq, Eq, Serialize, serde::Deserialize)]
+pub struct FigureFile {
+    /// [`figure_key`] of what was drawn.
+    pub key: String,
+    pub bytes: u64,
+}
+
+/// What a figure is drawn from: the node's cache key (which fixes its artifact),
+/// the points per curve, the key of the image drawn under a label map, and the
+/// figure code's version. Equal keys give byte-identical SVG.
+pub fn figure_key(engine_version: &str, node: &str, points: usize, image: Option<&str>) -> String {
+    let mut h = blake3::Hasher::new();
+    h.update(FIGURE_FORMAT.as_bytes());
+    for part in [
+        engine_version,
+        node,
+        &points.to_string(),
+        image.unwrap_or(""),
+    ] {
+        h.update(&(part.len() as u64).to_le_bytes());
+        h.update(part.as_bytes());
+    }
+    h.finalize().to_hex().to_string()
+}
+
+/// Changes whenever the drawing code changes what it draws.
+const FIGURE_FORMAT: &str = "retort-figure-1";
+
+/// One figure's outcome in a render.
+struct Drawn {
+    file: String,
+    /// The SVG text when the figure is inlined in report.html.
+    svg: Option<String>,
 }
 
 const HTML_TEMPLATE: &str = include_str!("../../templates/report.html");
@@ -409,24 +452,25 @@ fn status_word(s: &NodeStatus) -> &'static str {
     }
 }
 
-/// Finds an image for a label node: its own upstream, then theirs (a few levels).
-fn upstream_image(
+/// Finds the node of the image under a label node: its own upstream, then theirs
+/// (a few levels). `loaded` may hold heads or whole artifacts.
+fn upstream_image_node(
     node: &NodeRecord,
     by_key: &HashMap<&str, usize>,
     record: &RunRecord,
     loaded: &[Option<Artifact>],
-) -> Option<Image> {
+) -> Option<usize> {
     let mut frontier: Vec<&str> = node.upstream.iter().map(String::as_str).collect();
     for _ in 0..4 {
         let mut next = Vec::new();
         for k in frontier {
             let Some(&i) = by_key.get(k) else { continue };
             if let Some(Artifact {
-                value: Value::Image(img),
+                value: Value::Image(_),
                 ..
             }) = &loaded[i]
             {
-                return Some(img.clone());
+                return Some(i);
             }
             next.extend(record.nodes[i].upstream.iter().map(String::as_str));
         }
@@ -465,28 +509,6 @@ fn input_files<'a>(
     files
 }
 
-/// The artifact with its per-point arrays emptied (spectrum x, y, σ and curves,
-/// image samples, label map): what the tables and captions read is kept.
-fn without_arrays(mut a: Artifact) -> Artifact {
-    fn strip(s: &mut stages::Spectrum) {
-        s.x = Vec::new();
-        s.y = Vec::new();
-        s.sigma = None;
-        for c in &mut s.curves {
-            c.y = Vec::new();
-        }
-    }
-    match &mut a.value {
-        Value::Spectrum(s) => strip(s),
-        Value::Fit(f) => strip(&mut f.spectrum),
-        Value::Peaks(p) => strip(&mut p.spectrum),
-        Value::Image(img) => img.data = Vec::new(),
-        Value::Labels(l) => l.labels = Vec::new(),
-        _ => {}
-    }
-    a
-}
-
 /// The figure of one node, if its value is drawable: None when nothing is drawn,
 /// `Ok(None)` for a table that has no plottable shape, `Err` when drawing failed.
 fn draw_node(
@@ -507,8 +529,16 @@ fn draw_node(
         }
         Value::Image(img) => Some(figure::micrograph_svg(Some(img), None).map(Some)),
         Value::Labels(l) => {
-            let img = upstream_image(&record.nodes[i], by_key, record, loaded);
-            Some(figure::micrograph_svg(img.as_ref(), Some(l)).map(Some))
+            let img = upstream_image_node(&record.nodes[i], by_key, record, loaded).and_then(|u| {
+                match &loaded[u] {
+                    Some(Artifact {
+                        value: Value::Image(img),
+                        ..
+                    }) => Some(img),
+                    _ => None,
+                }
+            });
+            Some(figure::micrograph_svg(img, Some(l)).map(Some))
         }
         Value::Table(t) => Some(figure::table_svg(t, &art.results)),
         Value::File(_) | Value::Summary => None,
@@ -703,6 +733,20 @@ pub fn render(
     out: &Path,
     templates: Option<&Path>,
 ) -> Result<RenderSummary, ReportError> {
+    render_reusing(record, artifacts, out, templates, None)
+}
+
+/// [`render`], reusing the figure files of an earlier report in `previous` (its
+/// folder and the figures it wrote, as in [`RenderSummary::figure_files`]) whose
+/// key and size are unchanged: they are hard-linked (or copied) instead of drawn,
+/// so re-rendering after a small change costs little more than the change.
+pub fn render_reusing(
+    record: &RunRecord,
+    artifacts: &dyn ArtifactSource,
+    out: &Path,
+    templates: Option<&Path>,
+    previous: Option<(&Path, &BTreeMap<String, FigureFile>)>,
+) -> Result<RenderSummary, ReportError> {
     for sub in ["figures", "tables"] {
         let dir = out.join(sub);
         std::fs::create_dir_all(&dir).map_err(|source| ReportError::Write {
@@ -711,24 +755,26 @@ pub fn render(
         })?;
     }
     let mut summary = RenderSummary::default();
-    // Every artifact is read once here for its records and notes (all the tables
-    // need) and its curve count; its arrays are dropped at once and the figures
-    // re-read them chunk by chunk, so a big run's arrays are never all in memory.
-    let load = |n: &NodeRecord| match n.status {
-        NodeStatus::Ran | NodeStatus::Cached => artifacts.load(&n.key),
-        _ => None,
-    };
-    let mut curves = 0usize;
+    // Every node's head (records, notes, axes; no per-point arrays) is all the
+    // tables need; whole artifacts are read only to draw a figure, a chunk of nodes
+    // at a time, so a big run's arrays are never all in memory.
+    let done = |n: &NodeRecord| matches!(n.status, NodeStatus::Ran | NodeStatus::Cached);
     let loaded: Vec<Option<Artifact>> = record
         .nodes
-        .iter()
+        .par_iter()
         .map(|n| {
-            load(n).map(|a| {
-                curves += a.spectrum().map_or(0, |s| 1 + s.curves.len());
-                without_arrays(a)
-            })
+            if done(n) {
+                artifacts.load_head(&n.key)
+            } else {
+                None
+            }
         })
         .collect();
+    let curves: usize = loaded
+        .iter()
+        .flatten()
+        .map(|a| a.spectrum().map_or(0, |s| 1 + s.curves.len()))
+        .sum();
     let by_key: HashMap<&str, usize> = record
         .nodes
         .iter()
@@ -751,60 +797,160 @@ pub fn render(
             vec![s.id.clone()]
         }
     };
+    let step_nodes: Vec<Vec<usize>> = record
+        .steps
+        .iter()
+        .map(|step| {
+            record
+                .nodes
+                .iter()
+                .enumerate()
+                .filter(|(_, n)| n.step == step.id && n.recipe == step.recipe)
+                .map(|(i, _)| i)
+                .collect()
+        })
+        .collect();
 
-    // Figures are independent: draw them in parallel, in node order, a chunk of
-    // nodes at a time with their full artifacts (and, for labels, the nodes up to
-    // four levels upstream, where their image is found).
-    let n_nodes = record.nodes.len();
-    let mut drawings: Vec<Option<Result<Option<String>, String>>> = Vec::with_capacity(n_nodes);
-    let mut full: Vec<Option<Artifact>> = (0..n_nodes).map(|_| None).collect();
-    for start in (0..n_nodes).step_by(FIGURE_CHUNK) {
-        let end = (start + FIGURE_CHUNK).min(n_nodes);
-        let mut held = Vec::new();
-        for i in start..end {
-            if loaded[i].is_none() {
+    // Figure names and keys, handed out in report order (step, then item).
+    let mut fig_names = Names::default();
+    let mut wanted: Vec<(usize, usize, String, String)> = Vec::new(); // (step, node, file, key)
+    for (si, step) in record.steps.iter().enumerate() {
+        let stem = stem(step);
+        for &i in &step_nodes[si] {
+            let Some(art) = &loaded[i] else { continue };
+            if matches!(art.value, Value::File(_) | Value::Summary) || !done(&record.nodes[i]) {
                 continue;
             }
-            full[i] = load(&record.nodes[i]);
-            held.push(i);
-            if matches!(
-                full[i],
-                Some(Artifact {
-                    value: Value::Labels(_),
-                    ..
-                })
-            ) {
-                let mut frontier: Vec<&str> = record.nodes[i]
-                    .upstream
-                    .iter()
-                    .map(String::as_str)
-                    .collect();
-                for _ in 0..4 {
-                    let mut next = Vec::new();
-                    for k in frontier {
-                        let Some(&u) = by_key.get(k) else { continue };
-                        if full[u].is_none() {
-                            full[u] = load(&record.nodes[u]);
-                            held.push(u);
-                        }
-                        next.extend(record.nodes[u].upstream.iter().map(String::as_str));
-                    }
-                    frontier = next;
-                }
+            let item = item_of(&record.nodes[i]);
+            let mut parts: Vec<&str> = stem.iter().map(String::as_str).collect();
+            if !item.is_empty() {
+                parts.push(&item);
             }
-        }
-        drawings.par_extend(
-            (start..end)
-                .into_par_iter()
-                .map(|i| draw_node(i, record, &full, &by_key, points)),
-        );
-        for i in held {
-            full[i] = None;
+            let file = format!("figures/{}", fig_names.take(&parts, "svg"));
+            let image = match art.value {
+                Value::Labels(_) => upstream_image_node(&record.nodes[i], &by_key, record, &loaded)
+                    .map(|u| record.nodes[u].key.as_str()),
+                _ => None,
+            };
+            let key = figure_key(&record.engine_version, &record.nodes[i].key, points, image);
+            wanted.push((si, i, file, key));
         }
     }
-    drop(full);
+    // Inline SVG up to each drawing step's share of the budget; link the rest.
+    let drawing_steps = wanted
+        .iter()
+        .map(|w| w.0)
+        .collect::<BTreeSet<_>>()
+        .len()
+        .max(1);
+    let share = INLINE_SVG_BYTES / drawing_steps;
+    let mut inline_used: Vec<Option<usize>> = vec![Some(0); record.steps.len()];
 
-    let mut fig_names = Names::default();
+    let reusable = |file: &str, key: &str| -> Option<std::path::PathBuf> {
+        let (dir, figs) = previous?;
+        let f = figs.get(file)?;
+        let path = dir.join(file);
+        (f.key == key && std::fs::metadata(&path).ok()?.len() == f.bytes).then_some(path)
+    };
+    let mut drawn: Vec<Option<Result<Option<Drawn>, String>>> =
+        (0..record.nodes.len()).map(|_| None).collect();
+    for chunk in wanted.chunks(FIGURE_CHUNK) {
+        // Reuse what the earlier report drew from the same inputs; draw the rest
+        // with their whole artifacts (and, for labels, the image under them).
+        let reuse: Vec<Option<std::path::PathBuf>> =
+            chunk.iter().map(|(_, _, f, k)| reusable(f, k)).collect();
+        let mut full: HashMap<usize, Artifact> = HashMap::new();
+        for ((_, i, _, _), r) in chunk.iter().zip(&reuse) {
+            if r.is_some() {
+                continue;
+            }
+            let node = &record.nodes[*i];
+            let whole = artifacts.load(&node.key);
+            if whole.is_none() {
+                summary.unreadable.push(node.key.clone());
+            }
+            if let Some(a) = whole {
+                if matches!(a.value, Value::Labels(_)) {
+                    if let Some(u) = upstream_image_node(node, &by_key, record, &loaded) {
+                        if let std::collections::hash_map::Entry::Vacant(slot) = full.entry(u) {
+                            if let Some(img) = artifacts.load(&record.nodes[u].key) {
+                                slot.insert(img);
+                            }
+                        }
+                    }
+                }
+                full.insert(*i, a);
+            }
+        }
+        let mut slots: Vec<Option<Artifact>> = (0..record.nodes.len()).map(|_| None).collect();
+        for (i, a) in full {
+            slots[i] = Some(a);
+        }
+        let results: Vec<Result<Option<(String, u64)>, String>> = chunk
+            .par_iter()
+            .zip(&reuse)
+            .map(|((_, i, file, _), reuse)| {
+                let target = out.join(file);
+                if let Some(src) = reuse {
+                    let bytes = std::fs::metadata(src).map(|m| m.len()).unwrap_or(0);
+                    if std::fs::hard_link(src, &target).is_err() {
+                        std::fs::copy(src, &target).map_err(|e| {
+                            format!("cannot copy {} to {}: {e}", src.display(), target.display())
+                        })?;
+                    }
+                    return Ok(Some((String::new(), bytes)));
+                }
+                if slots[*i].is_none() {
+                    return Err(format!(
+                        "its stored result (cache key {}) could not be read",
+                        record.nodes[*i].key
+                    ));
+                }
+                match draw_node(*i, record, &slots, &by_key, points) {
+                    Some(Ok(Some(svg))) => {
+                        write(&target, svg.as_bytes()).map_err(|e| e.to_string())?;
+                        let n = svg.len() as u64;
+                        Ok(Some((svg, n)))
+                    }
+                    Some(Err(e)) => Err(e),
+                    _ => Ok(None),
+                }
+            })
+            .collect();
+        drop(slots);
+        for (((si, i, file, key), r), reused) in chunk.iter().zip(results).zip(&reuse) {
+            drawn[*i] = Some(r.map(|ok| {
+                ok.map(|(svg, bytes)| {
+                    summary.figure_files.insert(
+                        file.clone(),
+                        FigureFile {
+                            key: key.clone(),
+                            bytes,
+                        },
+                    );
+                    let inline = match inline_used[*si] {
+                        Some(used) if used == 0 || used + bytes as usize <= share => {
+                            inline_used[*si] = Some(used + bytes as usize);
+                            true
+                        }
+                        _ => {
+                            inline_used[*si] = None;
+                            false
+                        }
+                    };
+                    let svg = inline.then(|| match reused {
+                        Some(_) => std::fs::read_to_string(out.join(file)).unwrap_or_default(),
+                        None => svg,
+                    });
+                    Drawn {
+                        file: file.clone(),
+                        svg,
+                    }
+                })
+            }));
+        }
+    }
+
     let mut anchors = Anchors::default();
     let mut table_names = Names::default();
     // The engine writes tables/results.csv itself.
@@ -818,19 +964,12 @@ pub fn render(
     let methods = methods::assemble(record);
     let mut problems = Vec::new();
     let mut step_views: Vec<(String, StepView)> = Vec::new();
-    let mut step_svg: Vec<Vec<usize>> = Vec::new();
     let mut provenance = Vec::new();
 
-    for step in &record.steps {
+    for (step, nodes) in record.steps.iter().zip(&step_nodes) {
         let stem = stem(step);
         let anchor_id = anchors.take("s", &[&step.recipe, &step.id]);
-        let nodes: Vec<usize> = record
-            .nodes
-            .iter()
-            .enumerate()
-            .filter(|(_, n)| n.step == step.id && n.recipe == step.recipe)
-            .map(|(i, _)| i)
-            .collect();
+        let nodes = nodes.as_slice();
         let mut view = StepView {
             id: step.id.clone(),
             anchor: anchor_id.clone(),
@@ -902,7 +1041,7 @@ pub fn render(
             &["item", "position", "height", "prominence", "fwhm"],
         );
         let mut value_tables = Vec::new();
-        for &i in &nodes {
+        for &i in nodes {
             let node = &record.nodes[i];
             let item = item_of(node);
             let label = if item.is_empty() {
@@ -958,15 +1097,20 @@ pub fn render(
             if !item.is_empty() {
                 parts.push(&item);
             }
-            let drawn = drawings[i].take();
-            match drawn {
-                Some(Ok(Some(svg))) => {
-                    let name = fig_names.take(&parts, "svg");
-                    view.figures.push(FigureView {
-                        file: format!("figures/{name}"),
-                        svg,
+            match drawn[i].take() {
+                Some(Ok(Some(d))) => {
+                    let inline = d.svg.is_some();
+                    let fig = FigureView {
+                        file: d.file,
+                        svg: d.svg.unwrap_or_default(),
                         caption: figure_caption(step, &label, &art.value),
-                    });
+                    };
+                    if inline {
+                        summary.inlined += 1;
+                        view.figures.push(fig);
+                    } else {
+                        view.linked.push(fig);
+                    }
                 }
                 Some(Err(e)) => {
                     summary
@@ -1102,7 +1246,7 @@ pub fn render(
             view.tables.push(tables.write(&p, title, table_grid(t))?);
         }
         if !columns.is_empty() {
-            let grid = results_grid(&columns, &nodes, record, loaded.as_slice(), &step.id);
+            let grid = results_grid(&columns, nodes, record, loaded.as_slice(), &step.id);
             view.tables
                 .push(tables.write(&with_part(&stem, "results"), "Results".into(), grid)?);
         }
@@ -1117,11 +1261,15 @@ pub fn render(
                     .push(tables.write(&with_part(&stem, suffix), title.into(), grid)?);
             }
         }
-        counts.figures += view.figures.len();
-        step_svg.push(view.figures.iter().map(|f| f.svg.len()).collect::<Vec<_>>());
+        counts.figures += view.figures.len() + view.linked.len();
         counts.tables += view.tables.len();
 
-        let mut outputs: Vec<String> = view.figures.iter().map(|f| f.file.clone()).collect();
+        let mut outputs: Vec<String> = view
+            .figures
+            .iter()
+            .chain(&view.linked)
+            .map(|f| f.file.clone())
+            .collect();
         outputs.extend(view.tables.iter().map(|t| t.file.clone()));
         provenance.push(ProvenanceView {
             step: step.id.clone(),
@@ -1155,34 +1303,6 @@ pub fn render(
                 .collect(),
         });
         step_views.push((step.recipe.clone(), view));
-    }
-
-    // Write the figure files (in parallel: thousands of small files).
-    step_views
-        .par_iter()
-        .flat_map(|(_, v)| v.figures.par_iter())
-        .map(|f| write(&out.join(&f.file), f.svg.as_bytes()))
-        .collect::<Result<Vec<()>, ReportError>>()?;
-
-    // Inline figures up to each step's share of the budget; link the rest.
-    let drawing = step_svg.iter().filter(|v| !v.is_empty()).count().max(1);
-    let share = INLINE_SVG_BYTES / drawing;
-    for ((_, view), sizes) in step_views.iter_mut().zip(&step_svg) {
-        let mut used = 0;
-        let keep = sizes
-            .iter()
-            .take_while(|b| {
-                used += **b;
-                used <= share
-            })
-            .count()
-            .max(1)
-            .min(sizes.len());
-        view.linked = view.figures.split_off(keep);
-        summary.inlined += view.figures.len();
-        for f in &mut view.linked {
-            f.svg.clear();
-        }
     }
 
     // Checks.
