@@ -348,9 +348,21 @@ impl Phases {
     }
     fn mark(&mut self, what: &str) {
         if self.on {
+            // Resident memory now and at its peak so far (Linux), to tell which
+            // phase holds memory.
+            let status = std::fs::read_to_string("/proc/self/status").unwrap_or_default();
+            let field = |name: &str| {
+                status
+                    .lines()
+                    .find_map(|l| l.strip_prefix(name))
+                    .map(|v| v.trim().to_string())
+                    .unwrap_or_default()
+            };
             eprintln!(
-                "timing: {what:<12} {:8.1} ms",
-                self.last.elapsed().as_secs_f64() * 1000.0
+                "timing: {what:<12} {:8.1} ms  (rss {}, peak {})",
+                self.last.elapsed().as_secs_f64() * 1000.0,
+                field("VmRSS:"),
+                field("VmHWM:")
             );
         }
         self.last = std::time::Instant::now();
@@ -391,7 +403,7 @@ fn run_plan(a: &RunArgs, plan: &Plan) -> Result<Exit, String> {
     phases.mark("graph");
     if a.shard.is_none() && !a.no_cache && !a.rewrite {
         if let Some(exit) = outputs_up_to_date(plan, &graph, &cache, &out, a.quiet) {
-            phases.mark("up to date");
+            phases.mark("up-to-date");
             return Ok(exit);
         }
     }

@@ -301,6 +301,21 @@ fn gathers_something(plan: &Plan, graph: &Graph, d: usize, lost: &[(usize, Strin
     })
 }
 
+/// Whether node `d` reads the per-point arrays of upstream node `u` (it takes `u`
+/// through at least one port that is not records-only).
+fn reads_arrays_of(plan: &Plan, graph: &Graph, d: usize, u: usize) -> bool {
+    let node = &graph.nodes[d];
+    let ports = plan.steps[node.step].stage.info().inputs;
+    node.inputs.iter().enumerate().any(|(p, inp)| {
+        let takes_u = match inp {
+            NodeInput::Missing => false,
+            NodeInput::One(r) => matches!(r, Ref::Node(n) if *n == u),
+            NodeInput::Many(v) => v.iter().any(|(_, r)| matches!(r, Ref::Node(n) if *n == u)),
+        };
+        takes_u && ports.get(p).is_none_or(|port| port.arrays)
+    })
+}
+
 /// Loads or runs one node on a worker thread.
 fn work(
     plan: &Plan,
@@ -333,7 +348,13 @@ fn work(
     // cannot be is run again first.
     for (u, slot) in held.iter_mut() {
         if slot.is_none() {
-            match cache.load(&graph.nodes[*u].key) {
+            let key = &graph.nodes[*u].key;
+            let found = if reads_arrays_of(plan, graph, i, *u) {
+                cache.load(key)
+            } else {
+                cache.load_head(key)
+            };
+            match found {
                 Lookup::Found(b) => *slot = Some(Arc::new(b.1)),
                 Lookup::Corrupt(reason) => {
                     return Done::Reread {

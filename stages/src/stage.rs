@@ -48,6 +48,11 @@ pub struct Port {
     /// An optional port may be left out of the recipe.
     pub optional: bool,
     pub about: &'static str,
+    /// Whether the stage reads its inputs' per-point arrays (spectrum points and
+    /// curves, image samples, label maps). A port that reads only records, notes,
+    /// fitted peaks and tables says `false` ([`Port::records_only`]): the engine may
+    /// then hand it artifacts whose arrays are empty, read cheaply from the cache.
+    pub arrays: bool,
 }
 
 impl Port {
@@ -58,6 +63,7 @@ impl Port {
             arity: Arity::Each,
             optional: false,
             about,
+            arrays: true,
         }
     }
     pub const fn gather(name: &'static str, kind: Kind, about: &'static str) -> Port {
@@ -67,6 +73,7 @@ impl Port {
             arity: Arity::Gather,
             optional: false,
             about,
+            arrays: true,
         }
     }
     pub const fn several(name: &'static str, kind: Kind, about: &'static str) -> Port {
@@ -76,11 +83,20 @@ impl Port {
             arity: Arity::Several,
             optional: false,
             about,
+            arrays: true,
         }
     }
     pub const fn optional(self) -> Port {
         Port {
             optional: true,
+            ..self
+        }
+    }
+    /// The stage reads only records, notes, fitted peaks and tables of this port's
+    /// inputs, never their per-point arrays.
+    pub const fn records_only(self) -> Port {
+        Port {
+            arrays: false,
             ..self
         }
     }

@@ -20,7 +20,7 @@ pub struct Options {
 
 pub struct GatherTable;
 
-static INPUTS: &[Port] = &[Port::gather("items", Kind::Any, "every item of a step")];
+static INPUTS: &[Port] = &[Port::gather("items", Kind::Any, "every item of a step").records_only()];
 
 impl TypedStage for GatherTable {
     type Options = Options;
