@@ -253,15 +253,30 @@ impl<'a> Iterator for ContentLines<'a> {
     type Item = (usize, &'a str);
     fn next(&mut self) -> Option<(usize, &'a str)> {
         while !self.rest.is_empty() {
-            let (raw, rest) = match self.rest.find('\n') {
-                Some(i) => (&self.rest[..i], &self.rest[i + 1..]),
-                None => (self.rest, ""),
+            let b = self.rest.as_bytes();
+            let (mut end, next) = match b.iter().position(|&c| c == b'\n') {
+                Some(i) => (i, i + 1),
+                None => (b.len(), b.len()),
             };
-            self.rest = rest;
+            while end > 0 && b[end - 1] == b'\r' {
+                end -= 1;
+            }
+            // Cuts at ASCII bytes fall on character boundaries.
+            let l = &self.rest[..end];
+            self.rest = &self.rest[next..];
             self.line_no += 1;
-            let l = raw.trim_end_matches('\r');
-            let t = l.trim();
-            if !t.is_empty() && !t.starts_with(|c| self.comment.contains(c)) {
+            let keep = match l.bytes().find(|&c| !is_space(c)) {
+                // Blank.
+                None => false,
+                // An ASCII character starts the trimmed line (the usual case).
+                Some(c) if c.is_ascii() => !self.comment.as_bytes().contains(&c),
+                // Unicode whitespace or another character first.
+                Some(_) => {
+                    let t = l.trim();
+                    !t.is_empty() && !t.starts_with(|c| self.comment.contains(c))
+                }
+            };
+            if keep {
                 return Some((self.line_no, l));
             }
         }
@@ -275,65 +290,37 @@ fn is_space(b: u8) -> bool {
     matches!(b, b'\t'..=b'\r' | b' ')
 }
 
-/// The fields of one line cut at the delimiter byte (or at runs of whitespace when
-/// `None`), trimmed of ASCII whitespace and then of double quotes. For a field that
-/// reads as a number this is exactly what [`Fields::collect`] gives: such a field is
-/// ASCII, where `str::trim` trims the same characters.
-struct ByteFields<'a> {
-    rest: Option<&'a str>,
-    delimiter: Option<u8>,
+/// A field as [`Fields::collect`] trims it, for a field that is ASCII (where
+/// `str::trim` trims the same characters): whitespace, then double quotes.
+fn trim_field(field: &str) -> &str {
+    let f = field.as_bytes();
+    let a = f.iter().position(|&c| !is_space(c)).unwrap_or(f.len());
+    let z = f.iter().rposition(|&c| !is_space(c)).map_or(a, |i| i + 1);
+    // Cuts next to ASCII bytes fall on character boundaries.
+    field[a..z].trim_matches('"')
 }
 
-impl<'a> ByteFields<'a> {
-    fn new(line: &'a str, delimiter: Delimiter) -> Self {
-        let delimiter = match delimiter {
-            Delimiter::Comma => Some(b','),
-            Delimiter::Semicolon => Some(b';'),
-            Delimiter::Tab => Some(b'\t'),
-            Delimiter::Whitespace | Delimiter::Auto => None,
-        };
-        ByteFields {
-            rest: Some(line),
-            delimiter,
-        }
-    }
-}
-
-impl<'a> Iterator for ByteFields<'a> {
-    type Item = &'a str;
-    fn next(&mut self) -> Option<&'a str> {
-        let r = self.rest?;
-        let b = r.as_bytes();
-        // Cuts fall on ASCII bytes, so every slice below is on a character boundary.
-        let (field, rest) = match self.delimiter {
-            Some(d) => match b.iter().position(|&c| c == d) {
-                Some(i) => (&r[..i], Some(&r[i + 1..])),
-                None => (r, None),
-            },
-            None => {
-                let Some(s) = b.iter().position(|&c| !is_space(c)) else {
-                    self.rest = None;
-                    return None;
-                };
-                match b[s..].iter().position(|&c| is_space(c)) {
-                    Some(e) => (&r[s..s + e], Some(&r[s + e..])),
-                    None => (&r[s..], None),
-                }
-            }
-        };
-        self.rest = rest;
-        let f = field.as_bytes();
-        let a = f.iter().position(|&c| !is_space(c)).unwrap_or(f.len());
-        let z = f.iter().rposition(|&c| !is_space(c)).map_or(a, |i| i + 1);
-        Some(field[a..z].trim_matches('"'))
-    }
-}
-
-/// The one-pass reader: every field of every row parsed straight into its column.
-/// None when the rows are not a full numeric table (a ragged line, an empty or
-/// non-numeric field, non-ASCII text, a non-finite value); the caller then reads the
-/// rows field by field to report the problem exactly.
+/// The one-pass reader: each line is walked once, every field parsed straight into
+/// its column while it is cut out of the line. None when the rows are not a full
+/// numeric table (a ragged line, an empty or non-numeric field, non-ASCII text, a
+/// non-finite value); the caller then reads the rows field by field to report the
+/// problem exactly.
 fn numeric_rows(rows: ContentLines, delimiter: Delimiter, decimal_comma: bool) -> Option<Rows> {
+    let delimiter = match delimiter {
+        Delimiter::Comma => Some(b','),
+        Delimiter::Semicolon => Some(b';'),
+        Delimiter::Tab => Some(b'\t'),
+        // Runs of whitespace.
+        Delimiter::Whitespace | Delimiter::Auto => None,
+    };
+    let mark = if decimal_comma { b',' } else { b'.' };
+    // A decimal comma in comma-separated text cannot be inside a field: the field is
+    // cut first (0xFF never occurs in UTF-8, so no mark is read).
+    let prefix_mark = if delimiter == Some(mark) { 0xFF } else { mark };
+    let ends_field = |c: u8| match delimiter {
+        Some(d) => c == d,
+        None => is_space(c),
+    };
     // Capacity from the length of the first row (the columns need not regrow).
     let mut probe = rows.clone();
     let (_, first) = probe.next()?;
@@ -341,15 +328,47 @@ fn numeric_rows(rows: ContentLines, delimiter: Delimiter, decimal_comma: bool) -
     let mut lines = Vec::with_capacity(estimate);
     let mut columns: Vec<Vec<f64>> = Vec::new();
     for (line_no, line) in rows {
+        let b = line.as_bytes();
         let first = lines.is_empty();
         let mut k = 0;
-        for field in ByteFields::new(line, delimiter) {
-            let v = parse_number(field, decimal_comma).filter(|v| v.is_finite())?;
+        let mut pos = 0;
+        loop {
+            if delimiter.is_none() {
+                while pos < b.len() && is_space(b[pos]) {
+                    pos += 1;
+                }
+                if pos == b.len() {
+                    break;
+                }
+            }
+            // A plain decimal that fills its field is read where it stands (it needs
+            // no trimming); anything else is cut and trimmed as the field-by-field
+            // reader does, and parsed in full.
+            let (v, end) = match decimal_prefix(&b[pos..], prefix_mark) {
+                Some((v, n)) if b.get(pos + n).is_none_or(|&c| ends_field(c)) => (v, pos + n),
+                _ => {
+                    let end = b[pos..]
+                        .iter()
+                        .position(|&c| ends_field(c))
+                        .map_or(b.len(), |i| pos + i);
+                    let v = parse_number(trim_field(&line[pos..end]), decimal_comma)
+                        .filter(|v| v.is_finite())?;
+                    (v, end)
+                }
+            };
             if first {
                 columns.push(Vec::with_capacity(estimate));
             }
             columns.get_mut(k)?.push(v);
             k += 1;
+            if delimiter.is_some() {
+                if end == b.len() {
+                    break;
+                }
+                pos = end + 1;
+            } else {
+                pos = end;
+            }
         }
         if k != columns.len() || k == 0 {
             return None;
@@ -481,37 +500,38 @@ const POW10: [f64; 23] = [
 /// bits as `str::parse` (W. D. Clinger, How to read floating point numbers accurately,
 /// PLDI 1990). Anything else returns None and takes the general parser.
 fn fast_decimal(b: &[u8], mark: u8) -> Option<f64> {
-    let (neg, digits) = match b.first()? {
-        b'-' => (true, &b[1..]),
-        b'+' => (false, &b[1..]),
-        _ => (false, b),
-    };
+    decimal_prefix(b, mark)
+        .filter(|&(_, n)| n == b.len())
+        .map(|(v, _)| v)
+}
+
+/// The plain decimal (optional sign, digits, at most one `mark`, digits) at the start
+/// of `b` and the bytes it takes, when it has 1 to 15 digits; see [`fast_decimal`].
+fn decimal_prefix(b: &[u8], mark: u8) -> Option<(f64, usize)> {
+    let neg = b.first() == Some(&b'-');
+    let mut i = usize::from(matches!(b.first(), Some(b'-' | b'+')));
+    // Wrapping arithmetic: with more than 15 digits m is wrong but then unused.
     let mut m: u64 = 0;
-    let mut count = 0usize;
-    let mut frac: Option<usize> = None;
-    for &c in digits {
-        if c.is_ascii_digit() {
-            if count == 15 {
-                // Too many digits for the exact path (and m * 10 could overflow).
-                return None;
-            }
-            m = m * 10 + u64::from(c - b'0');
-            count += 1;
-            if let Some(f) = frac.as_mut() {
-                *f += 1;
-            }
-        } else if c == mark && frac.is_none() {
-            frac = Some(0);
-        } else {
-            return None;
+    let mut digits = |i: &mut usize| {
+        let start = *i;
+        while let Some(d) = b.get(*i).map(|c| c.wrapping_sub(b'0')).filter(|&d| d <= 9) {
+            m = m.wrapping_mul(10).wrapping_add(u64::from(d));
+            *i += 1;
         }
+        *i - start
+    };
+    let mut count = digits(&mut i);
+    let mut k = 0;
+    if b.get(i) == Some(&mark) {
+        i += 1;
+        k = digits(&mut i);
+        count += k;
     }
-    let k = frac.unwrap_or(0);
-    if count == 0 || count > 15 || k >= POW10.len() {
+    if count == 0 || count > 15 {
         return None;
     }
-    let v = m as f64 / POW10[k];
-    Some(if neg { -v } else { v })
+    let v = m as f64 / POW10.get(k)?;
+    Some((if neg { -v } else { v }, i))
 }
 
 impl Grid<'_> {
@@ -1054,7 +1074,7 @@ mod fuzz {
     fn same_either_way(text: &[u8], o: &Options) {
         let shown = || String::from_utf8_lossy(text).into_owned();
         assert_eq!(
-            format!("{:?}", parse(&"t.csv", text, o)),
+            format!("{:?}", parse("t.csv", text, o)),
             format!("{:?}", parse_with("t.csv", text, o, false)),
             "{}",
             shown()
@@ -1096,6 +1116,15 @@ mod fuzz {
                 poisson_sigma: PoissonSigma::On,
                 ..Options::default()
             },
+            Options {
+                delimiter: Delimiter::Comma,
+                decimal: DecimalMark::Comma,
+                ..Options::default()
+            },
+            Options {
+                delimiter: Delimiter::Whitespace,
+                ..Options::default()
+            },
         ];
         let odd = [
             "",
@@ -1116,6 +1145,17 @@ mod fuzz {
             "-",
             "1.2.3",
             "\u{3000}",
+            "\"1\"",
+            " 4",
+            "5 ",
+            "\t6",
+            "7\r8",
+            "1 2",
+            "00012.50",
+            "-0",
+            "+",
+            ".",
+            "9.\"",
         ];
         let (mut one_pass, mut field_by_field) = (0, 0);
         for case in 0..6000 {
@@ -1189,6 +1229,7 @@ mod fuzz {
         let text = "position (arb),intensity (arb)\n1.0000,2.5000\n1.0001,-0.0001\n";
         let o = Options::default();
         let g = read_grid("b.csv", text, &o, true).unwrap();
+        assert_eq!(g.len(), 2);
         assert!(matches!(g.rows, Rows::Numeric { .. }));
         assert_eq!(g.column("b.csv", 1, "y").unwrap(), vec![2.5, -0.0001]);
     }
