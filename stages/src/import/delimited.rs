@@ -477,15 +477,18 @@ fn read_grid<'a>(
 }
 
 fn parse_number(s: &str, decimal_comma: bool) -> Option<f64> {
-    let mark = if decimal_comma { b',' } else { b'.' };
-    if let Some(v) = fast_decimal(s.as_bytes(), mark) {
+    if !decimal_comma {
+        return parse_f64(s);
+    }
+    if let Some(v) = fast_decimal(s.as_bytes(), b',') {
         return Some(v);
     }
-    if decimal_comma {
-        s.replace(',', ".").parse().ok()
-    } else {
-        s.parse().ok()
-    }
+    s.replace(',', ".").parse().ok()
+}
+
+/// `s.parse::<f64>().ok()`, bit for bit, with plain decimals read the fast way.
+pub(crate) fn parse_f64(s: &str) -> Option<f64> {
+    fast_decimal(s.as_bytes(), b'.').or_else(|| s.parse().ok())
 }
 
 /// Exact powers of ten up to 1e22 (every one is a double exactly).
