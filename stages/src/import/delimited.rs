@@ -170,10 +170,25 @@ struct Grid<'a> {
     header_line: usize,
     /// Lines of free text above the header (title, instrument...), kept as metadata.
     preamble: Vec<String>,
-    /// (1-based line number, fields) of every data line; the fields borrow the text
-    /// (no allocation per field: import speed matters for large batches).
-    rows: Vec<(usize, Fields<'a>)>,
+    rows: Rows<'a>,
     decimal_comma: bool,
+}
+
+/// The data lines of a file.
+enum Rows<'a> {
+    /// Every data line had as many fields as the first and every field read as a
+    /// finite number: the columns, parsed in one pass over the text (the common case;
+    /// import speed matters for large batches).
+    Numeric {
+        /// 1-based line number of each row.
+        lines: Vec<usize>,
+        /// One vector per field position.
+        columns: Vec<Vec<f64>>,
+    },
+    /// Anything else (ragged lines, text in a column): (1-based line number, fields)
+    /// of every data line, the fields borrowing the text, parsed column by column so
+    /// that an error names the line and field it concerns.
+    Fields(Vec<(usize, Fields<'a>)>),
 }
 
 /// The fields of one line: up to four inline, more on the heap.
@@ -214,25 +229,165 @@ impl<'a> Fields<'a> {
     }
 }
 
-/// Splits decoded text into header, preamble and rows (the rows borrow `text`).
-fn read_grid<'a>(name: &str, text: &'a str, o: &Options) -> Result<Grid<'a>, StageError> {
-    let text = text.strip_prefix('\u{feff}').unwrap_or(text);
-    let lines: Vec<(usize, &str)> = text
-        .lines()
-        .enumerate()
-        .map(|(i, l)| (i + 1, l.trim_end_matches('\r')))
-        .filter(|(_, l)| {
-            let t = l.trim();
-            !t.is_empty() && !t.starts_with(|c| o.comment.contains(c))
-        })
-        .collect();
-    if lines.is_empty() {
-        return Err(StageError::data(
-            name,
-            None,
-            "no data lines (file is empty or all comments)",
-        ));
+/// The lines of a text that carry content, as (1-based line number, line): split like
+/// `str::lines`, trailing carriage returns removed, blank and comment lines skipped.
+/// Lazy and cheap to clone, so that no list of lines is built.
+#[derive(Clone)]
+struct ContentLines<'a> {
+    rest: &'a str,
+    line_no: usize,
+    comment: &'a str,
+}
+
+impl<'a> ContentLines<'a> {
+    fn new(text: &'a str, comment: &'a str) -> Self {
+        ContentLines {
+            rest: text,
+            line_no: 0,
+            comment,
+        }
     }
+}
+
+impl<'a> Iterator for ContentLines<'a> {
+    type Item = (usize, &'a str);
+    fn next(&mut self) -> Option<(usize, &'a str)> {
+        while !self.rest.is_empty() {
+            let b = self.rest.as_bytes();
+            let (mut end, next) = match b.iter().position(|&c| c == b'\n') {
+                Some(i) => (i, i + 1),
+                None => (b.len(), b.len()),
+            };
+            while end > 0 && b[end - 1] == b'\r' {
+                end -= 1;
+            }
+            // Cuts at ASCII bytes fall on character boundaries.
+            let l = &self.rest[..end];
+            self.rest = &self.rest[next..];
+            self.line_no += 1;
+            let keep = match l.bytes().find(|&c| !is_space(c)) {
+                // Blank.
+                None => false,
+                // An ASCII character starts the trimmed line (the usual case).
+                Some(c) if c.is_ascii() => !self.comment.as_bytes().contains(&c),
+                // Unicode whitespace or another character first.
+                Some(_) => {
+                    let t = l.trim();
+                    !t.is_empty() && !t.starts_with(|c| self.comment.contains(c))
+                }
+            };
+            if keep {
+                return Some((self.line_no, l));
+            }
+        }
+        None
+    }
+}
+
+/// ASCII whitespace as `char::is_whitespace` has it (tab, line feed, vertical tab,
+/// form feed, carriage return, space).
+fn is_space(b: u8) -> bool {
+    matches!(b, b'\t'..=b'\r' | b' ')
+}
+
+/// A field as [`Fields::collect`] trims it, for a field that is ASCII (where
+/// `str::trim` trims the same characters): whitespace, then double quotes.
+fn trim_field(field: &str) -> &str {
+    let f = field.as_bytes();
+    let a = f.iter().position(|&c| !is_space(c)).unwrap_or(f.len());
+    let z = f.iter().rposition(|&c| !is_space(c)).map_or(a, |i| i + 1);
+    // Cuts next to ASCII bytes fall on character boundaries.
+    field[a..z].trim_matches('"')
+}
+
+/// The one-pass reader: each line is walked once, every field parsed straight into
+/// its column while it is cut out of the line. None when the rows are not a full
+/// numeric table (a ragged line, an empty or non-numeric field, non-ASCII text, a
+/// non-finite value); the caller then reads the rows field by field to report the
+/// problem exactly.
+fn numeric_rows(rows: ContentLines, delimiter: Delimiter, decimal_comma: bool) -> Option<Rows> {
+    let delimiter = match delimiter {
+        Delimiter::Comma => Some(b','),
+        Delimiter::Semicolon => Some(b';'),
+        Delimiter::Tab => Some(b'\t'),
+        // Runs of whitespace.
+        Delimiter::Whitespace | Delimiter::Auto => None,
+    };
+    let mark = if decimal_comma { b',' } else { b'.' };
+    // A decimal comma in comma-separated text cannot be inside a field: the field is
+    // cut first (0xFF never occurs in UTF-8, so no mark is read).
+    let prefix_mark = if delimiter == Some(mark) { 0xFF } else { mark };
+    let ends_field = |c: u8| match delimiter {
+        Some(d) => c == d,
+        None => is_space(c),
+    };
+    // Capacity from the length of the first row (the columns need not regrow).
+    let mut probe = rows.clone();
+    let (_, first) = probe.next()?;
+    let estimate = probe.rest.len() / (first.len() + 1) + 2;
+    let mut lines = Vec::with_capacity(estimate);
+    let mut columns: Vec<Vec<f64>> = Vec::new();
+    for (line_no, line) in rows {
+        let b = line.as_bytes();
+        let first = lines.is_empty();
+        let mut k = 0;
+        let mut pos = 0;
+        loop {
+            if delimiter.is_none() {
+                while pos < b.len() && is_space(b[pos]) {
+                    pos += 1;
+                }
+                if pos == b.len() {
+                    break;
+                }
+            }
+            // A plain decimal that fills its field is read where it stands (it needs
+            // no trimming); anything else is cut and trimmed as the field-by-field
+            // reader does, and parsed in full.
+            let (v, end) = match decimal_prefix(&b[pos..], prefix_mark) {
+                Some((v, n)) if b.get(pos + n).is_none_or(|&c| ends_field(c)) => (v, pos + n),
+                _ => {
+                    let end = b[pos..]
+                        .iter()
+                        .position(|&c| ends_field(c))
+                        .map_or(b.len(), |i| pos + i);
+                    let v = parse_number(trim_field(&line[pos..end]), decimal_comma)
+                        .filter(|v| v.is_finite())?;
+                    (v, end)
+                }
+            };
+            if first {
+                columns.push(Vec::with_capacity(estimate));
+            }
+            columns.get_mut(k)?.push(v);
+            k += 1;
+            if delimiter.is_some() {
+                if end == b.len() {
+                    break;
+                }
+                pos = end + 1;
+            } else {
+                pos = end;
+            }
+        }
+        if k != columns.len() || k == 0 {
+            return None;
+        }
+        lines.push(line_no);
+    }
+    Some(Rows::Numeric { lines, columns })
+}
+
+/// Splits decoded text into header, preamble and rows (the rows borrow `text`);
+/// `one_pass` tries the one-pass reader first (false only to test it against the
+/// field-by-field reader).
+fn read_grid<'a>(
+    name: &str,
+    text: &'a str,
+    o: &'a Options,
+    one_pass: bool,
+) -> Result<Grid<'a>, StageError> {
+    let text = text.strip_prefix('\u{feff}').unwrap_or(text);
     // The first line whose first field reads as a number starts the data; the line
     // just above it is the header; anything above that is a preamble.
     // The first token (split at any delimiter) of a data line reads as a number,
@@ -243,14 +398,40 @@ fn read_grid<'a>(name: &str, text: &'a str, o: &Options) -> Result<Grid<'a>, Sta
             .find(|t| !t.is_empty())
             .is_some_and(|t| t.parse::<f64>().is_ok())
     };
-    let data_from = lines
-        .iter()
-        .position(|(_, l)| numeric_start(l))
-        .unwrap_or(lines.len());
-    let head_from = data_from.saturating_sub(1);
-    let body = &lines[head_from..];
+    let mut lines = ContentLines::new(text, &o.comment);
+    // The lines from the header candidate on (the last line when none is numeric).
+    let mut body = lines.clone();
+    let mut above: Vec<&str> = Vec::new();
+    let mut candidate: Option<&str> = None;
+    loop {
+        let before = lines.clone();
+        match lines.next() {
+            None => break,
+            Some((_, l)) if numeric_start(l) => {
+                if candidate.is_none() {
+                    body = before;
+                }
+                break;
+            }
+            Some((_, l)) => {
+                above.extend(candidate.replace(l));
+                body = before;
+            }
+        }
+    }
+    let mut rest = body.clone();
+    let Some((header_line, head)) = rest.next() else {
+        return Err(StageError::data(
+            name,
+            None,
+            "no data lines (file is empty or all comments)",
+        ));
+    };
+    let sample: Vec<(usize, &str)> = std::iter::once((header_line, head))
+        .chain(rest.clone().take(20))
+        .collect();
     let delimiter = match o.delimiter {
-        Delimiter::Auto => detect_delimiter(body),
+        Delimiter::Auto => detect_delimiter(&sample),
         d => d,
     };
     let decimal_comma = match o.decimal {
@@ -258,8 +439,8 @@ fn read_grid<'a>(name: &str, text: &'a str, o: &Options) -> Result<Grid<'a>, Sta
         DecimalMark::Point => false,
         DecimalMark::Auto => {
             delimiter != Delimiter::Comma
-                && body.iter().skip(1).take(20).any(|(_, l)| l.contains(','))
-                && !body.iter().skip(1).take(20).any(|(_, l)| l.contains('.'))
+                && sample[1..].iter().any(|(_, l)| l.contains(','))
+                && !sample[1..].iter().any(|(_, l)| l.contains('.'))
         }
     };
     let fields = |l: &'a str| -> Fields<'a> {
@@ -270,7 +451,7 @@ fn read_grid<'a>(name: &str, text: &'a str, o: &Options) -> Result<Grid<'a>, Sta
             Delimiter::Whitespace | Delimiter::Auto => Fields::collect(l.split_whitespace()),
         }
     };
-    let first = fields(body[0].1);
+    let first = fields(head);
     let has_header = first
         .as_slice()
         .iter()
@@ -280,18 +461,15 @@ fn read_grid<'a>(name: &str, text: &'a str, o: &Options) -> Result<Grid<'a>, Sta
     } else {
         Vec::new()
     };
-    let preamble = lines[..head_from]
-        .iter()
-        .map(|(_, l)| l.trim().to_string())
-        .collect();
-    let rows = body
-        .iter()
-        .skip(usize::from(has_header))
-        .map(|(n, l)| (*n, fields(l)))
-        .collect();
+    let preamble = above.iter().map(|l| l.trim().to_string()).collect();
+    let data = if has_header { rest } else { body };
+    let rows = one_pass
+        .then(|| numeric_rows(data.clone(), delimiter, decimal_comma))
+        .flatten()
+        .unwrap_or_else(|| Rows::Fields(data.map(|(n, l)| (n, fields(l))).collect()));
     Ok(Grid {
         header,
-        header_line: body[0].0,
+        header_line,
         preamble,
         rows,
         decimal_comma,
@@ -299,15 +477,18 @@ fn read_grid<'a>(name: &str, text: &'a str, o: &Options) -> Result<Grid<'a>, Sta
 }
 
 fn parse_number(s: &str, decimal_comma: bool) -> Option<f64> {
-    let mark = if decimal_comma { b',' } else { b'.' };
-    if let Some(v) = fast_decimal(s.as_bytes(), mark) {
+    if !decimal_comma {
+        return parse_f64(s);
+    }
+    if let Some(v) = fast_decimal(s.as_bytes(), b',') {
         return Some(v);
     }
-    if decimal_comma {
-        s.replace(',', ".").parse().ok()
-    } else {
-        s.parse().ok()
-    }
+    s.replace(',', ".").parse().ok()
+}
+
+/// `s.parse::<f64>().ok()`, bit for bit, with plain decimals read the fast way.
+pub(crate) fn parse_f64(s: &str) -> Option<f64> {
+    fast_decimal(s.as_bytes(), b'.').or_else(|| s.parse().ok())
 }
 
 /// Exact powers of ten up to 1e22 (every one is a double exactly).
@@ -322,37 +503,38 @@ const POW10: [f64; 23] = [
 /// bits as `str::parse` (W. D. Clinger, How to read floating point numbers accurately,
 /// PLDI 1990). Anything else returns None and takes the general parser.
 fn fast_decimal(b: &[u8], mark: u8) -> Option<f64> {
-    let (neg, digits) = match b.first()? {
-        b'-' => (true, &b[1..]),
-        b'+' => (false, &b[1..]),
-        _ => (false, b),
-    };
+    decimal_prefix(b, mark)
+        .filter(|&(_, n)| n == b.len())
+        .map(|(v, _)| v)
+}
+
+/// The plain decimal (optional sign, digits, at most one `mark`, digits) at the start
+/// of `b` and the bytes it takes, when it has 1 to 15 digits; see [`fast_decimal`].
+fn decimal_prefix(b: &[u8], mark: u8) -> Option<(f64, usize)> {
+    let neg = b.first() == Some(&b'-');
+    let mut i = usize::from(matches!(b.first(), Some(b'-' | b'+')));
+    // Wrapping arithmetic: with more than 15 digits m is wrong but then unused.
     let mut m: u64 = 0;
-    let mut count = 0usize;
-    let mut frac: Option<usize> = None;
-    for &c in digits {
-        if c.is_ascii_digit() {
-            if count == 15 {
-                // Too many digits for the exact path (and m * 10 could overflow).
-                return None;
-            }
-            m = m * 10 + u64::from(c - b'0');
-            count += 1;
-            if let Some(f) = frac.as_mut() {
-                *f += 1;
-            }
-        } else if c == mark && frac.is_none() {
-            frac = Some(0);
-        } else {
-            return None;
+    let mut digits = |i: &mut usize| {
+        let start = *i;
+        while let Some(d) = b.get(*i).map(|c| c.wrapping_sub(b'0')).filter(|&d| d <= 9) {
+            m = m.wrapping_mul(10).wrapping_add(u64::from(d));
+            *i += 1;
         }
+        *i - start
+    };
+    let mut count = digits(&mut i);
+    let mut k = 0;
+    if b.get(i) == Some(&mark) {
+        i += 1;
+        k = digits(&mut i);
+        count += k;
     }
-    let k = frac.unwrap_or(0);
-    if count == 0 || count > 15 || k >= POW10.len() {
+    if count == 0 || count > 15 {
         return None;
     }
-    let v = m as f64 / POW10[k];
-    Some(if neg { -v } else { v })
+    let v = m as f64 / POW10.get(k)?;
+    Some((if neg { -v } else { v }, i))
 }
 
 impl Grid<'_> {
@@ -391,10 +573,59 @@ impl Grid<'_> {
         })
     }
 
+    /// Number of data rows.
+    fn len(&self) -> usize {
+        match &self.rows {
+            Rows::Numeric { lines, .. } => lines.len(),
+            Rows::Fields(rows) => rows.len(),
+        }
+    }
+
+    /// 1-based line number of data row `k` (0 past the end, never reached: callers
+    /// index rows they have read).
+    fn line(&self, k: usize) -> usize {
+        match &self.rows {
+            Rows::Numeric { lines, .. } => lines.get(k).copied(),
+            Rows::Fields(rows) => rows.get(k).map(|r| r.0),
+        }
+        .unwrap_or(0)
+    }
+
+    /// The first row with fewer than `needed` fields: (line number, fields found).
+    fn short_row(&self, needed: usize) -> Option<(usize, usize)> {
+        match &self.rows {
+            Rows::Numeric { lines, columns } => lines
+                .first()
+                .filter(|_| columns.len() < needed)
+                .map(|&l| (l, columns.len())),
+            Rows::Fields(rows) => rows
+                .iter()
+                .find(|(_, f)| f.len() < needed)
+                .map(|(l, f)| (*l, f.len())),
+        }
+    }
+
     /// Reads one numeric column; `what` names it in error messages.
     fn column(&self, name: &str, i: usize, what: &str) -> Result<Vec<f64>, StageError> {
-        let mut out = Vec::with_capacity(self.rows.len());
-        for (line_no, f) in &self.rows {
+        let rows = match &self.rows {
+            Rows::Numeric { columns, .. } => {
+                return match columns.get(i) {
+                    Some(c) => Ok(c.clone()),
+                    None => Err(StageError::data(
+                        name,
+                        Some(self.line(0)),
+                        format!(
+                            "expected at least {} fields, found {}",
+                            i + 1,
+                            columns.len()
+                        ),
+                    )),
+                }
+            }
+            Rows::Fields(rows) => rows,
+        };
+        let mut out = Vec::with_capacity(rows.len());
+        for (line_no, f) in rows {
             let cell = f.get(i).ok_or_else(|| {
                 StageError::data(
                     name,
@@ -429,17 +660,19 @@ impl Grid<'_> {
         Ok(out)
     }
 
+    /// Fields every row has (at least as many as the header names, when the first
+    /// row has them).
     fn width(&self) -> usize {
-        self.rows
-            .iter()
-            .map(|(_, f)| f.len())
-            .min()
-            .unwrap_or(0)
-            .max(
-                self.header
-                    .len()
-                    .min(self.rows.first().map_or(0, |r| r.1.len())),
-            )
+        match &self.rows {
+            // Every row has every column.
+            Rows::Numeric { columns, .. } => columns.len(),
+            Rows::Fields(rows) => rows
+                .iter()
+                .map(|(_, f)| f.len())
+                .min()
+                .unwrap_or(0)
+                .max(self.header.len().min(rows.first().map_or(0, |r| r.1.len()))),
+        }
     }
 }
 
@@ -458,8 +691,17 @@ pub fn poisson_sigma(y: &[f64]) -> Vec<f64> {
 /// Parses delimited text into a spectrum (the y column the options name).
 /// `name` is used in error messages only.
 pub fn parse(name: &str, bytes: &[u8], o: &Options) -> Result<Spectrum, StageError> {
+    parse_with(name, bytes, o, true)
+}
+
+fn parse_with(
+    name: &str,
+    bytes: &[u8],
+    o: &Options,
+    one_pass: bool,
+) -> Result<Spectrum, StageError> {
     let text = crate::import::encoding::decode_text(name, bytes)?;
-    let g = read_grid(name, &text, o)?;
+    let g = read_grid(name, &text, o, one_pass)?;
     let yi = g.resolve(name, &o.y, "y")?;
     build(name, &g, o, yi)
 }
@@ -467,8 +709,17 @@ pub fn parse(name: &str, bytes: &[u8], o: &Options) -> Result<Spectrum, StageErr
 /// Parses delimited text into one spectrum per y column: every column except x and
 /// sigma, in file order.
 pub fn parse_all(name: &str, bytes: &[u8], o: &Options) -> Result<Vec<Spectrum>, StageError> {
+    parse_all_with(name, bytes, o, true)
+}
+
+fn parse_all_with(
+    name: &str,
+    bytes: &[u8],
+    o: &Options,
+    one_pass: bool,
+) -> Result<Vec<Spectrum>, StageError> {
     let text = crate::import::encoding::decode_text(name, bytes)?;
-    let g = read_grid(name, &text, o)?;
+    let g = read_grid(name, &text, o, one_pass)?;
     let xi = g.resolve(name, &o.x, "x")?;
     let si = match &o.sigma {
         Some(c) => Some(g.resolve(name, c, "sigma")?),
@@ -493,24 +744,21 @@ fn build(name: &str, g: &Grid, o: &Options, yi: usize) -> Result<Spectrum, Stage
         Some(c) => Some(g.resolve(name, c, "sigma")?),
         None => g.sigma_column().filter(|&i| i != xi && i != yi),
     };
-    if g.rows.len() < 2 {
+    if g.len() < 2 {
         return Err(StageError::data(
             name,
             None,
-            format!(
-                "a spectrum needs at least 2 data points, found {}",
-                g.rows.len()
-            ),
+            format!("a spectrum needs at least 2 data points, found {}", g.len()),
         ));
     }
     // Check every row is wide enough before reading columns, so a short row is
     // reported as such rather than as a missing value.
     let needed = xi.max(yi).max(si.unwrap_or(0)) + 1;
-    if let Some((line_no, f)) = g.rows.iter().find(|(_, f)| f.len() < needed) {
+    if let Some((line_no, found)) = g.short_row(needed) {
         return Err(StageError::data(
             name,
-            Some(*line_no),
-            format!("expected at least {needed} fields, found {}", f.len()),
+            Some(line_no),
+            format!("expected at least {needed} fields, found {found}"),
         ));
     }
     let x = g.column(name, xi, "x")?;
@@ -520,7 +768,7 @@ fn build(name: &str, g: &Grid, o: &Options, yi: usize) -> Result<Spectrum, Stage
         if let Some(k) = s.iter().position(|&v| v < 0.0) {
             return Err(StageError::data(
                 name,
-                Some(g.rows[k].0),
+                Some(g.line(k)),
                 format!("sigma value {} is negative", s[k]),
             ));
         }
@@ -562,7 +810,7 @@ fn build(name: &str, g: &Grid, o: &Options, yi: usize) -> Result<Spectrum, Stage
         if let Some(k) = s.y.iter().position(|&v| v < 0.0) {
             return Err(StageError::data(
                 name,
-                Some(g.rows[k].0),
+                Some(g.line(k)),
                 format!("Poisson sigma needs counts ≥ 0, found {}", s.y[k]),
             ));
         }
@@ -796,6 +1044,197 @@ mod fuzz {
             let _ = parse("f.csv", text.as_bytes(), &Options::default());
             let _ = parse_all("f.csv", text.as_bytes(), &Options::default());
         }
+    }
+
+    proptest! {
+        #![proptest_config(ProptestConfig::with_cases(400))]
+        // The lazy line reader gives what `str::lines` with the blank and comment
+        // filter gives.
+        #[test]
+        fn content_lines_match_str_lines(text in "[0-9a,.#% \t\r\n\u{a0}\u{3000}]{0,200}") {
+            let comment = "#%";
+            let want: Vec<(usize, &str)> = text
+                .lines()
+                .enumerate()
+                .map(|(i, l)| (i + 1, l.trim_end_matches('\r')))
+                .filter(|(_, l)| {
+                    let t = l.trim();
+                    !t.is_empty() && !t.starts_with(|c| comment.contains(c))
+                })
+                .collect();
+            let got: Vec<(usize, &str)> = ContentLines::new(&text, comment).collect();
+            prop_assert_eq!(got, want);
+        }
+
+        // The one-pass reader and the field-by-field reader agree on arbitrary text.
+        #[test]
+        fn one_pass_matches_field_by_field_on_arbitrary_text(text in "[0-9a-z,;.\t \n\r\"#%\\-e]{0,300}") {
+            same_either_way(text.as_bytes(), &Options::default());
+        }
+    }
+
+    /// Both readers give the same spectra, or the same error, bit for bit.
+    fn same_either_way(text: &[u8], o: &Options) {
+        let shown = || String::from_utf8_lossy(text).into_owned();
+        assert_eq!(
+            format!("{:?}", parse("t.csv", text, o)),
+            format!("{:?}", parse_with("t.csv", text, o, false)),
+            "{}",
+            shown()
+        );
+        assert_eq!(
+            format!("{:?}", parse_all("t.csv", text, o)),
+            format!("{:?}", parse_all_with("t.csv", text, o, false)),
+            "{}",
+            shown()
+        );
+    }
+
+    #[test]
+    fn one_pass_matches_field_by_field_on_generated_tables() {
+        // Seeded tables: numbers of many shapes, delimiters, quotes, padding, CRLF,
+        // comments, blank lines, preambles, and now and then a ragged line or a field
+        // that is not a finite number.
+        let mut state = 99u64;
+        let mut next = move |n: u64| {
+            state = state
+                .wrapping_mul(6364136223846793005)
+                .wrapping_add(1442695040888963407);
+            (state >> 33) % n
+        };
+        let options = [
+            Options::default(),
+            Options {
+                decimal: DecimalMark::Comma,
+                delimiter: Delimiter::Semicolon,
+                ..Options::default()
+            },
+            Options {
+                y: ColumnRef::Name("b".into()),
+                sigma: Some(ColumnRef::Position(3)),
+                ..Options::default()
+            },
+            Options {
+                x: ColumnRef::Position(3),
+                poisson_sigma: PoissonSigma::On,
+                ..Options::default()
+            },
+            Options {
+                delimiter: Delimiter::Comma,
+                decimal: DecimalMark::Comma,
+                ..Options::default()
+            },
+            Options {
+                delimiter: Delimiter::Whitespace,
+                ..Options::default()
+            },
+        ];
+        let odd = [
+            "",
+            "abc",
+            "inf",
+            "-inf",
+            "NaN",
+            "1e400",
+            "\"2.5\"",
+            " 3 ",
+            "1,5",
+            "+.5",
+            "5.",
+            "1e5",
+            "-2.5E-3",
+            "1234567890123456789",
+            "0.1\u{a0}",
+            "-",
+            "1.2.3",
+            "\u{3000}",
+            "\"1\"",
+            " 4",
+            "5 ",
+            "\t6",
+            "7\r8",
+            "1 2",
+            "00012.50",
+            "-0",
+            "+",
+            ".",
+            "9.\"",
+        ];
+        let (mut one_pass, mut field_by_field) = (0, 0);
+        for case in 0..6000 {
+            let (delim, comma) = match next(6) {
+                0 => (",", false),
+                1 => (";", true),
+                2 => ("\t", false),
+                3 => (" ", false),
+                4 => ("   ", true),
+                _ => (";", false),
+            };
+            let width = 1 + next(4) as usize;
+            let rows = next(12) as usize;
+            let mut t = String::new();
+            if next(4) == 0 {
+                t.push_str("# exported\n");
+            }
+            if next(3) == 0 {
+                t.push_str("Sample A run 3\n");
+            }
+            if next(3) != 0 {
+                let names = ["a (eV)", "b", "sigma", "counts"];
+                t.push_str(&names[..width].join(delim));
+                t.push('\n');
+            }
+            for _ in 0..rows {
+                let w = if next(20) == 0 {
+                    width + 1 - next(2) as usize * 2
+                } else {
+                    width
+                };
+                let fields: Vec<String> = (0..w.max(1))
+                    .map(|_| {
+                        if next(40) == 0 {
+                            return odd[next(odd.len() as u64) as usize].to_string();
+                        }
+                        let digits: String = (0..1 + next(9))
+                            .map(|_| char::from(b'0' + next(10) as u8))
+                            .collect();
+                        let cut = next(digits.len() as u64 + 1) as usize;
+                        let mark = if comma { "," } else { "." };
+                        let sign = ["", "", "-", "+"][next(4) as usize];
+                        if cut == digits.len() {
+                            format!("{sign}{digits}")
+                        } else {
+                            format!("{sign}{}{mark}{}", &digits[..cut], &digits[cut..])
+                        }
+                    })
+                    .collect();
+                t.push_str(&fields.join(delim));
+                t.push_str(["\n", "\r\n", " \n", "\n\n", "\n# note\n"][next(5) as usize]);
+            }
+            if next(2) == 0 {
+                t.pop();
+            }
+            let o = &options[case % options.len()];
+            same_either_way(t.as_bytes(), o);
+            if let Ok(g) = read_grid("t.csv", &t, o, true) {
+                match g.rows {
+                    Rows::Numeric { .. } => one_pass += 1,
+                    Rows::Fields(_) => field_by_field += 1,
+                }
+            }
+        }
+        // Both readers were exercised, each on a good share of the cases.
+        assert!(
+            one_pass > 1000 && field_by_field > 1000,
+            "{one_pass} {field_by_field}"
+        );
+        // The benchmark's shape takes the one-pass reader.
+        let text = "position (arb),intensity (arb)\n1.0000,2.5000\n1.0001,-0.0001\n";
+        let o = Options::default();
+        let g = read_grid("b.csv", text, &o, true).unwrap();
+        assert_eq!(g.len(), 2);
+        assert!(matches!(g.rows, Rows::Numeric { .. }));
+        assert_eq!(g.column("b.csv", 1, "y").unwrap(), vec![2.5, -0.0001]);
     }
 
     #[test]

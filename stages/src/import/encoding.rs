@@ -5,6 +5,7 @@
 //! such as `µm` or `°`. Byte-order marks: Unicode Standard, section 23.8.
 
 use crate::stage::StageError;
+use std::borrow::Cow;
 
 /// UTF-16 code units (after the byte-order mark) as text; the error says why not
 /// ("with an odd number of bytes", "with an unpaired surrogate"). Shared with the
@@ -38,10 +39,12 @@ pub fn utf8_error_place(body: &[u8], e: &std::str::Utf8Error) -> (usize, usize, 
     (line, col, at)
 }
 
-/// The text of `bytes`, or a data error naming the file, line and byte.
-pub fn decode_text(name: &str, bytes: &[u8]) -> Result<String, StageError> {
-    let utf16 = |body: &[u8], le: bool| -> Result<String, StageError> {
+/// The text of `bytes` (borrowed when it is UTF-8), or a data error naming the file,
+/// line and byte.
+pub fn decode_text<'a>(name: &str, bytes: &'a [u8]) -> Result<Cow<'a, str>, StageError> {
+    let utf16 = |body: &[u8], le: bool| -> Result<Cow<'a, str>, StageError> {
         utf16_text(body, le)
+            .map(Cow::Owned)
             .map_err(|why| StageError::data(name, None, format!("UTF-16 text {why}")))
     };
     match bytes {
@@ -59,7 +62,7 @@ pub fn decode_text(name: &str, bytes: &[u8]) -> Result<String, StageError> {
         ));
     }
     match std::str::from_utf8(body) {
-        Ok(s) => Ok(s.to_string()),
+        Ok(s) => Ok(Cow::Borrowed(s)),
         Err(e) => {
             let (line, col, at) = utf8_error_place(body, &e);
             Err(StageError::data(
