@@ -124,7 +124,13 @@ pub struct Cache {
     pending: Mutex<Pending>,
     /// Pending entries by key, for lookups (shared with `pending`).
     pending_keys: RwLock<HashMap<String, Arc<Vec<u8>>>>,
+    /// Segment files opened for reading, by path (at most [`OPEN_SEGMENTS`]).
+    open: Mutex<HashMap<PathBuf, Arc<std::fs::File>>>,
 }
+
+/// Segment files kept open for reading; a run reading thousands of entries from a
+/// few segments opens each once.
+const OPEN_SEGMENTS: usize = 256;
 
 fn io_err(path: &Path, e: impl std::fmt::Display) -> String {
     format!("{}: {e}", path.display())
@@ -232,12 +238,31 @@ impl Cache {
             segments: RwLock::new(segs),
             pending: Mutex::new(Pending::default()),
             pending_keys: RwLock::new(HashMap::new()),
+            open: Mutex::new(HashMap::new()),
         })
     }
 
     pub fn object_path(&self, key: &str) -> PathBuf {
         let shard = key.get(..2).unwrap_or("00");
         self.dir.join("objects").join(shard).join(key)
+    }
+
+    /// Opens a file for reading, reusing an open segment file.
+    fn open_for_read(&self, path: &Path, segment: bool) -> std::io::Result<Arc<std::fs::File>> {
+        if segment {
+            if let Some(f) = self.open.lock().ok().and_then(|o| o.get(path).cloned()) {
+                return Ok(f);
+            }
+        }
+        let f = Arc::new(std::fs::File::open(path)?);
+        if segment {
+            if let Ok(mut o) = self.open.lock() {
+                if o.len() < OPEN_SEGMENTS {
+                    o.insert(path.to_path_buf(), Arc::clone(&f));
+                }
+            }
+        }
+        Ok(f)
     }
 
     fn segment_loc(&self, key: &str) -> Option<(PathBuf, Loc)> {
@@ -263,6 +288,22 @@ impl Cache {
             || self.object_path(key).is_file()
     }
 
+    /// The open file holding an entry, with the entry's offset and length.
+    fn locate_open(&self, key: &str) -> std::io::Result<Option<(Arc<std::fs::File>, u64, u64)>> {
+        if let Some((path, loc)) = self.segment_loc(key) {
+            let f = self.open_for_read(&path, true)?;
+            return Ok(Some((f, loc.offset, u64::from(loc.len))));
+        }
+        match std::fs::File::open(self.object_path(key)) {
+            Ok(f) => {
+                let len = f.metadata()?.len();
+                Ok(Some((Arc::new(f), 0, len)))
+            }
+            Err(e) if e.kind() == std::io::ErrorKind::NotFound => Ok(None),
+            Err(e) => Err(e),
+        }
+    }
+
     /// Reads an entry's bytes into `buf` (replacing its contents). Ok(false) when
     /// absent.
     fn raw_into(&self, key: &str, buf: &mut Vec<u8>) -> Result<bool, String> {
@@ -277,18 +318,9 @@ impl Cache {
             return Ok(true);
         }
         let unreadable = |e: std::io::Error| format!("unreadable: {e}");
-        let (path, offset, len) = match self.segment_loc(key) {
-            Some((path, loc)) => (path, loc.offset, u64::from(loc.len)),
-            None => {
-                let path = self.object_path(key);
-                match std::fs::metadata(&path) {
-                    Ok(m) => (path, 0, m.len()),
-                    Err(e) if e.kind() == std::io::ErrorKind::NotFound => return Ok(false),
-                    Err(e) => return Err(unreadable(e)),
-                }
-            }
+        let Some((f, offset, len)) = self.locate_open(key).map_err(unreadable)? else {
+            return Ok(false);
         };
-        let f = std::fs::File::open(&path).map_err(unreadable)?;
         buf.resize(len as usize, 0);
         read_at(&f, buf, offset).map_err(|e| format!("truncated entry: {e}"))?;
         Ok(true)
@@ -346,21 +378,12 @@ impl Cache {
             return Ok(Some((b.to_vec(), true)));
         }
         let unreadable = |e: std::io::Error| format!("unreadable: {e}");
-        let (path, offset, len) = match self.segment_loc(key) {
-            Some((path, loc)) => (path, loc.offset, u64::from(loc.len)),
-            None => {
-                let path = self.object_path(key);
-                match std::fs::metadata(&path) {
-                    Ok(m) => (path, 0, m.len()),
-                    Err(e) if e.kind() == std::io::ErrorKind::NotFound => return Ok(None),
-                    Err(e) => return Err(unreadable(e)),
-                }
-            }
+        let Some((f, offset, len)) = self.locate_open(key).map_err(unreadable)? else {
+            return Ok(None);
         };
         if len < HEADER as u64 {
             return Err(format!("truncated ({len} bytes)"));
         }
-        let f = std::fs::File::open(&path).map_err(unreadable)?;
         let mut b = vec![0u8; HEADER];
         read_at(&f, &mut b, offset).map_err(|e| format!("truncated entry: {e}"))?;
         let end = head_end(&b).ok_or("bad header")?;

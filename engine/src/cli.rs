@@ -467,9 +467,13 @@ fn run_plan(a: &RunArgs, plan: &Plan) -> Result<Exit, String> {
             &host,
             &cache.dir,
         );
-        let results = outputs::results_json(plan, &graph, &outcomes);
+        let results = outputs::Results {
+            plan,
+            graph: &graph,
+            outcomes: &outcomes,
+        };
         let tmp = outputs::temp_beside(&out)?;
-        outputs::write(tmp.path(), "results.json", &outputs::json_bytes(&results)?)?;
+        outputs::write_json(tmp.path(), "results.json", &results)?;
         outputs::write(
             tmp.path(),
             "tables/results.csv",

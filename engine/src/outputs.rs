@@ -14,44 +14,127 @@ use crate::record::{
     RUN_RECORD_SCHEMA_VERSION,
 };
 use crate::scheduler::Outcome;
-use serde_json::{json, Value};
+
 use stages::Scalar;
 use std::collections::BTreeMap;
 use std::path::{Path, PathBuf};
 
 pub const RESULTS_SCHEMA_VERSION: u32 = 1;
 
-pub fn results_json(plan: &Plan, graph: &Graph, outcomes: &[Outcome]) -> Value {
-    let mut results = Vec::new();
-    let mut failures = Vec::new();
-    for (i, node) in graph.nodes.iter().enumerate() {
-        let step = &plan.steps[node.step];
-        for r in &outcomes[i].results {
-            let value = match &r.value {
-                Scalar::Number(v) => json!(v),
-                Scalar::Text(t) => json!(t),
-            };
-            results.push(json!({ "step": step.id, "item": node.item, "name": r.name, "value": value, "uncertainty": r.uncertainty, "unit": r.unit, "node": node.key }));
-        }
-        match &outcomes[i].status {
-            NodeStatus::Failed { error } => failures.push(json!({ "step": step.id, "item": node.item, "stage": step.stage.info().name, "status": "failed", "cause": error, "node": node.key })),
-            NodeStatus::Skipped { because } => failures.push(json!({ "step": step.id, "item": node.item, "stage": step.stage.info().name, "status": "skipped", "cause": because, "node": node.key })),
-            _ => {}
-        }
-    }
-    // Built by moving the lists in (json! would copy them through serialization).
-    let mut doc = serde_json::Map::new();
-    doc.insert("schema_version".into(), json!(RESULTS_SCHEMA_VERSION));
-    doc.insert(
-        "recipe".into(),
-        json!(plan.recipes.first().map(|r| r.id.clone())),
-    );
-    doc.insert("results".into(), Value::Array(results));
-    doc.insert("failures".into(), Value::Array(failures));
-    Value::Object(doc)
+/// `results.json`: every published record (node order, then publishing order) and
+/// every failed or skipped node. Serialized as it is walked, so a run of many
+/// thousand nodes never holds the document as a JSON tree.
+pub struct Results<'a> {
+    pub plan: &'a Plan,
+    pub graph: &'a Graph,
+    pub outcomes: &'a [Outcome],
 }
 
-pub fn results_csv(results: &Value) -> Result<Vec<u8>, String> {
+/// A record's value as JSON: a number or a string.
+struct ScalarJson<'a>(&'a Scalar);
+
+impl serde::Serialize for ScalarJson<'_> {
+    fn serialize<S: serde::Serializer>(&self, s: S) -> Result<S::Ok, S::Error> {
+        match self.0 {
+            Scalar::Number(v) => s.serialize_f64(*v),
+            Scalar::Text(t) => s.serialize_str(t),
+        }
+    }
+}
+
+#[derive(serde::Serialize)]
+struct ResultRow<'a> {
+    step: &'a str,
+    item: &'a Option<String>,
+    name: &'a str,
+    value: ScalarJson<'a>,
+    uncertainty: Option<f64>,
+    unit: &'a str,
+    node: &'a str,
+}
+
+#[derive(serde::Serialize)]
+struct FailureRow<'a> {
+    step: &'a str,
+    item: &'a Option<String>,
+    stage: &'a str,
+    status: &'a str,
+    cause: &'a str,
+    node: &'a str,
+}
+
+impl Results<'_> {
+    fn rows(&self) -> impl Iterator<Item = ResultRow<'_>> {
+        self.graph
+            .nodes
+            .iter()
+            .zip(self.outcomes)
+            .flat_map(move |(node, o)| {
+                let step = self.plan.steps[node.step].id.as_str();
+                o.results.iter().map(move |r| ResultRow {
+                    step,
+                    item: &node.item,
+                    name: &r.name,
+                    value: ScalarJson(&r.value),
+                    uncertainty: r.uncertainty,
+                    unit: &r.unit,
+                    node: &node.key,
+                })
+            })
+    }
+    fn failures(&self) -> impl Iterator<Item = FailureRow<'_>> {
+        self.graph
+            .nodes
+            .iter()
+            .zip(self.outcomes)
+            .filter_map(move |(node, o)| {
+                let step = &self.plan.steps[node.step];
+                let (status, cause) = match &o.status {
+                    NodeStatus::Failed { error } => ("failed", error.as_str()),
+                    NodeStatus::Skipped { because } => ("skipped", because.as_str()),
+                    _ => return None,
+                };
+                Some(FailureRow {
+                    step: &step.id,
+                    item: &node.item,
+                    stage: step.stage.info().name,
+                    status,
+                    cause,
+                    node: &node.key,
+                })
+            })
+    }
+}
+
+/// Serializes an iterator as a JSON array without collecting it.
+struct Each<F>(F);
+
+impl<I, F> serde::Serialize for Each<F>
+where
+    F: Fn() -> I,
+    I: Iterator,
+    I::Item: serde::Serialize,
+{
+    fn serialize<S: serde::Serializer>(&self, s: S) -> Result<S::Ok, S::Error> {
+        s.collect_seq((self.0)())
+    }
+}
+
+impl serde::Serialize for Results<'_> {
+    fn serialize<S: serde::Serializer>(&self, s: S) -> Result<S::Ok, S::Error> {
+        use serde::ser::SerializeMap;
+        let mut m = s.serialize_map(Some(4))?;
+        m.serialize_entry("schema_version", &RESULTS_SCHEMA_VERSION)?;
+        m.serialize_entry("recipe", &self.plan.recipes.first().map(|r| r.id.as_str()))?;
+        m.serialize_entry("results", &Each(|| self.rows()))?;
+        m.serialize_entry("failures", &Each(|| self.failures()))?;
+        m.end()
+    }
+}
+
+/// `tables/results.csv`: the records of results.json, one per line, numbers in the
+/// same shortest round-trip form.
+pub fn results_csv(results: &Results) -> Result<Vec<u8>, String> {
     let mut w = csv::Writer::from_writer(Vec::new());
     let e = |e: csv::Error| e.to_string();
     w.write_record([
@@ -64,21 +147,20 @@ pub fn results_csv(results: &Value) -> Result<Vec<u8>, String> {
         "node",
     ])
     .map_err(e)?;
-    let empty = Vec::new();
-    for r in results["results"].as_array().unwrap_or(&empty) {
-        let text = |v: &Value| match v {
-            Value::Null => String::new(),
-            Value::String(s) => s.clone(),
-            other => other.to_string(),
+    let number = |v: f64| serde_json::to_string(&v).unwrap_or_default();
+    for r in results.rows() {
+        let value = match r.value.0 {
+            Scalar::Number(v) => number(*v),
+            Scalar::Text(t) => t.clone(),
         };
         w.write_record([
-            text(&r["step"]),
-            text(&r["item"]),
-            text(&r["name"]),
-            text(&r["value"]),
-            text(&r["uncertainty"]),
-            text(&r["unit"]),
-            text(&r["node"]),
+            r.step,
+            r.item.as_deref().unwrap_or(""),
+            r.name,
+            &value,
+            &r.uncertainty.map(number).unwrap_or_default(),
+            r.unit,
+            r.node,
         ])
         .map_err(e)?;
     }

@@ -7,7 +7,10 @@
 //! node marks everything downstream Skipped with the reason; siblings go on unless
 //! `--fail-fast`. Artifacts are held in memory only while a dependent still needs
 //! them, and ready nodes of later steps go first, so a long fan-out streams through
-//! memory instead of piling up.
+//! memory instead of piling up. What a gathering step takes is not held whole (a
+//! thousand fits would pile up until the table that gathers them runs): it keeps
+//! only the head when the gatherer reads records only, and otherwise reads the
+//! artifact back from the cache when it runs.
 //!
 //! **Invariant:** the order nodes finish in never shows in any output: outcomes are
 //! stored by node index and the writers sort.
@@ -109,6 +112,17 @@ pub fn run(
     let mut refcount: Vec<usize> = dependents.iter().map(Vec::len).collect();
     let mut outcomes: Vec<Outcome> = (0..n).map(|_| Outcome::pending()).collect();
     let mut memory: HashMap<usize, Arc<Artifact>> = HashMap::new();
+    // What to hold of a finished node: whole when a dependent takes it item by item
+    // and reads its arrays, else its head (arrays emptied) for the dependents that
+    // read records only; gatherers that read arrays read it back from the cache.
+    let hold_whole: Vec<bool> = (0..n)
+        .map(|u| {
+            dependents[u]
+                .iter()
+                .any(|&d| reads_arrays_of(plan, graph, d, u) && !gathers_from(plan, graph, d, u))
+        })
+        .collect();
+    let mut head_only: std::collections::HashSet<usize> = std::collections::HashSet::new();
     // Gathering nodes' inputs that failed or were skipped: (upstream, its label).
     let mut lost: HashMap<usize, Vec<(usize, String)>> = HashMap::new();
     // Ready nodes, later steps first, then by index.
@@ -141,7 +155,10 @@ pub fn run(
                 let gone = lost.get(&i).cloned().unwrap_or_default();
                 for &u in &graph.nodes[i].upstream {
                     if !gone.iter().any(|(g, _)| *g == u) {
-                        inputs.insert(u, memory.get(&u).cloned());
+                        let held = memory.get(&u).filter(|_| {
+                            !head_only.contains(&u) || !reads_arrays_of(plan, graph, i, u)
+                        });
+                        inputs.insert(u, held.cloned());
                     }
                 }
                 let tx = tx.clone();
@@ -190,8 +207,12 @@ pub fn run(
                     progress.finished(&label, &status, ms);
                     let (results, notes) = match Arc::try_unwrap(artifact) {
                         Ok(a) if cached || refcount[i] == 0 => (a.results, a.notes),
-                        Ok(a) => {
+                        Ok(mut a) => {
                             let kept = (a.results.clone(), a.notes.clone());
+                            if !hold_whole[i] {
+                                a.take_arrays();
+                                head_only.insert(i);
+                            }
                             memory.insert(i, Arc::new(a));
                             kept
                         }
@@ -250,6 +271,7 @@ pub fn run(
                 refcount[u] = refcount[u].saturating_sub(1);
                 if refcount[u] == 0 {
                     memory.remove(&u);
+                    head_only.remove(&u);
                 }
             }
             if remaining == 0 && in_flight == 0 {

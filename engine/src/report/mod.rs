@@ -237,7 +237,17 @@ struct TableView {
     rows: Vec<Vec<String>>,
     /// Per column: every non-empty cell is a number (drawn right-aligned).
     numeric: Vec<bool>,
+    /// Rows left out of the report (they are all in the CSV file).
+    hidden: usize,
 }
+
+/// Rows of a table shown in the report; longer tables show this many and point to
+/// their CSV file, so a report over thousands of items stays a page a browser opens.
+const SHOWN_ROWS: usize = 200;
+/// Runs listed per step in the provenance appendix (run.json and provenance.json
+/// list them all), and produced files listed per step.
+const SHOWN_NODES: usize = 200;
+const SHOWN_OUTPUTS: usize = 50;
 
 impl TableView {
     fn new(title: String, file: String, headers: Vec<String>, rows: Vec<Vec<String>>) -> Self {
@@ -257,12 +267,16 @@ impl TableView {
                         .all(|r| r.get(j).is_none_or(|c| looks_numeric(c)))
             })
             .collect();
+        let mut rows = rows;
+        let hidden = rows.len().saturating_sub(SHOWN_ROWS);
+        rows.truncate(SHOWN_ROWS);
         TableView {
             title,
             file,
             headers,
             rows,
             numeric,
+            hidden,
         }
     }
 }
@@ -294,7 +308,11 @@ struct ProvenanceView {
     options: String,
     inputs: String,
     outputs: Vec<String>,
+    /// Produced files not listed.
+    hidden_outputs: usize,
     references: Vec<String>,
+    /// Runs of the step (all of them), and those listed.
+    runs: usize,
     nodes: Vec<NodeView>,
 }
 
@@ -1279,10 +1297,13 @@ pub fn render_reusing(
             version: step.stage_version,
             options: serde_json::to_string(&step.options).unwrap_or_default(),
             inputs: step.inputs.join(", "),
-            outputs,
+            hidden_outputs: outputs.len().saturating_sub(SHOWN_OUTPUTS),
+            outputs: outputs.into_iter().take(SHOWN_OUTPUTS).collect(),
             references: step.references.iter().map(|r| r.citation.clone()).collect(),
+            runs: nodes.len(),
             nodes: nodes
                 .iter()
+                .take(SHOWN_NODES)
                 .map(|&i| {
                     let n = &record.nodes[i];
                     NodeView {

@@ -202,7 +202,18 @@ fn main() {
             w.clone()
         }
         None => {
-            let t = tempfile::tempdir().unwrap_or_else(|e| panic!("{e}"));
+            // Beside the binary (target/release/), not in /tmp: on the development
+            // machines creating files in a fresh /tmp folder cost ~0.3-0.7 ms each
+            // (ext4 inode tables initialised on first use) against ~35 µs elsewhere
+            // on the same disk, which swamped every whole-run figure.
+            let near = std::env::current_exe()
+                .ok()
+                .and_then(|p| p.parent().map(|d| d.to_path_buf()))
+                .unwrap_or_else(std::env::temp_dir);
+            let t = tempfile::Builder::new()
+                .prefix("retort-bench-")
+                .tempdir_in(&near)
+                .unwrap_or_else(|e| panic!("{}: {e}", near.display()));
             let p = t.path().to_path_buf();
             _keep = t;
             p
