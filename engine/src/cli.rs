@@ -454,6 +454,7 @@ fn run_plan(a: &RunArgs, plan: &Plan) -> Result<Exit, String> {
                 o.corrupt = reread.get(&node.key).cloned();
             }
         }
+        release_freed_memory();
         phases.mark("scheduler");
         let checks = outputs::checks(plan, &graph, &outcomes);
         let finished = timefmt::now_rfc3339();
@@ -570,6 +571,23 @@ fn run_plan(a: &RunArgs, plan: &Plan) -> Result<Exit, String> {
         );
     }
     Ok(exit)
+}
+
+/// Hands memory the worker threads freed back to the system before the report
+/// starts: glibc keeps freed per-thread arena pages otherwise (measured: a cold
+/// 10,000-spectrum run held ~200 MB after its scheduler that nothing used).
+fn release_freed_memory() {
+    #[cfg(all(target_os = "linux", target_env = "gnu"))]
+    {
+        extern "C" {
+            fn malloc_trim(pad: usize) -> i32;
+        }
+        // SAFETY: malloc_trim takes no pointers and only returns free heap pages to
+        // the kernel; glibc allows calling it at any time from any thread.
+        unsafe {
+            malloc_trim(0);
+        }
+    }
 }
 
 /// The exit code a finished run ends with.

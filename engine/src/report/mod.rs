@@ -471,23 +471,19 @@ fn status_word(s: &NodeStatus) -> &'static str {
 }
 
 /// Finds the node of the image under a label node: its own upstream, then theirs
-/// (a few levels). `loaded` may hold heads or whole artifacts.
+/// (a few levels), by what each node's value is.
 fn upstream_image_node(
     node: &NodeRecord,
     by_key: &HashMap<&str, usize>,
     record: &RunRecord,
-    loaded: &[Option<Artifact>],
+    kinds: &[Option<stages::Kind>],
 ) -> Option<usize> {
     let mut frontier: Vec<&str> = node.upstream.iter().map(String::as_str).collect();
     for _ in 0..4 {
         let mut next = Vec::new();
         for k in frontier {
             let Some(&i) = by_key.get(k) else { continue };
-            if let Some(Artifact {
-                value: Value::Image(_),
-                ..
-            }) = &loaded[i]
-            {
+            if kinds[i] == Some(stages::Kind::Image) {
                 return Some(i);
             }
             next.extend(record.nodes[i].upstream.iter().map(String::as_str));
@@ -547,7 +543,11 @@ fn draw_node(
         }
         Value::Image(img) => Some(figure::micrograph_svg(Some(img), None).map(Some)),
         Value::Labels(l) => {
-            let img = upstream_image_node(&record.nodes[i], by_key, record, loaded).and_then(|u| {
+            let kinds: Vec<Option<stages::Kind>> = loaded
+                .iter()
+                .map(|a| a.as_ref().map(|a| a.value.kind()))
+                .collect();
+            let img = upstream_image_node(&record.nodes[i], by_key, record, &kinds).and_then(|u| {
                 match &loaded[u] {
                     Some(Artifact {
                         value: Value::Image(img),
@@ -577,21 +577,67 @@ struct Tables<'a> {
     out: &'a Path,
 }
 
-/// A table as shown (rounded) and as written to CSV (every digit).
+/// A table as shown (rounded; only the rows the report shows are kept) and as
+/// written to CSV (every digit; rows encoded as they come, so a table of a hundred
+/// thousand fitted parameters costs its CSV bytes, not a million strings).
 struct Grid {
     headers: Vec<String>,
-    rows: Vec<Vec<String>>,
+    rows: ShownRows,
     csv_header: Vec<String>,
-    csv_rows: Vec<Vec<String>>,
+    csv_rows: CsvRows,
 }
 
 impl Grid {
     fn new(headers: &[&str], csv_header: &[&str]) -> Grid {
         Grid {
             headers: headers.iter().map(|s| s.to_string()).collect(),
-            rows: Vec::new(),
+            rows: ShownRows::default(),
             csv_header: csv_header.iter().map(|s| s.to_string()).collect(),
-            csv_rows: Vec::new(),
+            csv_rows: CsvRows::default(),
+        }
+    }
+}
+
+/// The first [`SHOWN_ROWS`] rows as shown, and how many there were.
+#[derive(Default)]
+struct ShownRows {
+    kept: Vec<Vec<String>>,
+    total: usize,
+}
+
+impl ShownRows {
+    fn push(&mut self, row: Vec<String>) {
+        if self.kept.len() < SHOWN_ROWS {
+            self.kept.push(row);
+        }
+        self.total += 1;
+    }
+    fn is_empty(&self) -> bool {
+        self.total == 0
+    }
+}
+
+/// CSV rows encoded as they come (the header is written in front at the end).
+struct CsvRows {
+    w: csv::Writer<Vec<u8>>,
+    error: Option<String>,
+}
+
+impl Default for CsvRows {
+    fn default() -> Self {
+        CsvRows {
+            w: csv::WriterBuilder::new()
+                .flexible(true)
+                .from_writer(Vec::new()),
+            error: None,
+        }
+    }
+}
+
+impl CsvRows {
+    fn push(&mut self, row: Vec<String>) {
+        if let Err(e) = self.w.write_record(&row) {
+            self.error.get_or_insert(e.to_string());
         }
     }
 }
@@ -613,17 +659,21 @@ impl Tables<'_> {
         let mut w = csv::Writer::from_writer(Vec::new());
         w.write_record(&grid.csv_header)
             .map_err(|e| failed(e.to_string()))?;
-        for r in &grid.csv_rows {
-            w.write_record(r).map_err(|e| failed(e.to_string()))?;
+        let mut bytes = w.into_inner().map_err(|e| failed(e.to_string()))?;
+        let CsvRows { w, error } = grid.csv_rows;
+        if let Some(e) = error {
+            return Err(failed(e));
         }
-        let bytes = w.into_inner().map_err(|e| failed(e.to_string()))?;
+        bytes.extend(w.into_inner().map_err(|e| failed(e.to_string()))?);
         write(&path, &bytes)?;
-        Ok(TableView::new(
+        let mut view = TableView::new(
             title,
             format!("tables/{name}"),
             grid.headers,
-            grid.rows,
-        ))
+            grid.rows.kept,
+        );
+        view.hidden = grid.rows.total - view.rows.len();
+        Ok(view)
     }
 }
 
@@ -773,26 +823,31 @@ pub fn render_reusing(
         })?;
     }
     let mut summary = RenderSummary::default();
-    // Every node's head (records, notes, axes; no per-point arrays) is all the
-    // tables need; whole artifacts are read only to draw a figure, a chunk of nodes
-    // at a time, so a big run's arrays are never all in memory.
+    // A node's head (records, notes, axes; no per-point arrays) is all its tables
+    // need: heads are read here for the value kinds and curve counts, then again
+    // one step at a time; whole artifacts are read only to draw a figure, a chunk
+    // of nodes at a time. So a big run is never all in memory at once.
     let done = |n: &NodeRecord| matches!(n.status, NodeStatus::Ran | NodeStatus::Cached);
-    let loaded: Vec<Option<Artifact>> = record
-        .nodes
-        .par_iter()
-        .map(|n| {
-            if done(n) {
-                artifacts.load_head(&n.key)
-            } else {
-                None
-            }
+    let head = |i: usize| {
+        let n = &record.nodes[i];
+        if done(n) {
+            artifacts.load_head(&n.key)
+        } else {
+            None
+        }
+    };
+    let shapes: Vec<Option<(stages::Kind, usize)>> = (0..record.nodes.len())
+        .into_par_iter()
+        .map(|i| {
+            head(i).map(|a| {
+                let curves = a.spectrum().map_or(0, |s| 1 + s.curves.len());
+                (a.value.kind(), curves)
+            })
         })
         .collect();
-    let curves: usize = loaded
-        .iter()
-        .flatten()
-        .map(|a| a.spectrum().map_or(0, |s| 1 + s.curves.len()))
-        .sum();
+    let kinds: Vec<Option<stages::Kind>> = shapes.iter().map(|s| s.map(|s| s.0)).collect();
+    let curves: usize = shapes.iter().flatten().map(|s| s.1).sum();
+    let mut loaded: Vec<Option<Artifact>> = (0..record.nodes.len()).map(|_| None).collect();
     let by_key: HashMap<&str, usize> = record
         .nodes
         .iter()
@@ -835,8 +890,9 @@ pub fn render_reusing(
     for (si, step) in record.steps.iter().enumerate() {
         let stem = stem(step);
         for &i in &step_nodes[si] {
-            let Some(art) = &loaded[i] else { continue };
-            if matches!(art.value, Value::File(_) | Value::Summary) || !done(&record.nodes[i]) {
+            let Some(kind) = kinds[i] else { continue };
+            if matches!(kind, stages::Kind::File | stages::Kind::Summary) || !done(&record.nodes[i])
+            {
                 continue;
             }
             let item = item_of(&record.nodes[i]);
@@ -845,9 +901,11 @@ pub fn render_reusing(
                 parts.push(&item);
             }
             let file = format!("figures/{}", fig_names.take(&parts, "svg"));
-            let image = match art.value {
-                Value::Labels(_) => upstream_image_node(&record.nodes[i], &by_key, record, &loaded)
-                    .map(|u| record.nodes[u].key.as_str()),
+            let image = match kind {
+                stages::Kind::Labels => {
+                    upstream_image_node(&record.nodes[i], &by_key, record, &kinds)
+                        .map(|u| record.nodes[u].key.as_str())
+                }
                 _ => None,
             };
             let key = figure_key(&record.engine_version, &record.nodes[i].key, points, image);
@@ -889,7 +947,7 @@ pub fn render_reusing(
             }
             if let Some(a) = whole {
                 if matches!(a.value, Value::Labels(_)) {
-                    if let Some(u) = upstream_image_node(node, &by_key, record, &loaded) {
+                    if let Some(u) = upstream_image_node(node, &by_key, record, &kinds) {
                         if let std::collections::hash_map::Entry::Vacant(slot) = full.entry(u) {
                             if let Some(img) = artifacts.load(&record.nodes[u].key) {
                                 slot.insert(img);
@@ -988,6 +1046,11 @@ pub fn render_reusing(
         let stem = stem(step);
         let anchor_id = anchors.take("s", &[&step.recipe, &step.id]);
         let nodes = nodes.as_slice();
+        // This step's heads, dropped again at the end of the step.
+        let heads: Vec<Option<Artifact>> = nodes.par_iter().map(|&i| head(i)).collect();
+        for (&i, h) in nodes.iter().zip(heads) {
+            loaded[i] = h;
+        }
         let mut view = StepView {
             id: step.id.clone(),
             anchor: anchor_id.clone(),
@@ -1324,6 +1387,9 @@ pub fn render_reusing(
                 .collect(),
         });
         step_views.push((step.recipe.clone(), view));
+        for &i in nodes {
+            loaded[i] = None;
+        }
     }
 
     // Checks.

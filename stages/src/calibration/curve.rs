@@ -77,7 +77,8 @@ static INPUTS: &[Port] = &[Port::gather(
     "items",
     Kind::Any,
     "every standard and unknown, each carrying the response record",
-).records_only()];
+)
+.records_only()];
 
 pub const ISO8466: Reference = Reference {
     key: "iso8466",

@@ -36,7 +36,8 @@ static INPUTS: &[Port] = &[Port::several(
     "steps",
     Kind::Any,
     "the steps whose results are combined, one value each for the same item",
-).records_only()];
+)
+.records_only()];
 
 impl TypedStage for GatherCombine {
     type Options = Options;

@@ -699,6 +699,10 @@ fn tokenize(line: &str, toks: &mut Vec<Tok>) -> Result<f64, String> {
     x.ok_or_else(|| "empty data line".to_string())
 }
 
+/// More ordinates than any single spectrum holds (a 64 Mi-point free induction
+/// decay is already unusual); a DUP count beyond it is taken as corruption.
+const MAX_ORDINATES: u64 = 100_000_000;
+
 fn decode_xydata(name: &str, body: &[(usize, &str)]) -> Result<Decoded, StageError> {
     let mut values: Vec<f64> = Vec::new();
     let mut line_x = Vec::with_capacity(body.len());
@@ -736,6 +740,14 @@ fn decode_xydata(name: &str, body: &[(usize, &str)]) -> Result<Decoded, StageErr
                 Tok::Dup(n) => {
                     if n < 1 {
                         return Err(err("DUP count must be at least 1".into()));
+                    }
+                    // A corrupt count (`Z99999999999`) would otherwise try to expand
+                    // to more points than memory holds.
+                    let total = (values.len() + line_vals.len()) as u64;
+                    if total.saturating_add(n) > MAX_ORDINATES {
+                        return Err(err(format!(
+                            "DUP count {n} would give more than {MAX_ORDINATES} ordinates"
+                        )));
                     }
                     match last_tok {
                         Some(Tok::Abs(v)) => {
@@ -786,6 +798,17 @@ fn decode_xydata(name: &str, body: &[(usize, &str)]) -> Result<Decoded, StageErr
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn an_enormous_dup_count_is_refused_not_expanded() {
+        let body = [(7usize, "1 1Z99999999999")];
+        let e = decode_xydata("t.jdx", &body).err().expect("refused");
+        let msg = e.to_string();
+        assert!(
+            msg.contains("t.jdx:7") && msg.contains("more than 100000000 ordinates"),
+            "{msg}"
+        );
+    }
 
     fn read(text: &str) -> Result<(Spectrum, Vec<String>), StageError> {
         parse("t.jdx", text.as_bytes(), &Options::default())

@@ -65,11 +65,8 @@ impl Default for DistributionOptions {
 
 pub struct Distribution;
 
-static INPUTS: &[Port] = &[Port::gather(
-    "particles",
-    Kind::Table,
-    "particle tables of every image",
-).records_only()];
+static INPUTS: &[Port] =
+    &[Port::gather("particles", Kind::Table, "particle tables of every image").records_only()];
 static REFS: &[Reference] = &[FREEDMAN1981, STURGES1926, HYNDMAN1996, LIMPERT2001];
 
 /// Summary statistics of a sample of sizes.

@@ -59,7 +59,8 @@ static INPUTS: &[Port] = &[Port::several(
     "regions",
     Kind::Any,
     "the areas of each core-level region of one sample (area records or fits), one step each",
-).records_only()];
+)
+.records_only()];
 
 pub const BRIGGS_SEAH: Reference = Reference {
     key: "briggs1990",
