@@ -491,13 +491,20 @@ fn run_plan(a: &RunArgs, plan: &Plan) -> Result<Exit, String> {
         outputs::write_json(tmp.path(), "run.json", &record)?;
         phases.mark("outputs");
         let source = CacheArtifacts::new(&cache);
-        let rendered = crate::report::render_reusing(
-            &record,
-            &source,
-            tmp.path(),
-            None,
-            previous.as_ref().map(|m| (out.as_path(), &m.figures)),
-        )
+        // The report draws on as many threads as the steps ran on (`--jobs`).
+        let render = || {
+            crate::report::render_reusing(
+                &record,
+                &source,
+                tmp.path(),
+                None,
+                previous.as_ref().map(|m| (out.as_path(), &m.figures)),
+            )
+        };
+        let rendered = match rayon::ThreadPoolBuilder::new().num_threads(jobs).build() {
+            Ok(pool) => pool.install(render),
+            Err(_) => render(),
+        }
         .map_err(|e| e.to_string())?;
         phases.mark("report");
         let damaged = source.damaged();

@@ -1528,12 +1528,16 @@ pub fn render_reusing(
             .map_err(|e| template_error(name, &e))?;
     }
     let ctx = tera::Context::from_serialize(&view).map_err(|e| template_error("context", &e))?;
-    for name in ["report.html", "report.md"] {
-        let text = tera
-            .render(name, &ctx)
-            .map_err(|e| template_error(name, &e))?;
-        write(&out.join(name), text.as_bytes())?;
-    }
+    // The two pages are independent: render them at once.
+    ["report.html", "report.md"]
+        .par_iter()
+        .map(|name| {
+            let text = tera
+                .render(name, &ctx)
+                .map_err(|e| template_error(name, &e))?;
+            write(&out.join(name), text.as_bytes())
+        })
+        .collect::<Result<Vec<()>, ReportError>>()?;
     Ok(summary)
 }
 
