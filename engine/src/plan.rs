@@ -566,7 +566,7 @@ impl<'a> Resolver<'a> {
                 },
             );
         }
-        let checks = self.checks(&steps, &new_index, &by_id);
+        let checks = self.checks(&steps, &new_index, &by_id, &envs);
         Plan {
             policy: self.policy.clone(),
             recipes,
@@ -1445,9 +1445,11 @@ impl<'a> Resolver<'a> {
         steps: &[PlanStep],
         new_index: &[usize],
         by_id: &HashMap<String, usize>,
+        envs: &[BTreeMap<String, Param>],
     ) -> Vec<PlanCheck> {
         let mut out = Vec::new();
-        for (r, l) in self.loaded.iter().enumerate() {
+        let loaded = self.loaded;
+        for (r, l) in loaded.iter().enumerate() {
             for (ci, c) in l.raw.checks.iter().enumerate() {
                 let path = [k("checks"), Seg::Index(ci)];
                 let rpos = self.val_pos(r, &[k("checks"), Seg::Index(ci), k("result")]);
@@ -1511,7 +1513,38 @@ impl<'a> Resolver<'a> {
                     );
                     continue;
                 }
-                let expect = match (c.expect, c.tolerance, c.within) {
+                // Numbers, or `{{ parameter }}` templates that give numbers.
+                let env = &envs[r];
+                let mut number = |field: &str, y: &Option<Y>| -> Result<Option<f64>, ()> {
+                    let Some(y) = y else { return Ok(None) };
+                    let at = [k("checks"), Seg::Index(ci), k(field)];
+                    self.check_number(r, &at, y, env).map(Some).ok_or(())
+                };
+                let (Ok(value), Ok(tolerance)) = (
+                    number("expect", &c.expect),
+                    number("tolerance", &c.tolerance),
+                ) else {
+                    continue;
+                };
+                let within = match &c.within {
+                    None => None,
+                    Some(Y::Sequence(v)) if v.len() == 2 => {
+                        let at = |i| [k("checks"), Seg::Index(ci), k("within"), Seg::Index(i)];
+                        let low = self.check_number(r, &at(0), &v[0], env);
+                        let high = self.check_number(r, &at(1), &v[1], env);
+                        match (low, high) {
+                            (Some(low), Some(high)) => Some([low, high]),
+                            _ => continue,
+                        }
+                    }
+                    Some(_) => {
+                        let pos = self.val_pos(r, &[k("checks"), Seg::Index(ci), k("within")]);
+                        let message = "`within` is `[low, high]`: two numbers".to_string();
+                        self.err(r, Problem::BadCheck { message }, pos);
+                        continue;
+                    }
+                };
+                let expect = match (value, tolerance, within) {
                     (Some(value), Some(tolerance), None) if tolerance >= 0.0 => {
                         Expect::Near { value, tolerance }
                     }
@@ -1534,6 +1567,35 @@ impl<'a> Resolver<'a> {
             }
         }
         out
+    }
+
+    /// A check's number: a YAML number, or a template giving one.
+    fn check_number(
+        &mut self,
+        r: usize,
+        path: &[Seg],
+        y: &Y,
+        env: &BTreeMap<String, Param>,
+    ) -> Option<f64> {
+        let j = self.substitute(r, path, y, env)?;
+        let v = match &j {
+            J::Number(n) => n.as_f64(),
+            J::String(s) => s.trim().parse::<f64>().ok(),
+            _ => None,
+        };
+        match v.filter(|v| v.is_finite()) {
+            Some(v) => Some(v),
+            None => {
+                let pos = self.val_pos(r, path);
+                let shown = match &j {
+                    J::String(s) => format!("`{s}`"),
+                    other => other.to_string(),
+                };
+                let message = format!("expected a number, found {shown}");
+                self.err(r, Problem::BadCheck { message }, pos);
+                None
+            }
+        }
     }
 }
 

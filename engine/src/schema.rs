@@ -246,9 +246,9 @@ pub fn recipe_schema(catalog: &[&'static dyn Stage]) -> Value {
                     "properties": {
                         "result": { "description": "`step.result_name`.", "type": "string" },
                         "item": { "type": "string" },
-                        "expect": { "type": "number" },
-                        "tolerance": { "type": "number", "minimum": 0 },
-                        "within": { "type": "array", "items": { "type": "number" }, "minItems": 2, "maxItems": 2 }
+                        "expect": { "anyOf": [{ "type": "number" }, { "$ref": "#/$defs/template" }] },
+                        "tolerance": { "anyOf": [{ "type": "number", "minimum": 0 }, { "$ref": "#/$defs/template" }] },
+                        "within": { "type": "array", "items": { "anyOf": [{ "type": "number" }, { "$ref": "#/$defs/template" }] }, "minItems": 2, "maxItems": 2 }
                     },
                     "oneOf": [
                         { "required": ["expect", "tolerance"], "not": { "required": ["within"] } },

@@ -651,3 +651,61 @@ fn damaged_large_arrays_are_found_when_read_and_recomputed() {
     assert_eq!(status(&out, "raw", Some("film_big")), "Ran");
     assert_eq!(status(&out, "smooth", Some("film_big")), "Ran");
 }
+
+#[test]
+fn checks_take_parameters_and_say_when_one_is_not_a_number() {
+    let t = fixture("basic");
+    let recipe = t.path().join("recipe.yaml");
+    let text = std::fs::read_to_string(&recipe).unwrap();
+    let text = text
+        .replace(
+            "  window: { value: 5, unit: points, about: smoothing window }\n",
+            "  window: { value: 5, unit: points, about: smoothing window }\n  peak_at: { value: 2.0, unit: eV, about: expected band maximum }\n  lower: { value: 1.5, unit: eV, about: lowest band maximum }\n  label: { value: film, about: a word }\n",
+        )
+        .replace(
+            "  - { result: peak.max_position, item: film_a, within: [1.9, 2.1] }",
+            "  - { result: peak.max_position, item: film_a, expect: \"{{ peak_at }}\", tolerance: 0.1 }\n  - { result: peak.max_position, item: film_a, within: [\"{{ lower }}\", 2.5] }",
+        );
+    std::fs::write(&recipe, &text).unwrap();
+    let r = run(t.path(), &["run", "recipe.yaml"]);
+    assert_eq!(r.code, 0, "{}", r.stderr);
+    let rec = read_json(&t.path().join("out/run.json"));
+    assert_eq!(rec["checks"][0]["expected"], "2 ± 0.1");
+    assert_eq!(rec["checks"][1]["expected"], "between 1.5 and 2.5");
+    // Overridden from the command line, the expectation moves with it.
+    let r = run(t.path(), &["run", "recipe.yaml", "--set", "peak_at=3.0"]);
+    assert_eq!(r.code, 3, "{}", r.stderr);
+    assert!(r.stderr.contains("expected 3 ± 0.1"), "{}", r.stderr);
+    // A parameter that is not a number is an error at the check, before anything runs.
+    std::fs::write(
+        &recipe,
+        text.replace("\"{{ peak_at }}\", tolerance", "\"{{ label }}\", tolerance"),
+    )
+    .unwrap();
+    let r = run(t.path(), &["check", "recipe.yaml"]);
+    assert_eq!(r.code, 2);
+    assert!(
+        r.stderr.contains("expected a number, found `film`"),
+        "{}",
+        r.stderr
+    );
+    assert!(r.stderr.contains("recipe.yaml:"), "{}", r.stderr);
+}
+
+#[test]
+fn output_into_a_closed_pipe_ends_quietly() {
+    use std::io::Read;
+    // docs/stages.md is far larger than a pipe's buffer, so the writer meets the
+    // closed end.
+    let mut child = std::process::Command::new(binary())
+        .args(["stages", "--markdown"])
+        .stdout(std::process::Stdio::piped())
+        .stderr(std::process::Stdio::piped())
+        .spawn()
+        .unwrap();
+    let mut first = [0u8; 64];
+    child.stdout.take().unwrap().read_exact(&mut first).unwrap();
+    let out = child.wait_with_output().unwrap();
+    let stderr = String::from_utf8_lossy(&out.stderr);
+    assert!(!stderr.contains("panicked"), "{stderr}");
+}

@@ -96,10 +96,12 @@ pub struct RawCheck {
     pub result: String,
     #[serde(default)]
     pub item: Option<String>,
+    /// A number or a `{{ parameter }}` template (resolved in the plan).
     #[serde(default)]
-    pub expect: Option<f64>,
+    pub expect: Option<serde_yaml::Value>,
     #[serde(default)]
-    pub tolerance: Option<f64>,
+    pub tolerance: Option<serde_yaml::Value>,
+    /// `[low, high]`, each a number or a template.
     #[serde(default)]
-    pub within: Option<[f64; 2]>,
+    pub within: Option<serde_yaml::Value>,
 }
