@@ -170,6 +170,31 @@ fn read_segment_table(path: &Path) -> Option<Vec<(String, u64, u32)>> {
     Some(out)
 }
 
+/// A temporary file this old was left by a writer that was killed (a write takes
+/// milliseconds; a writer alive on another host never takes an hour).
+const ABANDONED: std::time::Duration = std::time::Duration::from_secs(3600);
+
+/// Removes `.tmp-*` files older than [`ABANDONED`] from `dir`.
+fn remove_abandoned_temporaries(dir: &Path) {
+    let Ok(entries) = std::fs::read_dir(dir) else {
+        return;
+    };
+    for e in entries.flatten() {
+        if !e.file_name().to_string_lossy().starts_with(".tmp-") {
+            continue;
+        }
+        let old = e
+            .metadata()
+            .and_then(|m| m.modified())
+            .ok()
+            .and_then(|t| t.elapsed().ok())
+            .is_some_and(|age| age > ABANDONED);
+        if old {
+            let _ = std::fs::remove_file(e.path());
+        }
+    }
+}
+
 /// This machine's name, reduced to characters safe in a file name.
 fn host_tag() -> &'static str {
     static TAG: std::sync::OnceLock<String> = std::sync::OnceLock::new();
@@ -208,6 +233,8 @@ impl Cache {
         std::fs::create_dir_all(dir.join("objects")).map_err(|e| io_err(dir, e))?;
         std::fs::create_dir_all(dir.join("segments")).map_err(|e| io_err(dir, e))?;
         let dir = dir.canonicalize().map_err(|e| io_err(dir, e))?;
+        remove_abandoned_temporaries(&dir);
+        remove_abandoned_temporaries(&dir.join("segments"));
         let mut names: Vec<PathBuf> = std::fs::read_dir(dir.join("segments"))
             .map_err(|e| io_err(&dir, e))?
             .flatten()
@@ -838,6 +865,73 @@ mod tests {
 mod segment_tests {
     use super::*;
     use stages::{Record, Value};
+
+    #[test]
+    fn temporaries_of_killed_writers_are_removed_when_old() {
+        let dir = tempfile::tempdir().unwrap();
+        drop(Cache::open(dir.path(), false).unwrap());
+        let seg = dir.path().join("segments");
+        let old = seg.join(".tmp-abandoned");
+        let fresh = seg.join(".tmp-in-progress");
+        std::fs::write(&old, b"x").unwrap();
+        std::fs::write(&fresh, b"x").unwrap();
+        let f = std::fs::File::options().write(true).open(&old).unwrap();
+        f.set_modified(std::time::SystemTime::now() - 2 * ABANDONED)
+            .unwrap();
+        drop(f);
+        drop(Cache::open(dir.path(), false).unwrap());
+        assert!(!old.exists());
+        assert!(
+            fresh.exists(),
+            "a recent temporary may belong to a live writer"
+        );
+    }
+
+    #[test]
+    fn heads_leave_the_arrays_out_and_whole_loads_put_them_back() {
+        let dir = tempfile::tempdir().unwrap();
+        let c = Cache::open(dir.path(), false).unwrap();
+        let meta = Meta {
+            stage: "s".into(),
+            stage_version: 1,
+            engine_version: "0".into(),
+            started: "t".into(),
+            duration_ms: 0.0,
+            host: "h".into(),
+        };
+        // 5,000 points: a body too large to come along with the head.
+        let x: Vec<f64> = (0..5000).map(f64::from).collect();
+        let s = stages::Spectrum::new(
+            x.clone(),
+            x.iter().map(|v| v * 0.5).collect(),
+            stages::Axis::new("x", ""),
+            stages::Axis::new("y", ""),
+        );
+        let a = Artifact::new(Value::Spectrum(s))
+            .with_results(vec![Record::number("r", 2.0, None, "")]);
+        c.store(&key(1), &meta, &mut a.clone()).unwrap();
+        c.flush().unwrap();
+        let c = Cache::open(dir.path(), false).unwrap();
+        match c.load_head(&key(1)) {
+            Lookup::Found(b) => {
+                assert_eq!(b.1.results, a.results);
+                assert!(b.1.spectrum().unwrap().x.is_empty());
+            }
+            _ => panic!("head not found"),
+        }
+        match c.load(&key(1)) {
+            Lookup::Found(b) => assert_eq!(b.1, a),
+            _ => panic!("entry not found"),
+        }
+        // Damage in the body is not seen by the head, and is by a whole load.
+        let (path, offset, len) = c.locate(&key(1)).unwrap();
+        let mut bytes = std::fs::read(&path).unwrap();
+        bytes[(offset + len - 1) as usize] ^= 1;
+        std::fs::write(&path, &bytes).unwrap();
+        assert!(matches!(c.load_head(&key(1)), Lookup::Found(_)));
+        assert!(matches!(c.load(&key(1)), Lookup::Corrupt(r) if r.contains("checksum")));
+        assert!(matches!(c.load_head(&key(1)), Lookup::Missing));
+    }
 
     fn key(i: u8) -> String {
         blake3::hash(&[i]).to_hex().to_string()
