@@ -78,6 +78,15 @@ pub struct LastNode {
     pub inputs: Vec<String>,
 }
 
+/// What [`Cache::prune`] did.
+#[derive(Debug, Default, Clone, PartialEq, Eq)]
+pub struct Pruned {
+    pub kept: usize,
+    pub removed: usize,
+    pub bytes_before: u64,
+    pub bytes_after: u64,
+}
+
 pub type StatIndex = BTreeMap<String, FileStat>;
 pub type NodeIndex = BTreeMap<String, LastNode>;
 
@@ -607,6 +616,98 @@ impl Cache {
         Ok(())
     }
 
+    /// Keeps only the entries whose keys are in `keep`: kept entries are checked and
+    /// copied into fresh segments (large ones stay where they are), then every older
+    /// segment file and every object not kept is removed. Run it when no other run
+    /// uses the cache: a run that opened the cache before would find its entries
+    /// gone and recompute them.
+    pub fn prune(&self, keep: &std::collections::HashSet<String>) -> Result<Pruned, String> {
+        self.flush()?;
+        let (old_files, keys): (Vec<PathBuf>, Vec<String>) = {
+            let segs = self
+                .segments
+                .read()
+                .map_err(|_| "cache lock poisoned".to_string())?;
+            (segs.files.clone(), segs.index.keys().cloned().collect())
+        };
+        let size = |p: &Path| std::fs::metadata(p).map(|m| m.len()).unwrap_or(0);
+        let mut summary = Pruned::default();
+        summary.bytes_before += old_files.iter().map(|p| size(p)).sum::<u64>();
+        let mut batch: Vec<(String, Arc<Vec<u8>>)> = Vec::new();
+        let mut pending = 0usize;
+        for key in keys {
+            if !keep.contains(&key) {
+                summary.removed += 1;
+                continue;
+            }
+            let mut bytes = Vec::new();
+            if !matches!(self.raw_into(&key, &mut bytes), Ok(true)) || split_entry(&bytes).is_err()
+            {
+                summary.removed += 1;
+                continue;
+            }
+            summary.kept += 1;
+            pending += bytes.len();
+            batch.push((key, Arc::new(bytes)));
+            if pending >= SEGMENT_BYTES {
+                self.write_segment(std::mem::take(&mut batch))?;
+                pending = 0;
+            }
+        }
+        if !batch.is_empty() {
+            self.write_segment(batch)?;
+        }
+        let new_files: Vec<PathBuf> = self
+            .segments
+            .read()
+            .map(|s| s.files[old_files.len().min(s.files.len())..].to_vec())
+            .unwrap_or_default();
+        if let Ok(mut open) = self.open.lock() {
+            open.clear();
+        }
+        for f in &old_files {
+            std::fs::remove_file(f).map_err(|e| io_err(f, e))?;
+        }
+        summary.bytes_after += new_files.iter().map(|p| size(p)).sum::<u64>();
+        if let Ok(shards) = std::fs::read_dir(self.dir.join("objects")) {
+            for shard in shards.flatten() {
+                let Ok(entries) = std::fs::read_dir(shard.path()) else {
+                    continue;
+                };
+                for e in entries.flatten() {
+                    let name = e.file_name().to_string_lossy().to_string();
+                    let bytes = size(&e.path());
+                    summary.bytes_before += bytes;
+                    if keep.contains(&name) {
+                        summary.kept += 1;
+                        summary.bytes_after += bytes;
+                    } else {
+                        summary.removed += 1;
+                        std::fs::remove_file(e.path()).map_err(|err| io_err(&e.path(), err))?;
+                    }
+                }
+            }
+        }
+        // The segment table of this process now lists only the new files.
+        if let Ok(mut segs) = self.segments.write() {
+            let index = std::mem::take(&mut segs.index);
+            let shift = old_files.len();
+            segs.files = new_files;
+            segs.index = index
+                .into_iter()
+                .filter(|(_, loc)| loc.segment >= shift)
+                .map(|(k, loc)| {
+                    let loc = Loc {
+                        segment: loc.segment - shift,
+                        ..loc
+                    };
+                    (k, loc)
+                })
+                .collect();
+        }
+        Ok(summary)
+    }
+
     fn read_index<T: DeserializeOwned + Default>(&self, name: &str) -> T {
         std::fs::read(self.dir.join(name))
             .ok()
@@ -866,6 +967,51 @@ mod segment_tests {
     use super::*;
     use stages::{Record, Value};
 
+    fn test_meta() -> Meta {
+        Meta {
+            stage: "s".into(),
+            stage_version: 1,
+            engine_version: "0".into(),
+            started: "t".into(),
+            duration_ms: 0.0,
+            host: "h".into(),
+        }
+    }
+
+    #[test]
+    fn pruning_keeps_the_named_entries_and_drops_the_rest() {
+        let dir = tempfile::tempdir().unwrap();
+        let meta = test_meta();
+        let c = Cache::open(dir.path(), false).unwrap();
+        let art = |i: u8| {
+            Artifact::new(Value::Summary).with_results(vec![Record::number(
+                "i",
+                f64::from(i),
+                None,
+                "",
+            )])
+        };
+        for i in 0..6u8 {
+            c.store(&key(i), &meta, &mut art(i)).unwrap();
+            // Several segments, as several runs would leave.
+            c.flush().unwrap();
+        }
+        let keep: std::collections::HashSet<String> = [key(1), key(4)].into_iter().collect();
+        let p = c.prune(&keep).unwrap();
+        assert_eq!((p.kept, p.removed), (2, 4));
+        assert!(p.bytes_after < p.bytes_before);
+        let segments = std::fs::read_dir(dir.path().join("segments"))
+            .unwrap()
+            .count();
+        assert_eq!(segments, 1);
+        for c in [c, Cache::open(dir.path(), false).unwrap()] {
+            assert!(matches!(c.load(&key(1)), Lookup::Found(b) if b.1 == art(1)));
+            assert!(matches!(c.load(&key(4)), Lookup::Found(b) if b.1 == art(4)));
+            assert!(matches!(c.load(&key(0)), Lookup::Missing));
+            assert!(matches!(c.load(&key(5)), Lookup::Missing));
+        }
+    }
+
     #[test]
     fn temporaries_of_killed_writers_are_removed_when_old() {
         let dir = tempfile::tempdir().unwrap();
@@ -891,14 +1037,7 @@ mod segment_tests {
     fn heads_leave_the_arrays_out_and_whole_loads_put_them_back() {
         let dir = tempfile::tempdir().unwrap();
         let c = Cache::open(dir.path(), false).unwrap();
-        let meta = Meta {
-            stage: "s".into(),
-            stage_version: 1,
-            engine_version: "0".into(),
-            started: "t".into(),
-            duration_ms: 0.0,
-            host: "h".into(),
-        };
+        let meta = test_meta();
         // 5,000 points: a body too large to come along with the head.
         let x: Vec<f64> = (0..5000).map(f64::from).collect();
         let s = stages::Spectrum::new(
@@ -940,14 +1079,7 @@ mod segment_tests {
     #[test]
     fn small_entries_go_into_segments_that_survive_reopening_and_corruption() {
         let dir = tempfile::tempdir().unwrap();
-        let meta = Meta {
-            stage: "s".into(),
-            stage_version: 1,
-            engine_version: "0".into(),
-            started: "t".into(),
-            duration_ms: 0.0,
-            host: "h".into(),
-        };
+        let meta = test_meta();
         let c = Cache::open(dir.path(), false).unwrap();
         for i in 0..10u8 {
             let a = Artifact::new(Value::Summary).with_results(vec![Record::number(

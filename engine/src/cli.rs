@@ -63,6 +63,10 @@ pub enum Command {
     },
     /// Pin stage versions, input-file hashes and included recipes in NAME.lock beside the recipe.
     Lock(RecipeArgs),
+    /// Shrink the cache: keep what the recipe uses as it stands and the last result of
+    /// every node any run in this cache made; remove the rest. Run it when no other
+    /// run or pending shard uses the cache.
+    Prune(RecipeArgs),
     /// The stage catalog: options, units, defaults, method sources.
     Stages {
         /// One stage in detail.
@@ -169,6 +173,7 @@ pub fn main_with(args: Vec<String>, catalog: &[&'static dyn Stage]) -> Exit {
         Command::Plan(a) => plan_cmd(&a, catalog),
         Command::Verify { recipe, jobs } => crate::verify::command(&recipe, jobs, catalog),
         Command::Lock(a) => crate::lock::command(&a, catalog),
+        Command::Prune(a) => prune(&a, catalog),
         Command::Bundle {
             recipe,
             output,
@@ -593,6 +598,38 @@ fn release_freed_memory() {
         // the kernel; glibc allows calling it at any time from any thread.
         unsafe {
             malloc_trim(0);
+        }
+    }
+}
+
+fn prune(a: &RecipeArgs, catalog: &[&'static dyn Stage]) -> Exit {
+    let plan = match phase1(a, catalog) {
+        Ok(p) => p,
+        Err(e) => return e,
+    };
+    let done = (|| -> Result<crate::cache::Pruned, String> {
+        let cache = Cache::open(&cache_dir(a, &plan), true)?;
+        let graph = expand(&plan, &cache)?;
+        let mut keep: std::collections::HashSet<String> =
+            graph.nodes.iter().map(|n| n.key.clone()).collect();
+        keep.extend(cache.node_index().into_values().map(|n| n.key));
+        cache.prune(&keep)
+    })();
+    match done {
+        Ok(p) => {
+            let mb = |b: u64| b as f64 / 1e6;
+            println!(
+                "kept {} entries, removed {}; the cache went from {:.1} MB to {:.1} MB",
+                p.kept,
+                p.removed,
+                mb(p.bytes_before),
+                mb(p.bytes_after)
+            );
+            Exit::Ok
+        }
+        Err(e) => {
+            eprintln!("error: {e}");
+            Exit::StepFailed
         }
     }
 }

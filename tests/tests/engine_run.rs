@@ -709,3 +709,33 @@ fn output_into_a_closed_pipe_ends_quietly() {
     let stderr = String::from_utf8_lossy(&out.stderr);
     assert!(!stderr.contains("panicked"), "{stderr}");
 }
+
+#[test]
+fn prune_keeps_the_recipe_and_the_last_runs_and_removes_older_results() {
+    let t = fixture("basic");
+    for window in ["5", "7", "9"] {
+        let set = format!("window={window}");
+        assert_eq!(
+            run(t.path(), &["run", "recipe.yaml", "--set", &set]).code,
+            0
+        );
+    }
+    let p = run(t.path(), &["prune", "recipe.yaml"]);
+    assert_eq!(p.code, 0, "{}", p.stderr);
+    // window 7's smooth, peak and table nodes (3 + 3 + 1) are neither the recipe as it
+    // stands (window 5) nor any node's last run (window 9).
+    assert!(p.stdout.contains("removed 7;"), "{}", p.stdout);
+    let out = t.path().join("out");
+    assert_eq!(run(t.path(), &["run", "recipe.yaml"]).code, 0);
+    assert_eq!(counts(&out), (0, 10, 0, 0));
+    assert_eq!(
+        run(t.path(), &["run", "recipe.yaml", "--set", "window=9"]).code,
+        0
+    );
+    assert_eq!(counts(&out), (0, 10, 0, 0));
+    assert_eq!(
+        run(t.path(), &["run", "recipe.yaml", "--set", "window=7"]).code,
+        0
+    );
+    assert_eq!(counts(&out), (7, 3, 0, 0));
+}
