@@ -8,7 +8,8 @@
 //!   511 94.954°, 440 106.710°, 531 114.094°.
 //! - NIST SRM 640e certifies a = 5.431179 Å (at 22.5 °C), as stated in issue 4.
 //!
-//! Wavelength: Cu Kα1 = 1.540598 Å from stages/data/xray_wavelengths.csv.
+//! Wavelength: Cu Kα1 = 1.5405929 Å from stages/data/xray_wavelengths.csv (International Tables
+//! for Crystallography Vol. C (2006), Table 4.2.2.6: 1.54059292(45) Å).
 
 use stages::stage::{Inputs, PortValue};
 use stages::Artifact;
@@ -64,7 +65,7 @@ fn silicon_pattern_positions_follow_from_bragg() {
     let a: f64 = 5.431179;
     for (hkl, want) in [([1, 1, 1], 28.44), ([2, 2, 0], 47.30), ([3, 1, 1], 56.12)] {
         let n: i32 = hkl.iter().map(|h: &i32| h * h).sum();
-        let tt = stages::xrd::two_theta_of(a / (n as f64).sqrt(), 1.540598).unwrap();
+        let tt = stages::xrd::two_theta_of(a / (n as f64).sqrt(), 1.5405929).unwrap();
         assert!((tt - want).abs() < 0.005, "{hkl:?}: {tt}");
     }
 }
@@ -100,26 +101,26 @@ fn silicon_lattice_parameter_by_least_squares() {
 
 #[test]
 fn scherrer_worked_example() {
-    // Cu Kα1 λ = 1.540598 Å, peak at 2θ = 38.20°, measured FWHM B = 0.300°, instrumental
+    // Cu Kα1 λ = 1.5405929 Å (ITC Vol. C Table 4.2.2.6), peak at 2θ = 38.20°, measured FWHM B = 0.300°, instrumental
     // b = 0.100°, K = 0.9.
     // Gaussian correction: β = √(0.300² − 0.100²) = √0.08 = 0.282843° = 4.93654e-3 rad;
-    //   θ = 19.10°, cos θ = 0.944949; τ = 0.9 × 1.540598 / (4.93654e-3 × 0.944949)
-    //   = 297.236 Å = 29.7236 nm.
-    // Lorentzian correction: β = 0.200° = 3.49066e-3 rad → τ = 420.355 Å = 42.0355 nm.
+    //   θ = 19.10°, cos θ = 0.944949; τ = 0.9 × 1.5405929 / (4.93654e-3 × 0.944949)
+    //   = 297.235 Å = 29.7235 nm.
+    // Lorentzian correction: β = 0.200° = 3.49066e-3 rad → τ = 420.354 Å = 42.0354 nm.
     let peak = serde_json::json!([{"name": "p1", "two_theta": 38.2, "fwhm": 0.3, "fwhm_uncertainty": 0.01}]);
     let g = run(
         "xrd.scherrer",
         serde_json::json!({"wavelength": "Cu Ka1", "instrument_fwhm": 0.1, "peaks": peak}),
     );
     let (t, u) = num(&g, "size.p1");
-    assert!((t - 29.7236).abs() < 1e-3, "{t}");
-    // u(τ) = τ·(∂β/∂B)·u_B/β = τ·(B/β²)·u_B = 29.7236 × 0.3/0.08 × 0.01 = 1.11464 nm.
-    assert!((u.unwrap() - 1.11464).abs() < 1e-4, "{u:?}");
+    assert!((t - 29.7235).abs() < 1e-3, "{t}");
+    // u(τ) = τ·(∂β/∂B)·u_B/β = τ·(B/β²)·u_B = 29.7235 × 0.3/0.08 × 0.01 = 1.11463 nm.
+    assert!((u.unwrap() - 1.11463).abs() < 1e-4, "{u:?}");
     let l = run(
         "xrd.scherrer",
         serde_json::json!({"wavelength": "Cu Ka1", "instrument_fwhm": 0.1, "correction": "lorentzian", "peaks": peak}),
     );
-    assert!((num(&l, "size.p1").0 - 42.0355).abs() < 1e-3);
+    assert!((num(&l, "size.p1").0 - 42.0354).abs() < 1e-3);
     // A measured width not above the instrumental one is refused.
     let s = stages::find("xrd.scherrer").unwrap();
     let o = s

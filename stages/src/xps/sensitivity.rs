@@ -69,5 +69,20 @@ mod tests {
         // The reference lines of each set are 1 by definition.
         assert_eq!(lookup("scofield_al_ka", "C", "1s").unwrap().rsf, 1.0);
         assert_eq!(lookup("wagner1981", "F", "1s").unwrap().rsf, 1.0);
+        // Wagner et al., Surf. Interface Anal. 3 (1981) 211, area factors as reproduced from
+        // Practical Surface Analysis Vol. 1, 2nd ed. (1990), Appendix 6, at
+        // http://202.38.64.11/~mams/escalab/sfactors.html (checked 2026-12-02).
+        for (el, lv, want) in [
+            ("C", "1s", 0.25),
+            ("N", "1s", 0.42),
+            ("O", "1s", 0.66),
+            ("Na", "1s", 2.3),
+            ("Si", "2p", 0.27),
+            ("S", "2p", 0.54),
+            ("Cl", "2p", 0.73),
+        ] {
+            let f = lookup("wagner1981", el, lv).unwrap().rsf;
+            assert!((f - want).abs() < 1e-9, "{el} {lv}: {f}");
+        }
     }
 }

@@ -162,12 +162,12 @@ mod tests {
                 "{a}"
             );
         }
-        assert_eq!(
-            resolve(&Some(Wavelength::Named("cu kα1".into())))
-                .unwrap()
-                .0,
-            1.540598
-        );
+        // International Tables for Crystallography Vol. C (2006), ch. 4.2, Table 4.2.2.6:
+        // λ(Cu Kα1) = 1.54059292(45) Å and λ(Mo Kα1) = 0.70931713(41) Å; the table holds
+        // them to seven decimals.
+        let named = |s: &str| resolve(&Some(Wavelength::Named(s.into()))).unwrap().0;
+        assert!((named("cu kα1") - 1.540_592_92).abs() < 5e-8);
+        assert!((named("Mo Ka1") - 0.709_317_13).abs() < 5e-8);
         // Maskil & Deutsch, Phys. Rev. A 38 (1988) 2947, abstract: λ(Cu Kα2) =
         // 1.544 425 6 Å (1.2 ppm); the table holds it rounded to six decimals.
         let ka2 = resolve(&Some(Wavelength::Named("Cu Ka2".into())))
