@@ -601,6 +601,13 @@ fn node_key(out: &Path, step: &str, item: &str) -> String {
         .to_string()
 }
 
+/// The run succeeded and says it found `node`'s cache entry damaged and recomputed it.
+fn assert_recomputed(r: &Ran, node: &str) {
+    assert_eq!(r.code, 0, "{}", r.stderr);
+    let said = format!("cache entry of {node} was corrupt (checksum mismatch); recomputed");
+    assert!(r.stderr.contains(&said), "{}", r.stderr);
+}
+
 /// Flips a byte `from_end` bytes before the end of a cache entry, wherever it is kept.
 fn damage_entry(root: &Path, key: &str, from_end: u64) {
     let (file, offset, len) = engine::cache::Cache::open(&root.join(".retort"), true)
@@ -629,25 +636,13 @@ fn damaged_large_arrays_are_found_when_read_and_recomputed() {
     damage_entry(t.path(), &key, 3);
     // Drawing its figure into a fresh folder reads the arrays: found, recomputed.
     let r = run(t.path(), &["run", "recipe.yaml", "--out", "fresh"]);
-    assert_eq!(r.code, 0, "{}", r.stderr);
-    assert!(
-        r.stderr
-            .contains("cache entry of raw [film_big] was corrupt (checksum mismatch); recomputed"),
-        "{}",
-        r.stderr
-    );
+    assert_recomputed(&r, "raw [film_big]");
     assert!(r.stdout.contains("1 corrupt cache entries recomputed"));
     assert_eq!(clean, results(&t.path().join("fresh")));
     // A dependent that has to run reads it too: found, recomputed, then used.
     damage_entry(t.path(), &key, 3);
     let r = run(t.path(), &["run", "recipe.yaml", "--set", "window=7"]);
-    assert_eq!(r.code, 0, "{}", r.stderr);
-    assert!(
-        r.stderr
-            .contains("cache entry of raw [film_big] was corrupt (checksum mismatch); recomputed"),
-        "{}",
-        r.stderr
-    );
+    assert_recomputed(&r, "raw [film_big]");
     assert_eq!(status(&out, "raw", Some("film_big")), "Ran");
     assert_eq!(status(&out, "smooth", Some("film_big")), "Ran");
 }
